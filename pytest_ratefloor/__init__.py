@@ -1,0 +1,116 @@
+"""pytest-ratefloor: hold a lossless codec to the entropy floor in its own test suite.
+
+The public API is re-exported here lazily (PEP 562), so that loading the
+plugin at pytest start-up does not import numpy-heavy modules a run may not
+need. See README.md for usage and DESIGN.md for the contract.
+"""
+
+from __future__ import annotations
+
+import importlib
+from typing import TYPE_CHECKING, Any
+
+__version__ = "0.1.0"
+
+_EXPORTS: dict[str, str] = {
+    # reference sources and code analysis, also importable as modules
+    "sources": "pytest_ratefloor.sources",
+    "codes": "pytest_ratefloor.codes",
+    # codecs under test
+    "StreamCodec": "pytest_ratefloor.codecs",
+    "ByteCodec": "pytest_ratefloor.codecs",
+    "Codebook": "pytest_ratefloor.codes",
+    # checks
+    "measure": "pytest_ratefloor.checks",
+    "assert_roundtrip": "pytest_ratefloor.checks",
+    "assert_rate": "pytest_ratefloor.checks",
+    "assert_prefix_free": "pytest_ratefloor.codes",
+    "assert_kraft": "pytest_ratefloor.codes",
+    "assert_uniquely_decodable": "pytest_ratefloor.codes",
+    "assert_survives_corruption": "pytest_ratefloor.corruption",
+    "Measurement": "pytest_ratefloor.measurement",
+    # the pytest side
+    "gate": "pytest_ratefloor.harness",
+    # failures
+    "RateFloorFailure": "pytest_ratefloor.failures",
+    "RoundTripFailure": "pytest_ratefloor.failures",
+    "CodecMisbehaviour": "pytest_ratefloor.failures",
+    "RateFailure": "pytest_ratefloor.failures",
+    "ImpossibleRate": "pytest_ratefloor.failures",
+    "PrefixFailure": "pytest_ratefloor.failures",
+    "KraftFailure": "pytest_ratefloor.failures",
+    "CodeShapeFailure": "pytest_ratefloor.failures",
+    "AmbiguousCode": "pytest_ratefloor.failures",
+    "RegressionFailure": "pytest_ratefloor.failures",
+    "CorruptionFailure": "pytest_ratefloor.failures",
+    "LedgerError": "pytest_ratefloor.failures",
+}
+
+__all__ = ["__version__", *_EXPORTS]
+
+
+def __getattr__(name: str) -> Any:
+    module_name = _EXPORTS.get(name)
+    if module_name is None:
+        raise AttributeError(f"module 'pytest_ratefloor' has no attribute {name!r}")
+    module = importlib.import_module(module_name)
+    value = module if module_name.rsplit(".", 1)[-1] == name else getattr(module, name)
+    globals()[name] = value
+    return value
+
+
+def __dir__() -> list[str]:
+    return sorted(__all__)
+
+
+if TYPE_CHECKING:  # pragma: no cover - for type checkers only
+    from pytest_ratefloor import codes as codes
+    from pytest_ratefloor import sources as sources
+    from pytest_ratefloor.checks import assert_rate as assert_rate
+    from pytest_ratefloor.checks import assert_roundtrip as assert_roundtrip
+    from pytest_ratefloor.checks import measure as measure
+    from pytest_ratefloor.codecs import ByteCodec as ByteCodec
+    from pytest_ratefloor.codecs import StreamCodec as StreamCodec
+    from pytest_ratefloor.codes import Codebook as Codebook
+    from pytest_ratefloor.codes import assert_kraft as assert_kraft
+    from pytest_ratefloor.codes import assert_prefix_free as assert_prefix_free
+    from pytest_ratefloor.codes import assert_uniquely_decodable as assert_uniquely_decodable
+    from pytest_ratefloor.corruption import assert_survives_corruption as assert_survives_corruption
+    from pytest_ratefloor.failures import (
+        AmbiguousCode as AmbiguousCode,
+    )
+    from pytest_ratefloor.failures import (
+        CodecMisbehaviour as CodecMisbehaviour,
+    )
+    from pytest_ratefloor.failures import (
+        CodeShapeFailure as CodeShapeFailure,
+    )
+    from pytest_ratefloor.failures import (
+        CorruptionFailure as CorruptionFailure,
+    )
+    from pytest_ratefloor.failures import (
+        ImpossibleRate as ImpossibleRate,
+    )
+    from pytest_ratefloor.failures import (
+        KraftFailure as KraftFailure,
+    )
+    from pytest_ratefloor.failures import (
+        LedgerError as LedgerError,
+    )
+    from pytest_ratefloor.failures import (
+        PrefixFailure as PrefixFailure,
+    )
+    from pytest_ratefloor.failures import (
+        RateFailure as RateFailure,
+    )
+    from pytest_ratefloor.failures import (
+        RateFloorFailure as RateFloorFailure,
+    )
+    from pytest_ratefloor.failures import (
+        RegressionFailure as RegressionFailure,
+    )
+    from pytest_ratefloor.failures import (
+        RoundTripFailure as RoundTripFailure,
+    )
+    from pytest_ratefloor.harness import gate as gate
+    from pytest_ratefloor.measurement import Measurement as Measurement

@@ -1,0 +1,93 @@
+"""The package's own shape: public names, plain-data measurements, README ↔ CI agreement."""
+
+from __future__ import annotations
+
+import json
+import re
+import subprocess
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+import pytest_ratefloor
+from pytest_ratefloor.measurement import Measurement
+
+ROOT = Path(__file__).resolve().parents[1]
+
+# The public names of DESIGN.md ("Public API": everything importable from pytest_ratefloor).
+DESIGN_NAMES = [
+    "sources", "codes", "StreamCodec", "ByteCodec", "Codebook", "measure",
+    "assert_roundtrip", "assert_rate", "assert_prefix_free", "assert_kraft",
+    "assert_uniquely_decodable", "Measurement", "gate",
+]
+
+
+@pytest.mark.parametrize("name", DESIGN_NAMES)
+def test_public_name_resolves(name: str) -> None:
+    assert getattr(pytest_ratefloor, name) is not None
+    assert name in dir(pytest_ratefloor)
+
+
+def test_unknown_name_is_attribute_error() -> None:
+    with pytest.raises(AttributeError, match="no_such_thing"):
+        _ = pytest_ratefloor.no_such_thing  # type: ignore[attr-defined]
+
+
+def _measurement(**overrides: object) -> Measurement:
+    fields: dict[str, object] = dict(
+        codec="demo", source="bernoulli(p=0.1)", n=np.int64(1000), seed=0, bits=np.int64(480),
+        entropy=np.float64(0.4689955935892812), floor="entropy", floor_bits=np.float64(468.99),
+        sample_information=470.1, spread=np.float32(0.02), fingerprint="abc",
+        source_params={"p": np.float64(0.1)},
+    )
+    fields.update(overrides)
+    return Measurement(**fields)  # type: ignore[arg-type]
+
+
+def test_record_is_builtin_only_and_round_trips() -> None:
+    m = _measurement()
+    record = m.to_record()
+
+    def check(value: object) -> None:
+        # execnet dispatches on exact type names (pytest-plugin notes §8): numpy scalars fail.
+        assert type(value) in (int, float, str, bool, type(None), dict, list), type(value)
+        if isinstance(value, dict):
+            for v in value.values():
+                check(v)
+
+    for value in record.values():
+        check(value)
+    json.dumps(record)  # the stdlib json rejects numpy scalars too
+    again = Measurement.from_record(record)
+    assert again.bits == 480 and again.n == 1000
+    assert again.rate == pytest.approx(0.48)
+
+
+def test_derived_figures() -> None:
+    m = _measurement(n=1000, bits=500, floor_bits=400.0)
+    assert m.rate == 0.5 and m.floor_rate == 0.4
+    assert m.excess == pytest.approx(0.1)
+    assert m.efficiency == pytest.approx(0.8)
+    assert m.key == ("demo", "bernoulli(p=0.1)", 1000, 0)
+
+
+def test_record_missing_fields_is_clear() -> None:
+    with pytest.raises(ValueError, match="bits"):
+        Measurement.from_record({"codec": "x", "source": "y", "n": 1, "seed": 0})
+
+
+def test_ci_runs_readme_test_command_verbatim() -> None:
+    readme = (ROOT / "README.md").read_text(encoding="utf-8")
+    block = re.search(r"<!-- ci:test-command -->\s*```\w*\n(.+?)\n", readme)
+    assert block, "README.md lacks the CI test-command marker"
+    command = block.group(1)
+    assert "pytest tests" in command
+    # .ci/run extracts exactly that line (shell awk, run here to prove it).
+    script = (ROOT / ".ci" / "run").read_text(encoding="utf-8")
+    awk = re.search(r"cmd=\$\(awk '(.+?)' README.md\)", script)
+    assert awk
+    out = subprocess.run(
+        ["awk", awk.group(1), "README.md"], cwd=ROOT, capture_output=True, text=True, check=True
+    )
+    assert out.stdout.strip() == command

@@ -37,7 +37,10 @@ Isolation
     ``spawn``, which needs the decoder to pickle; if it does not, a
     :class:`CorruptionSetupError` says so. There is deliberately no
     in-process fallback: a hang there would stall the whole test session,
-    the very thing the check exists to prevent.
+    the very thing the check exists to prevent. When the worker dies of a
+    signal, ``faulthandler`` prints its Python traceback (the decoder's frame
+    on top) to standard error, which pytest captures and shows with the
+    failure. A run stops after :data:`MAX_FAILURES` failed trials.
 
 Memory limit
     ``memory_limit`` bytes is the growth allowed to the worker's address
@@ -64,6 +67,8 @@ from __future__ import annotations
 
 import contextlib
 import dataclasses
+import faulthandler
+import io
 import itertools
 import json
 import math
@@ -411,10 +416,10 @@ def corruption_schedule(stream_length: int, trials: int, seed: int = 0) -> list[
     positions, widths and garbage keys come from the raw 64-bit words of
     ``numpy.random.PCG64(seed)`` through the project's own mapping. The list
     opens with the edge cases (all bytes cut, one byte short, a flip, appended
-    garbage, random bytes, a burst), then cycles truncations (40 %), flips
-    (30 %), bursts (20 %), appends and random replacements (5 % each).
-    Duplicates are dropped, so a tiny stream may get fewer than ``trials``
-    entries; an empty stream only gets appends.
+    garbage, random bytes, a burst), then cycles truncations (30 %), single
+    flips (30 %), bursts (20 %), appends (10 %) and random replacements (10 %).
+    A duplicate is redrawn (up to 8 times) and then dropped, so a tiny stream
+    may get fewer than ``trials`` entries; an empty stream only gets appends.
     """
     stream_length = _check_int("stream_length", stream_length, 0)
     trials = _check_int("trials", trials, 1)
@@ -427,13 +432,15 @@ def corruption_schedule(stream_length: int, trials: int, seed: int = 0) -> list[
         draws = itertools.chain(_OPENING, itertools.cycle(_ROTATION))
     schedule: list[Corruption] = []
     seen: set[Corruption] = set()
-    for attempt, draw in enumerate(draws):
-        if len(schedule) >= trials or attempt >= 4 * trials + 16:
+    for turn, draw in enumerate(draws):
+        if len(schedule) >= trials or turn >= 2 * trials + 16:
             break
-        corruption = draw(words, stream_length)
-        if corruption not in seen:
-            seen.add(corruption)
-            schedule.append(corruption)
+        for _ in range(8):  # redraw the same kind on a duplicate, so the mix holds
+            corruption = draw(words, stream_length)
+            if corruption not in seen:
+                seen.add(corruption)
+                schedule.append(corruption)
+                break
     return schedule
 
 
@@ -582,9 +589,10 @@ def _same_symbols(result: object, expected: np.ndarray) -> tuple[bool, str]:
     if np.all(equal):
         return True, ""
     index = int(np.argmin(equal))
+    value = got[index].item() if isinstance(got[index], np.generic) else got[index]
     return False, (
         f"returned {got.shape[0]} symbols without an error; first difference at "
-        f"index {index}: expected {expected[index]}, got {got[index]!r}"
+        f"index {index}: expected {expected[index]}, got {value!r}"
     )
 
 
@@ -613,6 +621,8 @@ def _one_trial(job: _Job, index: int, rss_ceiling: int | None) -> tuple[Status, 
             return "memory", f"peak resident size reached {peak} bytes"
     if job.expected is None:
         return "returned", ""
+    if isinstance(result, _WrongReturn):
+        return "silent", f"returned without an error, but {result.message}"
     same, how = _same_symbols(result, job.expected)
     return ("original", "") if same else ("silent", how)
 
@@ -621,6 +631,10 @@ def _worker_main(conn: Connection, job: _Job, start: int) -> None:
     """Worker entry point: run trials ``start..`` in order, one message each."""
     with contextlib.suppress(ValueError, OSError, AttributeError):
         signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C is the parent's to handle
+    with contextlib.suppress(ValueError, OSError, AttributeError, io.UnsupportedOperation):
+        # On a fatal signal, print the decoder's Python traceback to file descriptor 2,
+        # which pytest captures and shows beside the failure.
+        faulthandler.enable(file=sys.__stderr__ or sys.stderr)
     guard, rss_ceiling = _guard_memory(job.memory_limit)
     conn.send(("ready", guard))
     for index in range(start, len(job.schedule)):
@@ -895,33 +909,38 @@ def _slug(text: str) -> str:
     return re.sub(r"[^A-Za-z0-9._-]+", "_", text).strip("_")[:60] or "codec"
 
 
-def _write_new(path: Path, data: bytes) -> Path:
-    """Write ``data`` to ``path`` or, if it exists, to ``path`` with -1, -2, ... added:
-    never overwrite."""
-    for attempt in itertools.count():
-        candidate = path if attempt == 0 else path.with_name(f"{path.stem}-{attempt}{path.suffix}")
-        try:
-            with open(candidate, "xb") as fh:
-                fh.write(data)
-            return candidate
-        except FileExistsError:
-            continue
-    raise AssertionError("unreachable")  # pragma: no cover
-
-
 def _save_damaged(
     directory: Path, stem: str, damaged: bytes, stream: _Stream, meta: dict[str, Any]
 ) -> Path:
+    """Write ``<stem>.bin`` (the damaged bytes) and ``<stem>.json`` (what was done)
+    under ``directory``; if either name is taken, ``-1``, ``-2``, ... is added to
+    the stem: nothing existing is overwritten."""
     directory.mkdir(parents=True, exist_ok=True)
-    path = _write_new(directory / f"{stem}.bin", damaged)
     sidecar = {
         "shape": stream.shape,
         "nbits": stream.damaged_bits(damaged),
         "endian": stream.endian,
         **meta,
     }
-    _write_new(path.with_suffix(".json"), (json.dumps(sidecar, indent=2) + "\n").encode())
-    return path
+    text = (json.dumps(sidecar, indent=2) + "\n").encode()
+    for attempt in itertools.count():
+        name = stem if attempt == 0 else f"{stem}-{attempt}"
+        path = directory / f"{name}.bin"
+        if path.with_suffix(".json").exists():
+            continue
+        try:
+            with open(path, "xb") as fh:
+                fh.write(damaged)
+        except FileExistsError:
+            continue
+        try:
+            with open(path.with_suffix(".json"), "xb") as fh:
+                fh.write(text)
+        except FileExistsError:  # taken in between: give up this name
+            path.unlink()
+            continue
+        return path
+    raise AssertionError("unreachable")  # pragma: no cover
 
 
 def load_damaged(path: str | os.PathLike[str]) -> Any:
@@ -953,39 +972,44 @@ def _size_text(size: int) -> str:
     return f"{size} bytes"
 
 
-def _callable_path(func: object) -> str | None:
-    """``module.qualname`` of an importable function, else None."""
-    module = getattr(func, "__module__", None)
-    qualname = getattr(func, "__qualname__", None)
-    if not module or not qualname or "<" in qualname:
-        return None
-    return f"{module}.{qualname}"
-
-
 # --------------------------------------------------------------------------
 # codecs and sources
 
 
 @dataclass(frozen=True)
-class _EncodedDecode:
-    """Calls a Codec's ``decode(encoded, n)`` with a damaged payload rewrapped in
-    the codec's own ``Encoded`` record (module level so that it pickles)."""
+class _WrongReturn:
+    """Stands for a decoder output that the codec adapter rejected (wrong type or
+    length): the decoder returned without raising, so it did not detect the damage."""
 
-    decode: Callable[[Any, int], Any]
+    message: str
+
+
+def _payload_bits(payload: Any) -> int:
+    if isinstance(payload, bytes):
+        return 8 * len(payload)
+    if isinstance(payload, tuple):
+        return int(payload[1])
+    return len(payload)  # bitarray
+
+
+@dataclass(frozen=True)
+class _AdapterDecode:
+    """Calls a codec's ``decode(encoded, n)`` with the damaged payload rewrapped in
+    the codec's ``Encoded`` record (module level so that it pickles under spawn)."""
+
+    codec: Any
     template: Any
 
     def __call__(self, payload: Any, n: int) -> Any:
-        if isinstance(payload, bytes):
-            bits = 8 * len(payload)
-        elif isinstance(payload, tuple):
-            bits = payload[1]
-        else:  # bitarray
-            bits = len(payload)
-        if dataclasses.is_dataclass(self.template):
-            encoded = dataclasses.replace(cast(Any, self.template), payload=payload, bits=bits)
-        else:  # pragma: no cover - every Encoded of codecs.py is a dataclass
-            encoded = type(self.template)(payload, bits)
-        return self.decode(encoded, n)
+        from pytest_ratefloor.codecs import CodecContractError
+
+        encoded = dataclasses.replace(
+            cast(Any, self.template), payload=payload, bits=_payload_bits(payload)
+        )
+        try:
+            return self.codec.decode(encoded, n)
+        except CodecContractError as exc:
+            return _WrongReturn(str(exc))
 
 
 @dataclass(frozen=True)
@@ -993,50 +1017,65 @@ class _Target:
     name: str
     payload: Any
     decode: Callable[[Any, int], Any]
-    replay: str  # how the replay line names the decoder
+    replay: Callable[[Path, int], str]  # the replay statement for a saved file
 
 
-def _resolve(codec: object, symbols: np.ndarray) -> _Target:
-    """Encode the sample and find the decoder, for a Codec-like object or an
-    ``(encode, decode)`` pair of callables."""
+def _replay_call(func: object, fallback: str, with_n: bool) -> Callable[[Path, int], str]:
+    """A replay statement calling ``func`` (imported by module path where possible)."""
+    module = getattr(func, "__module__", None)
+    qualname = getattr(func, "__qualname__", None)
+    if module and qualname and "<" not in qualname and module not in ("__main__", "builtins"):
+        head, name = f"import {module}; ", f"{module}.{qualname}"
+    else:
+        head, name = "", fallback
+
+    def line(path: Path, n: int) -> str:
+        args = f"load_damaged({str(path)!r})" + (f", {n}" if with_n else "")
+        return f"from pytest_ratefloor.corruption import load_damaged; {head}{name}({args})"
+
+    return line
+
+
+def _replay_for(codec: Any) -> Callable[[Path, int], str]:
+    from pytest_ratefloor.codecs import ByteCodec, CodebookCodec, StreamCodec
+
+    if isinstance(codec, StreamCodec):
+        return _replay_call(getattr(codec, "_decode", None), "decode", with_n=True)
+    if isinstance(codec, ByteCodec):
+        return _replay_call(getattr(codec, "_decompress", None), "decompress", with_n=False)
+    if isinstance(codec, CodebookCodec):
+        return _replay_call(None, "codebook.decode", with_n=True)
+    return _replay_call(None, "codec.decode", with_n=True)
+
+
+def _resolve(codec: object, source: object, symbols: np.ndarray) -> _Target:
+    """Adapt the codec (bound to the source where it needs one), encode the sample
+    and find the decoder."""
+    from pytest_ratefloor.codecs import CodecContractError, StreamCodec, as_codec
+
     if isinstance(codec, (tuple, list)) and len(codec) == 2 and all(map(callable, codec)):
         encode, decode = codec
-        name = getattr(decode, "__qualname__", None) or repr(decode)
-        what = f"encoder {getattr(encode, '__qualname__', encode)!r}"
-        try:
-            payload = encode(symbols.copy())
-        except Exception as exc:
-            raise CodecMisbehaviour(
-                f"{what} raised {type(exc).__name__}: {exc} on the clean sample"
-            ) from exc
-        return _Target(name, payload, decode, _callable_path(decode) or "decode")
-    try:
-        from pytest_ratefloor.codecs import as_codec
-    except ImportError:  # codecs.py not yet available: duck-type
-        adapted: Any = codec
+        name = getattr(decode, "__qualname__", None) or type(decode).__name__
+        adapted: Any = StreamCodec(encode, decode, name=name)
     else:
-        adapted = as_codec(codec)
-    if not (
-        callable(getattr(adapted, "encode", None)) and callable(getattr(adapted, "decode", None))
-    ):
-        raise TypeError(
-            f"codec must be a codec (with encode and decode) or an (encode, decode) pair, "
-            f"got {codec!r}"
-        )
-    name = str(getattr(adapted, "name", None) or type(adapted).__name__)
+        try:
+            adapted = as_codec(codec)
+        except TypeError as exc:
+            raise TypeError(
+                f"codec must be a codec, a Codebook, a mapping or an (encode, decode) pair: {exc}"
+            ) from None
+    if hasattr(source, "sample") and callable(getattr(adapted, "for_source", None)):
+        adapted = adapted.for_source(source)
+    name = str(adapted.name)
     try:
         encoded = adapted.encode(symbols.copy())
-    except CodecMisbehaviour:
-        raise
+    except CodecContractError as exc:
+        raise CodecMisbehaviour(f"encoder of {name!r} on the clean sample: {exc}") from exc
     except Exception as exc:
         raise CodecMisbehaviour(
             f"encoder of {name!r} raised {type(exc).__name__}: {exc} on the clean sample"
         ) from exc
-    if hasattr(encoded, "payload") and hasattr(encoded, "bits"):
-        return _Target(
-            name, encoded.payload, _EncodedDecode(adapted.decode, encoded), "codec.decode"
-        )
-    return _Target(name, encoded, adapted.decode, "codec.decode")
+    return _Target(name, encoded.payload, _AdapterDecode(adapted, encoded), _replay_for(adapted))
 
 
 def _sample(source: object, n: int, seed: int) -> tuple[np.ndarray, str]:
@@ -1096,7 +1135,7 @@ def assert_survives_corruption(
     seed = _check_int("seed", seed, 0)
     trials = _check_int("trials", trials, 1)
     symbols, spec = _sample(source, n, seed)
-    target = _resolve(codec, symbols)
+    target = _resolve(codec, source, symbols)
     stream = _Stream.from_payload(target.payload, f"encoder of {target.name!r}")
     schedule = corruption_schedule(len(stream.data), trials, seed)
     run = run_corruption_trials(
@@ -1147,8 +1186,7 @@ def assert_survives_corruption(
             f"    corruption: {c.describe()}",
             f"    {c!r}",
             f"    damaged stream: {path} ({len(damaged)} bytes)",
-            f"    replay: from pytest_ratefloor.corruption import load_damaged; "
-            f"{target.replay}(load_damaged({str(path)!r}), {len(symbols)})",
+            f"    replay: {target.replay(path, len(symbols))}",
         ]
     if run.stopped_early:
         lines.append(f"  stopped after {len(run.failures)} failures")

@@ -1,0 +1,578 @@
+"""Tests of the corruption check: the damage schedule, the isolated worker, the
+classification of hangs/crashes/memory growth/silent damage, and replay files.
+
+Timeouts are short (a hang costs one timeout) so the module runs in seconds.
+"""
+
+from __future__ import annotations
+
+import json
+import lzma
+import os
+import signal
+import struct
+import sys
+import zlib
+from collections import Counter
+from pathlib import Path
+
+import numpy as np
+import pytest
+from bitarray import bitarray
+
+from pytest_ratefloor.codecs import ByteCodec
+from pytest_ratefloor.corruption import (
+    DEFAULT_MEMORY_LIMIT,
+    Corruption,
+    CorruptionSetupError,
+    assert_survives_corruption,
+    corruption_schedule,
+    load_damaged,
+    run_corruption_trials,
+)
+from pytest_ratefloor.failures import CodecMisbehaviour, CorruptionFailure
+
+linux_only = pytest.mark.skipif(
+    not sys.platform.startswith("linux"), reason="fork, RLIMIT_AS and signals as on Linux"
+)
+
+SYMBOLS = np.random.default_rng(7).integers(0, 16, 2_000).astype(np.int64)
+
+
+# ---------------------------------------------------------------------------
+# a toy framed format: 4-byte big-endian count, one byte per symbol, CRC-32 trailer
+
+
+def toy_encode(symbols: np.ndarray) -> bytes:
+    body = np.asarray(symbols, dtype=np.uint8).tobytes()
+    return struct.pack(">I", len(symbols)) + body + struct.pack(">I", zlib.crc32(body))
+
+
+def _toy_parts(data: bytes) -> tuple[int, bytes, int]:
+    (count,) = struct.unpack(">I", data[:4])
+    return count, data[4:-4], struct.unpack(">I", data[-4:])[0]
+
+
+def toy_decode_checked(data: bytes, n: int) -> np.ndarray:
+    """A careful decoder: checks the length and the CRC, raises ValueError."""
+    if len(data) != n + 8:
+        raise ValueError(f"stream of {len(data)} bytes, expected {n + 8}")
+    count, body, crc = _toy_parts(data)
+    if count != n or zlib.crc32(body) != crc:
+        raise ValueError("count or CRC-32 mismatch")
+    return np.frombuffer(body, dtype=np.uint8)
+
+
+def toy_decode_hangs_when_short(data: bytes, n: int) -> np.ndarray:
+    """Waits forever for bytes that never come (a read loop on a truncated stream)."""
+    if len(data) < n + 8:
+        while True:
+            pass
+    return toy_decode_checked(data, n)
+
+
+def toy_decode_aborts_on_damage(data: bytes, n: int) -> np.ndarray:
+    """Stands in for a C decoder that segfaults on a bad checksum."""
+    if len(data) == n + 8 and zlib.crc32(_toy_parts(data)[1]) != _toy_parts(data)[2]:
+        os.abort()
+    return toy_decode_checked(data, n)
+
+
+def toy_decode_hoards_on_garbage(data: bytes, n: int) -> np.ndarray:
+    """Grows a buffer without bound when there are bytes after the frame."""
+    if len(data) > n + 8:
+        hoard = []
+        while True:
+            hoard.append(bytearray(1 << 20))
+    return toy_decode_checked(data, n)
+
+
+def toy_decode_ignores_crc(data: bytes, n: int) -> np.ndarray:
+    """Never raises: pads or cuts the body to n symbols and ignores the CRC."""
+    body = data[4:-4] if len(data) >= 8 else b""
+    return np.frombuffer(body[:n].ljust(n, b"\0"), dtype=np.uint8)
+
+
+def toy_decode_exits(data: bytes, n: int) -> np.ndarray:
+    if len(data) != n + 8:
+        sys.exit(2)
+    return toy_decode_checked(data, n)
+
+
+def _flip_reference(data: bytes, bits: tuple[int, ...]) -> bytes:
+    """Independent flip: bitarray's big-endian bit numbering, inverted with bitarray."""
+    ref = bitarray(endian="big")
+    ref.frombytes(data)
+    for bit in bits:
+        ref.invert(bit)
+    return ref.tobytes()
+
+
+# ---------------------------------------------------------------------------
+# Corruption objects
+
+
+def test_truncate_matches_slicing() -> None:
+    data = bytes(range(40))
+    for keep in (0, 1, 17, 39):
+        c = Corruption.truncate(40, keep)
+        assert c.apply(data) == data[:keep]  # reference: bytes slicing
+        assert c.damaged_length == keep
+        assert c.length == 40 - keep
+    assert "all 40 bytes cut" in Corruption.truncate(40, 0).describe()
+    assert "kept the first 39 of 40 bytes (1 cut)" in Corruption.truncate(40, 39).describe()
+
+
+@pytest.mark.parametrize("bit", [0, 7, 8, 99, 319])
+def test_flip_matches_bitarray(bit: int) -> None:
+    data = bytes(range(100, 140))
+    c = Corruption.flip(40, bit)
+    damaged = c.apply(data)
+    assert damaged == _flip_reference(data, (bit,))
+    # exactly one bit differs (popcount of the XOR, stdlib int.bit_count)
+    diff = int.from_bytes(data, "big") ^ int.from_bytes(damaged, "big")
+    assert bin(diff).count("1") == 1
+    text = c.describe()
+    assert f"stream bit {bit}" in text
+    assert f"byte {bit // 8} of 40" in text
+    assert f"mask 0x{0x80 >> (bit % 8):02x}" in text
+
+
+def test_burst_matches_bitarray_and_names_every_bit() -> None:
+    data = bytes(64)
+    c = Corruption.burst(64, [131, 100, 103, 100])
+    assert c.bits == (100, 103, 131)
+    assert (c.offset, c.length) == (12, 5)  # bytes 12..16
+    assert c.apply(data) == _flip_reference(data, (100, 103, 131))
+    text = c.describe()
+    assert "3 bits inverted within stream bits 100..131" in text
+    assert "bytes 12..16 of 64" in text
+    assert "bits 100, 103, 131" in text
+
+
+def _pcg64_bytes(key: int, count: int) -> bytes:
+    """Reference garbage: raw PCG64 words written little-endian with int.to_bytes."""
+    words = np.random.PCG64(key).random_raw((count + 7) // 8)
+    return b"".join(int(w).to_bytes(8, "little") for w in words)[:count]
+
+
+def test_append_and_random_are_pcg64_garbage() -> None:
+    data = b"tide gauge frame"
+    app = Corruption.append(len(data), 13, key=0x5EED)
+    out = app.apply(data)
+    assert out[: len(data)] == data
+    assert out[len(data) :] == _pcg64_bytes(0x5EED, 13)
+    assert "13 garbage bytes after the 16-byte stream" in app.describe()
+    rnd = Corruption.randomize(len(data), key=99)
+    assert rnd.apply(data) == _pcg64_bytes(99, len(data))
+    assert rnd.damaged_length == len(data)
+
+
+def test_corruption_rejects_bad_arguments_by_name() -> None:
+    with pytest.raises(ValueError, match=r"bit must be below 32 \(8 \* stream_length\), got 32"):
+        Corruption.flip(4, 32)
+    with pytest.raises(ValueError, match="keep must be below stream_length=4"):
+        Corruption.truncate(4, 4)
+    with pytest.raises(ValueError, match="at least 2 distinct bits"):
+        Corruption.burst(4, [3, 3])
+    with pytest.raises(ValueError, match="made for a stream of 4 bytes; data has 5"):
+        Corruption.flip(4, 0).apply(b"12345")
+    with pytest.raises(ValueError, match="kind must be one of"):
+        Corruption("smudge", 4, 0, 0)  # type: ignore[arg-type]
+    with pytest.raises(TypeError, match="count must be an integer"):
+        Corruption.append(4, 1.5, 0)  # type: ignore[arg-type]
+
+
+# ---------------------------------------------------------------------------
+# the schedule
+
+
+def test_schedule_is_deterministic_and_seed_dependent() -> None:
+    a = corruption_schedule(5_000, 200, seed=3)
+    assert a == corruption_schedule(5_000, 200, seed=3)
+    assert a != corruption_schedule(5_000, 200, seed=4)
+    assert len(a) == 200
+    assert len(set(a)) == 200
+
+
+def test_schedule_opens_with_the_edge_cases() -> None:
+    s = corruption_schedule(300, 6, seed=0)
+    assert s[0] == Corruption.truncate(300, 0)  # 0 bytes
+    assert s[1] == Corruption.truncate(300, 299)  # one byte short
+    assert [c.kind for c in s[2:]] == ["flip", "append", "random", "burst"]
+
+
+def test_schedule_mix_and_bounds() -> None:
+    length = 10_000
+    s = corruption_schedule(length, 200, seed=1)
+    kinds = Counter(c.kind for c in s)
+    # documented mix: 6 opening trials, then 30/30/20/10/10 % of the other 194
+    assert abs(kinds["truncate"] - (2 + 0.3 * 194)) <= 2
+    assert abs(kinds["flip"] - (1 + 0.3 * 194)) <= 2
+    assert abs(kinds["burst"] - (1 + 0.2 * 194)) <= 2
+    assert abs(kinds["append"] - (1 + 0.1 * 194)) <= 2
+    assert abs(kinds["random"] - (1 + 0.1 * 194)) <= 2
+    for c in s:
+        assert c.stream_length == length
+        c.apply(bytes(length))  # every corruption fits the stream
+        if c.kind == "burst":
+            assert len(c.bits) >= 2
+            assert c.bits[-1] - c.bits[0] < 32
+        if c.kind == "append":
+            assert 1 <= c.length <= 64
+    cuts = [c.offset for c in s if c.kind == "truncate"]
+    # truncations spread over the stream, with some in the head and in the tail
+    assert any(k < 16 for k in cuts[2:])
+    assert any(k >= length - 16 for k in cuts[2:])
+    assert any(1000 < k < length - 1000 for k in cuts)
+
+
+def test_schedule_for_tiny_and_empty_streams() -> None:
+    one = corruption_schedule(1, 200, seed=0)
+    assert len(set(one)) == len(one) <= 200
+    assert Corruption.truncate(1, 0) in one
+    assert {c.kind for c in one} >= {"truncate", "flip", "append", "random"}
+    empty = corruption_schedule(0, 5, seed=0)
+    assert len(empty) == 5
+    assert all(c.kind == "append" for c in empty)
+
+
+def test_schedule_rejects_bad_arguments() -> None:
+    with pytest.raises(ValueError, match="trials must be >= 1, got 0"):
+        corruption_schedule(10, 0)
+    with pytest.raises(ValueError, match="stream_length must be >= 0, got -1"):
+        corruption_schedule(-1, 5)
+    with pytest.raises(TypeError, match="seed must be an integer"):
+        corruption_schedule(10, 5, seed="x")  # type: ignore[arg-type]
+
+
+# ---------------------------------------------------------------------------
+# the check: codecs that survive
+
+
+def _check_toy(decode, **kwargs):  # type: ignore[no-untyped-def]
+    kwargs.setdefault("timeout", 2.0)
+    return assert_survives_corruption((toy_encode, decode), SYMBOLS, **kwargs)
+
+
+@linux_only
+def test_careful_decoder_passes_in_must_detect_mode() -> None:
+    run = _check_toy(toy_decode_checked, trials=60, must_detect=True)
+    assert not run.failures
+    assert len(run.outcomes) == 60
+    assert run.start_method == "fork"
+    assert run.workers_started == 1
+    assert run.memory_guard == "address-space"
+    # CRC-32 catches every burst of up to 32 bits (a fact of CRCs of degree 32),
+    # and the length check every truncation and append: all 60 must raise.
+    assert Counter(o.status for o in run.outcomes) == {"raised": 60}
+    assert "60 raised (ValueError 60)" in run.summary()
+
+
+def _zlib_decompress(data: bytes) -> bytes:
+    return zlib.decompress(data)
+
+
+@linux_only
+@pytest.mark.parametrize(
+    ("compress", "decompress"),
+    [(zlib.compress, zlib.decompress), (lzma.compress, lzma.decompress)],
+    ids=["zlib", "lzma"],
+)
+def test_stdlib_checksummed_formats_pass_must_detect(compress, decompress) -> None:  # type: ignore[no-untyped-def]
+    # zlib streams end in an Adler-32 of the data (RFC 1950); lzma.compress writes
+    # the .xz container with a CRC-64 check by default (Python docs, lzma module).
+    codec = ByteCodec(compress, decompress, name=compress.__module__, packing="u8")
+    run = assert_survives_corruption(codec, SYMBOLS, trials=80, must_detect=True, timeout=2.0)
+    assert not run.failures
+    statuses = Counter(o.status for o in run.outcomes)
+    assert statuses["raised"] > 50
+    # what got through unchanged is the original data (trailing garbage is ignored)
+    assert set(statuses) <= {"raised", "original"}
+
+
+@linux_only
+def test_silent_decoder_is_fine_without_must_detect() -> None:
+    run = _check_toy(toy_decode_ignores_crc, trials=40)
+    assert not run.failures
+    assert Counter(o.status for o in run.outcomes)["returned"] == 40
+
+
+# ---------------------------------------------------------------------------
+# the check: each failure class, its message and its replay file
+
+
+def _replay_path(message: str, trial: int) -> Path:
+    for line in message.splitlines():
+        if "damaged stream:" in line and f"trial{trial:03d}" in line:
+            return Path(line.split("damaged stream: ", 1)[1].rsplit(" (", 1)[0])
+    raise AssertionError(f"no replay file for trial {trial} in:\n{message}")
+
+
+@linux_only
+def test_hang_on_truncation_is_reported_with_replay(tmp_path: Path) -> None:
+    clean = toy_encode(SYMBOLS)
+    with pytest.raises(CorruptionFailure) as info:
+        _check_toy(toy_decode_hangs_when_short, trials=3, timeout=0.3, save_dir=tmp_path)
+    message = str(info.value)
+    assert "failed 2 corruption trials (survival mode)" in message
+    assert "trial 0: hang: no answer within 0.3 s" in message
+    assert f"truncate: all {len(clean)} bytes cut (empty stream)" in message
+    assert "trial 1: hang" in message
+    assert f"truncate: kept the first {len(clean) - 1} of {len(clean)} bytes (1 cut)" in message
+    assert "trial 2:" not in message
+    first, second = _replay_path(message, 0), _replay_path(message, 1)
+    assert first.read_bytes() == b""
+    assert second.read_bytes() == clean[:-1]
+    assert str(second) in message
+    assert (
+        "replay: from pytest_ratefloor.corruption import load_damaged; "
+        f"import {__name__}; {__name__}.toy_decode_hangs_when_short("
+        f"load_damaged({str(second)!r}), {len(SYMBOLS)})"
+    ) in message
+    meta = json.loads(second.with_suffix(".json").read_text())
+    assert meta["status"] == "hang"
+    assert meta["trial"] == 1
+    assert meta["corruption"]["offset"] == len(clean) - 1
+    assert "3 of 3 trials ran: 1 raised (ValueError 1), 2 hung" in message
+
+
+@linux_only
+def test_abort_on_flipped_bit_is_a_crash(tmp_path: Path) -> None:
+    clean = toy_encode(SYMBOLS)
+    with pytest.raises(CorruptionFailure) as info:
+        _check_toy(toy_decode_aborts_on_damage, trials=6, save_dir=tmp_path)
+    message = str(info.value)
+    schedule = corruption_schedule(len(clean), 6, seed=0)
+    flip = schedule[2]
+    assert flip.kind == "flip"
+    assert "trial 2: crash: the worker process was killed by SIGABRT" in message
+    assert flip.describe() in message
+    assert repr(flip) in message
+    saved = _replay_path(message, 2)
+    assert saved.read_bytes() == _flip_reference(clean, flip.bits)
+    # the random replacement and the burst (same length, CRC broken) crash too;
+    # the worker was restarted after each crash and the remaining trials ran
+    assert "trial 4: crash" in message
+    assert "trial 5: crash" in message
+    assert "6 of 6 trials ran" in message
+
+
+@linux_only
+def test_unbounded_allocation_on_garbage_hits_the_memory_limit(tmp_path: Path) -> None:
+    clean = toy_encode(SYMBOLS)
+    with pytest.raises(CorruptionFailure) as info:
+        _check_toy(toy_decode_hoards_on_garbage, trials=4, memory_limit=64 << 20, save_dir=tmp_path)
+    message = str(info.value)
+    append = corruption_schedule(len(clean), 4, seed=0)[3]
+    assert append.kind == "append"
+    assert (
+        "trial 3: memory growth past the limit: raised MemoryError "
+        "(limit: 64 MiB of growth, guard: address-space)"
+    ) in message
+    assert append.describe() in message
+    saved = _replay_path(message, 3)
+    assert saved.read_bytes() == clean + _pcg64_bytes(append.key, append.length)
+
+
+def _kill_self(data: bytes, n: int) -> np.ndarray:
+    os.kill(os.getpid(), signal.SIGKILL)
+    raise AssertionError("unreachable")
+
+
+@linux_only
+def test_sigkill_reads_as_the_out_of_memory_killer() -> None:
+    run = run_corruption_trials(_kill_self, b"abc", 3, corruption_schedule(3, 2), timeout=2.0)
+    assert [o.status for o in run.outcomes] == ["memory", "memory"]
+    assert "out-of-memory killer" in run.outcomes[0].detail
+    assert run.workers_started == 2
+
+
+@linux_only
+def test_silent_wrong_data_fails_must_detect(tmp_path: Path) -> None:
+    with pytest.raises(CorruptionFailure) as info:
+        _check_toy(toy_decode_ignores_crc, trials=3, must_detect=True, save_dir=tmp_path)
+    message = str(info.value)
+    assert "(must-detect mode)" in message
+    # truncation to 0 bytes: the zero-padded body differs from the sample at index 0 or later
+    assert "trial 0: silently wrong data: returned 2000 symbols without an error; " in message
+    first = int(np.argmax(SYMBOLS != 0))
+    assert f"first difference at index {first}: expected {SYMBOLS[first]}, got 0" in message
+    assert _replay_path(message, 1).read_bytes() == toy_encode(SYMBOLS)[:-1]
+
+
+@linux_only
+def test_wrong_length_in_must_detect_mode_is_silent() -> None:
+    def returns_short(data: bytes, n: int) -> list[int]:
+        return [0] * (n - 1)
+
+    run = run_corruption_trials(
+        returns_short,
+        toy_encode(SYMBOLS),
+        len(SYMBOLS),
+        corruption_schedule(len(SYMBOLS) + 8, 2),
+        expected=SYMBOLS,
+    )
+    assert [o.status for o in run.outcomes] == ["silent", "silent"]
+    assert "returned 1999 symbols instead of 2000" in run.outcomes[0].detail
+    # through the adapter the contract error is likewise counted as silent damage
+    with pytest.raises(CorruptionFailure, match="returned without an error, but decoder returned"):
+        assert_survives_corruption((toy_encode, returns_short), SYMBOLS, trials=2, must_detect=True)
+
+
+@linux_only
+def test_system_exit_and_plain_exit_are_failures() -> None:
+    with pytest.raises(CorruptionFailure, match=r"interpreter exit: raised SystemExit\(2\)"):
+        _check_toy(toy_decode_exits, trials=2)
+
+    def hard_exit(data: bytes, n: int) -> None:
+        os._exit(3)
+
+    run = run_corruption_trials(hard_exit, b"xy", 2, corruption_schedule(2, 1))
+    assert run.outcomes[0].status == "crash"
+    assert run.outcomes[0].detail == "the worker process was exited with status 3"
+
+
+@linux_only
+def test_closures_and_lambdas_work_under_fork() -> None:
+    clean = toy_encode(SYMBOLS)
+    calls = {"short": 0}
+
+    def closure(data: bytes, n: int) -> np.ndarray:
+        calls["short"] += 1  # runs in the worker: the parent's dict is untouched
+        return toy_decode_checked(data, n)
+
+    run = _check_toy(closure, trials=5)
+    assert not run.failures
+    assert calls["short"] == 0
+    run = run_corruption_trials(lambda d, n: len(d), clean, 1, corruption_schedule(len(clean), 5))
+    assert [o.status for o in run.outcomes] == ["returned"] * 5
+
+
+def test_spawn_refuses_a_decoder_that_does_not_pickle() -> None:
+    with pytest.raises(
+        CorruptionSetupError, match=r"started with 'spawn', which needs the decoder"
+    ):
+        run_corruption_trials(
+            lambda d, n: d, b"abc", 3, corruption_schedule(3, 2), start_method="spawn"
+        )
+
+
+def spawn_decode(data: bytes, n: int) -> bytes:
+    return zlib.decompress(data)
+
+
+def test_spawn_runs_a_module_level_decoder() -> None:
+    clean = zlib.compress(b"harbour tide gauge" * 20)
+    run = run_corruption_trials(
+        spawn_decode, clean, 360, corruption_schedule(len(clean), 8), start_method="spawn"
+    )
+    assert run.start_method == "spawn"
+    assert len(run.outcomes) == 8
+    assert not run.failures
+
+
+# ---------------------------------------------------------------------------
+# bit-level payloads
+
+
+def _bits_encode(symbols: np.ndarray) -> bitarray:
+    out = bitarray(endian="little")
+    out.extend(int(s) & 1 for s in symbols)
+    return out
+
+
+def _bits_decode_strict(bits: object, n: int) -> list[int]:
+    # nbits = 1001 = 8*125 + 1 -> the handed-back length keeps 1 (mod 8), or is 0
+    if not isinstance(bits, bitarray) or bits.endian != "little":
+        raise SystemExit("wrong payload type")  # would be reported as a failure
+    if len(bits) and len(bits) % 8 != 1:
+        raise SystemExit(f"wrong bit count {len(bits)}")
+    return bits.tolist()[:n] + [0] * max(0, n - len(bits))
+
+
+@linux_only
+def test_bitarray_payload_comes_back_as_bitarray_of_the_right_length(tmp_path: Path) -> None:
+    symbols = SYMBOLS[:1001] & 1
+    run = assert_survives_corruption(
+        (_bits_encode, _bits_decode_strict), symbols, trials=60, save_dir=tmp_path
+    )
+    assert not run.failures
+    assert len(run.outcomes) == 60
+
+
+def test_damaged_bitarray_round_trips_through_load_damaged(tmp_path: Path) -> None:
+    from pytest_ratefloor.corruption import _save_damaged, _Stream
+
+    original = bitarray("1011001110001", endian="little")  # 13 bits, 3 pad bits
+    stream = _Stream.from_payload(original, "encoder")
+    assert (stream.nbits, stream.pad) == (13, 3)
+    flip = Corruption.flip(2, 15)
+    rebuilt = stream.rebuild(flip.apply(stream.data))
+    assert isinstance(rebuilt, bitarray)
+    assert len(rebuilt) == 13
+    assert rebuilt.endian == "little"
+    # byte 1, mask 0x01: in a little-endian bitarray that is index 8
+    expected = original.copy()
+    expected.invert(8)
+    assert rebuilt == expected
+    assert len(stream.rebuild(b"")) == 0
+    assert len(stream.rebuild(stream.data + b"\xff\xff")) == 29
+    path = _save_damaged(tmp_path, "x", flip.apply(stream.data), stream, {})
+    again = load_damaged(path)
+    assert again == rebuilt
+    assert again.endian == "little"
+    # nothing is overwritten: the same stem gets a new name
+    second = _save_damaged(tmp_path, "x", b"\x00", stream, {})
+    assert second.name == "x-1.bin"
+    assert path.read_bytes() == flip.apply(stream.data)
+
+
+def test_pair_payload_is_handed_back_as_a_pair() -> None:
+    from pytest_ratefloor.corruption import _Stream
+
+    stream = _Stream.from_payload((b"\xab\xc0", 10), "encoder")
+    assert stream.rebuild(b"\xab") == (b"\xab", 2)
+    assert stream.rebuild(b"\xab\xc0\x01") == (b"\xab\xc0\x01", 18)
+    with pytest.raises(CodecMisbehaviour, match=r"nbits=3"):
+        _Stream.from_payload((b"\xab\xc0", 3), "encoder")
+
+
+# ---------------------------------------------------------------------------
+# arguments, setup errors and defaults
+
+
+def test_default_memory_limit_is_one_gibibyte() -> None:
+    assert DEFAULT_MEMORY_LIMIT == 2**30
+
+
+def test_bad_arguments_are_named() -> None:
+    with pytest.raises(ValueError, match="timeout must be a positive number of seconds, got 0"):
+        assert_survives_corruption((toy_encode, toy_decode_checked), SYMBOLS, timeout=0)
+    with pytest.raises(ValueError, match="trials must be >= 1, got 0"):
+        assert_survives_corruption((toy_encode, toy_decode_checked), SYMBOLS, trials=0)
+    with pytest.raises(ValueError, match="memory_limit must be >= 1, got 0"):
+        assert_survives_corruption((toy_encode, toy_decode_checked), SYMBOLS, memory_limit=0)
+    with pytest.raises(TypeError, match="codec must be a codec"):
+        assert_survives_corruption(42, SYMBOLS)
+    with pytest.raises(ValueError, match="start_method 'teleport' is not available"):
+        run_corruption_trials(toy_decode_checked, b"x", 1, [], start_method="teleport")
+
+
+def test_encoder_returning_text_is_codec_misbehaviour() -> None:
+    with pytest.raises(CodecMisbehaviour, match="encoder of 'toy_decode_checked' on the clean"):
+        assert_survives_corruption((lambda s: "text", toy_decode_checked), SYMBOLS)
+
+
+@linux_only
+def test_without_save_dir_a_temporary_directory_is_printed(
+    capfd: pytest.CaptureFixture[str],
+) -> None:
+    with pytest.raises(CorruptionFailure) as info:
+        _check_toy(toy_decode_hangs_when_short, trials=1, timeout=0.2)
+    err = capfd.readouterr().err
+    assert "ratefloor: damaged streams saved under " in err
+    directory = Path(err.split("saved under ", 1)[1].split()[0])
+    saved = _replay_path(str(info.value), 0)
+    assert saved.parent == directory
+    assert saved.read_bytes() == b""

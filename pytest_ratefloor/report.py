@@ -1,0 +1,457 @@
+"""Efficiency reports: the terminal summary, Markdown and JSON files, the CI job summary, the plot.
+
+Everything here turns rows (:class:`CaseRow`, built from a measurement and its
+ledger verdict, or from a ledger entry) into text or an image; nothing here reads
+pytest state. The same Markdown table serves the ``--ratefloor-report`` file, the
+GitHub job summary and ``ratefloor show``.
+"""
+
+from __future__ import annotations
+
+import importlib.util
+import math
+import os
+from collections.abc import Iterable, Mapping, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Literal
+
+from pytest_ratefloor.ledger import (
+    STATUSES,
+    Environment,
+    LedgerEntry,
+    Status,
+    Verdict,
+    write_atomic,
+)
+from pytest_ratefloor.measurement import Measurement
+
+#: Version of the JSON report layout.
+REPORT_SCHEMA_VERSION = 1
+REPORT_KIND = "pytest-ratefloor efficiency report"
+#: The one-line caution every report carries.
+CAUTION = (
+    "Caution: efficiency measured on synthetic reference sources is not a promise "
+    "about real data."
+)
+TITLE = "Rate floor report"
+SUMMARY_TITLE = "ratefloor: measured rate against the floor"
+PLOT_HINT = "--ratefloor-plot needs matplotlib: pip install 'pytest-ratefloor[plot]'"
+REPORT_SUFFIXES: dict[str, Literal["md", "json"]] = {
+    ".md": "md", ".markdown": "md", ".json": "json",
+}
+PLOT_SUFFIXES = (".png", ".svg", ".pdf")
+
+
+@dataclass(frozen=True)
+class CaseRow:
+    """One case as reports show it."""
+
+    codec: str
+    source: str
+    n: int
+    seed: int
+    bits: int
+    entropy: float | None
+    floor: str
+    floor_rate: float | None
+    codec_version: str | None = None
+    status: Status | None = None
+    ledger_bits: int | None = None
+    delta_bits: int | None = None
+    delta_pct: float | None = None
+    fingerprint: str = ""
+    source_family: str = ""
+    source_params: Mapping[str, float] = field(default_factory=dict)
+    encode_seconds: float | None = None
+    decode_seconds: float | None = None
+
+    @property
+    def rate(self) -> float:
+        return self.bits / self.n if self.n else 0.0
+
+    @property
+    def efficiency(self) -> float | None:
+        """floor_rate / rate (None when unknown)."""
+        if self.floor_rate is None:
+            return None
+        if self.bits == 0:
+            return 1.0 if self.floor_rate <= 0 else math.inf
+        return self.floor_rate / self.rate
+
+    @classmethod
+    def from_measurement(cls, m: Measurement, verdict: Verdict | None = None) -> CaseRow:
+        return cls(
+            codec=m.codec, source=m.source, n=int(m.n), seed=int(m.seed), bits=int(m.bits),
+            entropy=float(m.entropy), floor=m.floor, floor_rate=float(m.floor_rate),
+            codec_version=m.codec_version,
+            status=None if verdict is None else verdict.status,
+            ledger_bits=None if verdict is None else verdict.ledger_bits,
+            delta_bits=None if verdict is None else verdict.delta_bits,
+            delta_pct=None if verdict is None else verdict.delta_pct,
+            fingerprint=m.fingerprint, source_family=m.source_family,
+            source_params=dict(m.source_params),
+            encode_seconds=float(m.encode_seconds), decode_seconds=float(m.decode_seconds),
+        )
+
+    @classmethod
+    def from_entry(cls, e: LedgerEntry) -> CaseRow:
+        return cls(
+            codec=e.codec, source=e.source, n=e.n, seed=e.seed, bits=e.bits,
+            entropy=e.entropy, floor=e.floor, floor_rate=e.floor_rate,
+            codec_version=e.codec_version, fingerprint=e.fingerprint,
+        )
+
+
+@dataclass(frozen=True)
+class RunOutcome:
+    """What a run adds to its rows: ledger counts, stale entries, problems."""
+
+    ledger_path: Path | None = None
+    slack: float = 0.0
+    recorded: bool = False
+    counts: Mapping[str, int] = field(default_factory=dict)
+    stale: Sequence[LedgerEntry] = ()
+    partial_reasons: Sequence[str] = ()
+    problems: Sequence[str] = ()
+
+
+# -- small formatters ---------------------------------------------------------------
+
+
+def _num(value: float | None, digits: int = 4) -> str:
+    if value is None:
+        return "–"
+    if math.isinf(value):
+        return "inf"
+    return f"{value:.{digits}f}"
+
+
+def _pct(value: float | None) -> str:
+    if value is None:
+        return "–"
+    if math.isinf(value):
+        return "inf"
+    return f"{100.0 * value:.2f}%"
+
+
+def _signed_pct(value: float) -> str:
+    return "+inf%" if math.isinf(value) else f"{value:+.3f}%"
+
+
+def delta_text(row: CaseRow) -> str:
+    """The ``vs. ledger`` cell: ``new``, ``=``, or ``+12 bits (+0.010%) regressed``."""
+    if row.status is None:
+        return ""
+    if row.status == "new":
+        return "new"
+    if row.status == "resampled":
+        return "resampled (not comparable: re-record)"
+    if row.status == "unchanged":
+        return "= ledger"
+    assert row.delta_bits is not None
+    assert row.delta_pct is not None
+    return f"{row.delta_bits:+,} bits ({_signed_pct(row.delta_pct)}) {row.status}"
+
+
+def counts_text(counts: Mapping[str, int]) -> str:
+    """``1 regressed, 2 improved, ...`` in a fixed order, zero counts of rare kinds omitted."""
+    parts = []
+    for name in (*STATUSES, "stale"):
+        value = counts.get(name, 0)
+        if value or name in ("regressed", "improved", "new", "unchanged"):
+            parts.append(f"{value} {name}")
+    return ", ".join(parts)
+
+
+def _floor_cell(row: CaseRow) -> str:
+    text = _num(row.floor_rate)
+    return text if row.floor in ("", "entropy") else f"{text} ({row.floor})"
+
+
+# -- terminal summary -------------------------------------------------------------
+
+
+def _align(table: list[list[str]], right: set[int]) -> list[str]:
+    widths = [max(len(r[i]) for r in table) for i in range(len(table[0]))]
+    lines = []
+    for r in table:
+        cells = [c.rjust(w) if i in right else c.ljust(w) for i, (c, w) in
+                 enumerate(zip(r, widths))]
+        lines.append("  ".join(cells).rstrip())
+    return lines
+
+
+def summary_lines(rows: Sequence[CaseRow], outcome: RunOutcome, verbose: bool = False) -> list[str]:
+    """The terminal summary: one line per case, then the ledger tally and the caution.
+
+    Compact: codec, source, entropy, floor, rate, efficiency, change against the
+    ledger. ``verbose`` adds n, seed, bits, ledger bits, excess and timings, and
+    lists every stale entry (compact lists at most five).
+    """
+    lines: list[str] = []
+    if rows:
+        header = ["codec", "source", "H b/sym", "floor b/sym", "rate b/sym", "eff."]
+        if verbose:
+            header += ["n", "seed", "bits", "ledger bits", "excess b/sym", "enc s", "dec s"]
+        header.append("vs. ledger")
+        table = [header]
+        for r in rows:
+            name = r.codec if not (verbose and r.codec_version) else f"{r.codec} {r.codec_version}"
+            cells = [name, r.source, _num(r.entropy), _floor_cell(r), _num(r.rate),
+                     _pct(r.efficiency)]
+            if verbose:
+                excess = None if r.floor_rate is None else r.rate - r.floor_rate
+                cells += [str(r.n), str(r.seed), f"{r.bits:,}",
+                          "–" if r.ledger_bits is None else f"{r.ledger_bits:,}",
+                          _num(excess), _num(r.encode_seconds, 3), _num(r.decode_seconds, 3)]
+            cells.append(delta_text(r))
+            table.append(cells)
+        right = {2, 3, 4, 5} | ({6, 7, 8, 9, 10, 11, 12} if verbose else set())
+        lines += _align(table, right)
+    if outcome.ledger_path is not None:
+        verb = "recorded into" if outcome.recorded else "compared with"
+        slack = f", slack {100.0 * outcome.slack:g}%" if outcome.slack else ""
+        lines.append(f"ledger {verb} {outcome.ledger_path}{slack}: {counts_text(outcome.counts)}")
+    if outcome.stale:
+        shown = outcome.stale if verbose else outcome.stale[:5]
+        count = len(outcome.stale)
+        lines.append(
+            f"stale: {count} ledger entr{'y' if count == 1 else 'ies'} not measured by this "
+            "full run (kept in the ledger; delete by hand if the case is gone):"
+        )
+        lines += [f"  {e.codec} | {e.source} | n={e.n} | seed={e.seed}" for e in shown]
+        if len(shown) < len(outcome.stale):
+            lines.append(f"  ... {len(outcome.stale) - len(shown)} more (-v lists all)")
+    elif outcome.partial_reasons:
+        why = "; ".join(outcome.partial_reasons)
+        lines.append(f"stale entries not listed: partial run ({why})")
+    lines += [f"ERROR: {p}" for p in outcome.problems]
+    if rows:
+        lines.append(CAUTION)
+    return lines
+
+
+# -- Markdown ------------------------------------------------------------------------
+
+
+def _md_cell(text: str) -> str:
+    """Escape what would break a GitHub-flavoured Markdown table cell."""
+    return text.replace("\\", "\\\\").replace("|", "\\|").replace("\n", " ")
+
+
+def _md_code(text: str) -> str:
+    return f"`{_md_cell(text)}`" if "`" not in text else _md_cell(text)
+
+
+def markdown_tables(rows: Sequence[CaseRow], with_ledger: bool = True) -> str:
+    """One table per codec (sorted), cases sorted by source, n, seed."""
+    by_codec: dict[tuple[str, str | None], list[CaseRow]] = {}
+    for r in rows:
+        by_codec.setdefault((r.codec, r.codec_version), []).append(r)
+    header = ["source", "n", "seed", "entropy (bit/sym)", "floor (bit/sym)", "rate (bit/sym)",
+              "efficiency"]
+    align = ["---", "---:", "---:", "---:", "---:", "---:", "---:"]
+    if with_ledger:
+        header.append("vs. ledger")
+        align.append("---")
+    out: list[str] = []
+    for (codec, version), group in sorted(by_codec.items(),
+                                          key=lambda kv: (kv[0][0], kv[0][1] or "")):
+        title = f"### Codec {_md_code(codec)}"
+        if version:
+            title += f" (version {_md_cell(version)})"
+        out += [title, "", "| " + " | ".join(header) + " |", "| " + " | ".join(align) + " |"]
+        for r in sorted(group, key=lambda r: (r.source, r.n, r.seed)):
+            cells = [_md_code(r.source), str(r.n), str(r.seed), _num(r.entropy),
+                     _md_cell(_floor_cell(r)), _num(r.rate), _pct(r.efficiency)]
+            if with_ledger:
+                cells.append(_md_cell(delta_text(r)))
+            out.append("| " + " | ".join(cells) + " |")
+        out.append("")
+    return "\n".join(out)
+
+
+def markdown_report(rows: Sequence[CaseRow], outcome: RunOutcome, title: str = TITLE) -> str:
+    """The release-notes report: title, caution, ledger tally, per-codec tables, stale list."""
+    out = [f"## {title}", "", f"> {CAUTION}", ""]
+    if outcome.ledger_path is not None:
+        verb = "Recorded into" if outcome.recorded else "Compared with"
+        out += [f"{verb} ledger `{outcome.ledger_path.name}`: {counts_text(outcome.counts)}.", ""]
+    if rows:
+        out.append(markdown_tables(rows, with_ledger=outcome.ledger_path is not None))
+    else:
+        out += ["No case was measured.", ""]
+    if outcome.stale:
+        out += ["Stale ledger entries (not measured by this full run):", ""]
+        out += [f"- {_md_code(e.codec)} on {_md_code(e.source)}, n={e.n}, seed={e.seed}"
+                for e in outcome.stale]
+        out.append("")
+    if outcome.problems:
+        out += [f"**Error:** {_md_cell(p)}" for p in outcome.problems]
+        out.append("")
+    return "\n".join(out).rstrip("\n") + "\n"
+
+
+# -- JSON ------------------------------------------------------------------------------
+
+
+def _finite(value: float | None) -> float | None:
+    return None if value is None or not math.isfinite(value) else float(value)
+
+
+def row_json(r: CaseRow) -> dict[str, Any]:
+    out: dict[str, Any] = {
+        "codec": r.codec, "codec_version": r.codec_version, "source": r.source,
+        "source_family": r.source_family, "source_params": dict(r.source_params),
+        "n": r.n, "seed": r.seed, "bits": r.bits, "rate": _finite(r.rate),
+        "entropy": _finite(r.entropy), "floor": r.floor, "floor_rate": _finite(r.floor_rate),
+        "efficiency": _finite(r.efficiency), "fingerprint": r.fingerprint,
+        "encode_seconds": _finite(r.encode_seconds), "decode_seconds": _finite(r.decode_seconds),
+    }
+    if r.status is not None:
+        out["ledger"] = {"status": r.status, "bits": r.ledger_bits, "delta_bits": r.delta_bits,
+                         "delta_pct": _finite(r.delta_pct)}
+    return out
+
+
+def json_report(rows: Sequence[CaseRow], outcome: RunOutcome,
+                environment: Environment | None = None) -> dict[str, Any]:
+    """The versioned JSON report (builtin types only)."""
+    env = environment or Environment.current()
+    doc: dict[str, Any] = {
+        "kind": REPORT_KIND, "schema": REPORT_SCHEMA_VERSION, "caution": CAUTION,
+        "environment": env.to_json(),
+        "cases": [row_json(r) for r in rows],
+        "problems": list(outcome.problems),
+    }
+    if outcome.ledger_path is not None:
+        doc["ledger"] = {
+            "path": str(outcome.ledger_path), "slack": outcome.slack,
+            "recorded": outcome.recorded, "counts": dict(outcome.counts),
+            "full_run": not outcome.partial_reasons,
+            "partial_reasons": list(outcome.partial_reasons),
+            "stale": [e.to_json() for e in outcome.stale],
+        }
+    return doc
+
+
+# -- files ---------------------------------------------------------------------------
+
+
+def report_format(path: Path) -> Literal["md", "json"]:
+    """The report format for ``path``'s suffix; ValueError naming the path otherwise."""
+    kind = REPORT_SUFFIXES.get(Path(path).suffix.lower())
+    if kind is None:
+        raise ValueError(
+            f"--ratefloor-report {path}: unknown suffix {Path(path).suffix!r}; "
+            "use .md (Markdown) or .json"
+        )
+    return kind
+
+
+def write_report(path: Path, rows: Sequence[CaseRow], outcome: RunOutcome) -> None:
+    """Write the Markdown or JSON report, chosen by suffix."""
+    import json
+
+    if report_format(path) == "md":
+        text = markdown_report(rows, outcome)
+    else:
+        text = json.dumps(json_report(rows, outcome), indent=2, sort_keys=True) + "\n"
+    write_atomic(Path(path), text)
+
+
+def append_step_summary(markdown: str, environ: Mapping[str, str] | None = None) -> Path | None:
+    """Append to the file named by ``GITHUB_STEP_SUMMARY`` if set; return it."""
+    target = (os.environ if environ is None else environ).get("GITHUB_STEP_SUMMARY", "")
+    if not target:
+        return None
+    path = Path(target)
+    with path.open("a", encoding="utf-8") as fh:
+        fh.write(markdown if markdown.endswith("\n") else markdown + "\n")
+    return path
+
+
+def plot_available() -> bool:
+    """True when matplotlib can be imported."""
+    return importlib.util.find_spec("matplotlib") is not None
+
+
+def check_plot_path(path: Path) -> None:
+    """ValueError for a bad suffix; RuntimeError (install hint) when matplotlib is absent."""
+    if Path(path).suffix.lower() not in PLOT_SUFFIXES:
+        raise ValueError(
+            f"--ratefloor-plot {path}: unknown suffix {Path(path).suffix!r}; "
+            f"use one of {', '.join(PLOT_SUFFIXES)}"
+        )
+    if not plot_available():
+        raise RuntimeError(PLOT_HINT)
+
+
+def _binary_entropy(p: float) -> float:
+    # h(p) = −p log2 p − (1−p) log2 (1−p), with 0·log 0 = 0 (Cover & Thomas eq. 2.5, from memory)
+    if p <= 0.0 or p >= 1.0:
+        return 0.0
+    return -p * math.log2(p) - (1.0 - p) * math.log2(1.0 - p)
+
+
+def write_plot(path: Path, rows: Iterable[CaseRow]) -> None:
+    """Plot measured rate against source entropy (and a Bernoulli panel if any).
+
+    Left panel: every case at (H, rate) per codec, the line y = H (the entropy
+    floor) and y = H + 1 (the ceiling an optimal symbol-by-symbol code stays
+    under; Shannon/Huffman bound H ≤ L < H + 1). Right panel, when Bernoulli
+    cases exist: rate against p with the binary-entropy curve h(p) and h(p) + 1.
+    Uses the Agg canvas directly, so no pyplot state or GUI backend is touched.
+    """
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    rows = [r for r in rows if r.entropy is not None and r.n > 0]
+    bern = [r for r in rows if r.source_family == "bernoulli" and "p" in r.source_params]
+    fig = Figure(figsize=(11.0 if bern else 6.5, 5.2))
+    FigureCanvasAgg(fig)
+    axes = fig.subplots(1, 2 if bern else 1, squeeze=False)[0]
+    markers = "os^DvP*Xh<>"
+    codecs = sorted({r.codec for r in rows})
+
+    ax = axes[0]
+    top = max([1.0] + [float(r.entropy or 0.0) for r in rows])
+    xs = [0.0, top * 1.05]
+    ax.plot(xs, xs, color="black", lw=1.2, label="entropy H (floor)")
+    ax.plot(xs, [x + 1.0 for x in xs], color="grey", lw=1.0, ls="--",
+            label="H + 1 (symbol-code ceiling)")
+    for i, codec in enumerate(codecs):
+        mine = [r for r in rows if r.codec == codec]
+        ax.scatter([r.entropy for r in mine], [r.rate for r in mine], s=28,
+                   marker=markers[i % len(markers)], label=codec, zorder=3)
+    ax.set_xlabel("source entropy H (bits/symbol)")
+    ax.set_ylabel("measured rate (bits/symbol)")
+    ax.set_title("Rate against entropy")
+    ax.grid(True, alpha=0.3)
+    ax.legend(fontsize="small")
+
+    if bern:
+        ax = axes[1]
+        ps = [i / 400 for i in range(401)]
+        hs = [_binary_entropy(p) for p in ps]
+        ax.plot(ps, hs, color="black", lw=1.2, label="h(p) (binary entropy)")
+        ax.plot(ps, [h + 1.0 for h in hs], color="grey", lw=1.0, ls="--", label="h(p) + 1")
+        for i, codec in enumerate(codecs):
+            mine = sorted((r for r in bern if r.codec == codec),
+                          key=lambda r: float(r.source_params["p"]))
+            if mine:
+                ax.plot([float(r.source_params["p"]) for r in mine], [r.rate for r in mine],
+                        marker=markers[i % len(markers)], ms=5, lw=0.8, label=codec)
+        ax.set_xlabel("Bernoulli parameter p = P(1)")
+        ax.set_ylabel("measured rate (bits/symbol)")
+        ax.set_title("Bernoulli sweep")
+        ax.set_xlim(0.0, 1.0)
+        ax.grid(True, alpha=0.3)
+        ax.legend(fontsize="small")
+
+    fig.text(0.5, 0.01, CAUTION, ha="center", va="bottom", fontsize="small", style="italic")
+    fig.tight_layout(rect=(0.0, 0.05, 1.0, 1.0))
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fig.savefig(path)

@@ -876,7 +876,7 @@ def _weights(probs: npt.ArrayLike, what: str = "probs") -> npt.NDArray[np.float6
     bad = np.flatnonzero(~np.isfinite(w) | (w < 0))
     if bad.size:
         i = int(bad[0])
-        raise ValueError(f"{what}[{i}] = {w[i]!r} is not a finite non-negative weight")
+        raise ValueError(f"{what}[{i}] = {float(w[i])!r} is not a finite non-negative weight")
     if not bool((w > 0).any()):
         raise ValueError(f"{what} are all zero: no symbol can occur")
     return w
@@ -975,9 +975,24 @@ def length_limited_lengths(probs: npt.ArrayLike, max_length: int) -> IntArray:
     if int(free.max()) <= cap:  # the unconstrained optimum already fits
         return free
     order = nz[np.argsort(w[nz], kind="stable")]
-    leaves = w[order]
-    # Per level (first entry: level max_length, leaves only; last: level 1), which
-    # items of the sorted merged list are leaves rather than packages.
+    out = np.zeros(w.size, dtype=np.int64)
+    out[order] = _package_merge(w[order], cap)
+    return out
+
+
+def _package_merge(leaves: npt.NDArray[np.float64], cap: int) -> IntArray:
+    """Package-merge on ascending positive weights (at least two, at most 2**cap):
+    code lengths, non-increasing, optimal among codes no longer than ``cap``.
+
+    Coin-collector view: every leaf is a coin of face value 2^-l at each level
+    l = 1..cap; pick coins of total face value n−1 at least weight. From the finest
+    level up, pair neighbours into packages and merge them with the leaves; at level
+    1 take the 2n−2 lightest items. A leaf's length is the number of levels at which
+    it is taken (directly or inside a package).
+    """
+    m = int(leaves.size)
+    # Per level (first entry: level `cap`, leaves only; last: level 1), which items
+    # of the sorted merged list are leaves rather than packages.
     is_leaf_by_level: list[npt.NDArray[np.bool_]] = [np.ones(m, dtype=bool)]
     items = leaves
     for _ in range(cap - 1):
@@ -991,11 +1006,9 @@ def length_limited_lengths(probs: npt.ArrayLike, max_length: int) -> IntArray:
     take = 2 * m - 2
     for is_leaf in reversed(is_leaf_by_level):
         chosen = int(np.count_nonzero(is_leaf[:take]))
-        lengths_sorted[:chosen] += 1  # the lightest leaves are chosen at this level
+        lengths_sorted[:chosen] += 1  # the lightest leaves are taken at this level
         take = 2 * (take - chosen)
-    out = np.zeros(w.size, dtype=np.int64)
-    out[order] = lengths_sorted
-    return out
+    return lengths_sorted
 
 
 # -------------------------------------------------------------------- Golomb & Rice

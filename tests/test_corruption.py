@@ -576,3 +576,61 @@ def test_without_save_dir_a_temporary_directory_is_printed(
     saved = _replay_path(str(info.value), 0)
     assert saved.parent == directory
     assert saved.read_bytes() == b""
+
+
+# ---------------------------------------------------------------------------
+# inside a pytest run
+
+
+@linux_only
+def test_a_crashing_decoder_fails_one_test_and_the_session_goes_on(
+    pytester: pytest.Pytester,
+) -> None:
+    pytester.makepyfile(
+        test_tide="""
+        import os
+        import zlib
+
+        import numpy as np
+
+        from pytest_ratefloor.corruption import assert_survives_corruption
+
+        SYMBOLS = np.arange(3000) % 13
+
+        def encode(symbols):
+            return zlib.compress(np.asarray(symbols, dtype=np.uint8).tobytes())
+
+        def test_decoder_that_aborts():
+            def decode(data, n):
+                if len(data) < 40:
+                    os.abort()
+                return np.frombuffer(zlib.decompress(data), dtype=np.uint8)
+
+            assert_survives_corruption((encode, decode), SYMBOLS, trials=4, timeout=2.0)
+
+        def test_decoder_that_hangs(tmp_path):
+            def decode(data, n):
+                while True:
+                    pass
+
+            assert_survives_corruption(
+                (encode, decode), SYMBOLS, trials=1, timeout=0.2, save_dir=tmp_path
+            )
+
+        def test_after_the_crash():
+            assert True
+        """
+    )
+    result = pytester.runpytest("-p", "no:ratefloor", "-p", "no:cacheprovider")
+    result.assert_outcomes(failed=2, passed=1)
+    result.stdout.fnmatch_lines(
+        [
+            "*CorruptionFailure: decoder of 'test_decoder_that_aborts.<locals>.decode' failed*",
+            "*trial 0: crash: the worker process was killed by SIGABRT*",
+            "*corruption: truncate: all * bytes cut (empty stream)*",
+            "*replay: from pytest_ratefloor.corruption import load_damaged; decode(load_damaged(*",
+        ]
+    )
+    result.stdout.fnmatch_lines(["*trial 0: hang: no answer within 0.2 s*"])
+    # the worker's faulthandler trace goes to the test's captured stderr
+    result.stdout.fnmatch_lines(["*Captured stderr call*", "*Fatal Python error: Aborted*"])

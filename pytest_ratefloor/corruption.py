@@ -684,7 +684,7 @@ def _death(code: int | None) -> tuple[Status, str]:
             "the worker was killed by SIGKILL, which the kernel's out-of-memory killer "
             "sends when memory runs out"
         )
-    return "crash", f"the worker process was {_Worker.exit_text(code)}"
+    return "crash", f"the worker process {_Worker.exit_text(code)}"
 
 
 class _Worker:
@@ -709,7 +709,7 @@ class _Worker:
         except EOFError:
             code = self.reap()
             raise CorruptionSetupError(
-                f"the corruption worker died while starting ({self.exit_text(code)}); "
+                f"the corruption worker {self.exit_text(code)} while starting; "
                 f"its error output is above"
             ) from None
         self.guard = message[1]
@@ -724,9 +724,9 @@ class _Worker:
     @staticmethod
     def exit_text(code: int | None) -> str:
         if code is None:
-            return "exit status unknown"
+            return "ended with an unknown exit status"
         if code < 0:
-            return f"killed by {_signal_name(-code)}"
+            return f"was killed by {_signal_name(-code)}"
         return f"exited with status {code}"
 
     def stop(self) -> None:
@@ -869,7 +869,9 @@ def run_corruption_trials(
                 corruption = job.schedule[index]
                 if not worker.receiver.poll(timeout):
                     outcomes.append(
-                        TrialOutcome(index, corruption, "hang", f"no answer within {timeout:g} s")
+                        TrialOutcome(
+                            index, corruption, "hang", f"did not return within {timeout:g} s"
+                        )
                     )
                     failures += 1
                     index += 1

@@ -316,7 +316,7 @@ def test_hang_on_truncation_is_reported_with_replay(tmp_path: Path) -> None:
         _check_toy(toy_decode_hangs_when_short, trials=3, timeout=0.3, save_dir=tmp_path)
     message = str(info.value)
     assert "failed 2 corruption trials (survival mode)" in message
-    assert "trial 0: hang: no answer within 0.3 s" in message
+    assert "trial 0: hang: did not return within 0.3 s" in message
     assert f"truncate: all {len(clean)} bytes cut (empty stream)" in message
     assert "trial 1: hang" in message
     assert f"truncate: kept the first {len(clean) - 1} of {len(clean)} bytes (1 cut)" in message
@@ -430,7 +430,7 @@ def test_system_exit_and_plain_exit_are_failures() -> None:
 
     run = run_corruption_trials(hard_exit, b"xy", 2, corruption_schedule(2, 1))
     assert run.outcomes[0].status == "crash"
-    assert run.outcomes[0].detail == "the worker process was exited with status 3"
+    assert run.outcomes[0].detail == "the worker process exited with status 3"
 
 
 @linux_only
@@ -631,6 +631,6 @@ def test_a_crashing_decoder_fails_one_test_and_the_session_goes_on(
             "*replay: from pytest_ratefloor.corruption import load_damaged; decode(load_damaged(*",
         ]
     )
-    result.stdout.fnmatch_lines(["*trial 0: hang: no answer within 0.2 s*"])
+    result.stdout.fnmatch_lines(["*trial 0: hang: did not return within 0.2 s*"])
     # the worker's faulthandler trace goes to the test's captured stderr
     result.stdout.fnmatch_lines(["*Captured stderr call*", "*Fatal Python error: Aborted*"])

@@ -1128,9 +1128,15 @@ def assert_survives_corruption(
     whose path is printed), with a ``.json`` file beside each naming the
     corruption; :func:`load_damaged` reads one back for replay.
 
+    With ``must_detect=True`` returning anything but the original symbols
+    without raising is a failure; output that the codec adapter rejects
+    (wrong type or length) counts as returned, not as detected.
+
     Raises :class:`~pytest_ratefloor.failures.CorruptionFailure` naming each
-    failed corruption (the run stops after :data:`MAX_FAILURES`). Returns
-    the :class:`CorruptionRun` when every trial survived.
+    failed corruption (the run stops after :data:`MAX_FAILURES`),
+    :class:`~pytest_ratefloor.failures.CodecMisbehaviour` if the encoder fails
+    on the clean sample, and :class:`CorruptionSetupError` if no worker can be
+    started. Returns the :class:`CorruptionRun` when every trial survived.
     """
     __tracebackhide__ = True
     n = _check_int("n", n, 0)

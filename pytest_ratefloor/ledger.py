@@ -260,7 +260,8 @@ class Ledger:
         try:
             doc = json.loads(text)
         except json.JSONDecodeError as exc:
-            hint = " (the file ends early: truncated?)" if exc.pos >= len(text.rstrip()) else ""
+            # a ledger always ends with its closing brace; without it, the write was cut short
+            hint = "" if text.rstrip().endswith("}") else " (the file ends early: truncated?)"
             raise UnreadableLedger(
                 f"{path}: not valid JSON at line {exc.lineno} column {exc.colno}: "
                 f"{exc.msg}{hint}"

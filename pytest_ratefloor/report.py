@@ -423,7 +423,7 @@ def write_plot(path: Path, rows: Iterable[CaseRow]) -> None:
             label="H + 1 (symbol-code ceiling)")
     for i, codec in enumerate(codecs):
         mine = [r for r in rows if r.codec == codec]
-        ax.scatter([r.entropy for r in mine], [r.rate for r in mine], s=28,
+        ax.scatter([r.entropy for r in mine], [r.rate for r in mine], s=28, color=f"C{i % 10}",
                    marker=markers[i % len(markers)], label=codec, zorder=3)
     ax.set_xlabel("source entropy H (bits/symbol)")
     ax.set_ylabel("measured rate (bits/symbol)")
@@ -442,7 +442,8 @@ def write_plot(path: Path, rows: Iterable[CaseRow]) -> None:
                           key=lambda r: float(r.source_params["p"]))
             if mine:
                 ax.plot([float(r.source_params["p"]) for r in mine], [r.rate for r in mine],
-                        marker=markers[i % len(markers)], ms=5, lw=0.8, label=codec)
+                        color=f"C{i % 10}", marker=markers[i % len(markers)], ms=5, lw=0.8,
+                        label=codec)
         ax.set_xlabel("Bernoulli parameter p = P(1)")
         ax.set_ylabel("measured rate (bits/symbol)")
         ax.set_title("Bernoulli sweep")

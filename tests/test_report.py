@@ -1,0 +1,215 @@
+"""Unit tests of the reports (report.py): terminal lines, Markdown, JSON, job summary, plot."""
+
+from __future__ import annotations
+
+import json
+import math
+import re
+from pathlib import Path
+
+import pytest
+
+from pytest_ratefloor import report
+from pytest_ratefloor.ledger import Ledger, LedgerEntry, LedgerRun
+from pytest_ratefloor.measurement import Measurement
+from pytest_ratefloor.report import CAUTION, CaseRow, RunOutcome
+
+
+def _h(p: float) -> float:
+    # binary entropy, reference: scipy.stats.entropy([p, 1-p], base=2) (checked below)
+    return -p * math.log2(p) - (1 - p) * math.log2(1 - p)
+
+
+def meas(codec: str, source: str, bits: int, entropy: float, n: int = 10_000,
+         family: str = "", params: dict[str, float] | None = None,
+         version: str | None = None) -> Measurement:
+    return Measurement(
+        codec=codec, source=source, n=n, seed=0, bits=bits, entropy=entropy, floor="entropy",
+        floor_bits=entropy * n, sample_information=entropy * n, spread=0.0, fingerprint="ab",
+        codec_version=version, source_family=family, source_params=params or {},
+    )
+
+
+def sample_rows(tmp_path: Path) -> tuple[list[CaseRow], RunOutcome]:
+    ms = [
+        meas("pair|coder", "bernoulli(p=0.1)", 5_000, _h(0.1), family="bernoulli",
+             params={"p": 0.1}, version="1.2"),
+        meas("pair|coder", "bernoulli(p=0.3)", 9_000, _h(0.3), family="bernoulli",
+             params={"p": 0.3}, version="1.2"),
+        meas("bytes", "uniform(k=256)", 80_000, 8.0),
+        meas("bytes", "uniform(k=16)", 80_000, 4.0),
+    ]
+    base = Ledger(tmp_path / "ratefloor-ledger.json").merged([
+        Measurement(**{**ms[2].__dict__, "bits": 80_100}),
+        Measurement(**{**ms[0].__dict__, "bits": 4_990}),
+        meas("gone", "uniform(k=2)", 10_000, 1.0),
+    ])
+    run = LedgerRun(baseline=base, slack=0.01)
+    for m in ms:
+        run.observe(m)
+    rows = [CaseRow.from_measurement(m, v) for m, v in run.verdicts()]
+    outcome = RunOutcome(ledger_path=base.path, slack=0.01, counts=run.counts(),
+                         stale=run.stale())
+    return rows, outcome
+
+
+def test_binary_entropy_helper_matches_scipy() -> None:
+    from scipy.stats import entropy
+
+    for p in (0.1, 0.3):
+        assert _h(p) == pytest.approx(entropy([p, 1 - p], base=2), rel=1e-14)
+        assert report._binary_entropy(p) == pytest.approx(entropy([p, 1 - p], base=2), rel=1e-14)
+
+
+def test_efficiency_and_deltas(tmp_path: Path) -> None:
+    rows, outcome = sample_rows(tmp_path)
+    by = {(r.codec, r.source): r for r in rows}
+    u256 = by[("bytes", "uniform(k=256)")]
+    assert u256.efficiency == pytest.approx(1.0)  # 8 bits/symbol on an 8-bit uniform source
+    assert u256.status == "improved"
+    assert u256.delta_bits == -100
+    b1 = by[("pair|coder", "bernoulli(p=0.1)")]
+    assert b1.efficiency == pytest.approx(_h(0.1) / 0.5)
+    assert b1.status == "within-slack"  # +10 bits on 4 990 is 0.2 % < 1 %
+    assert report.delta_text(b1) == "+10 bits (+0.200%) within-slack"
+    assert outcome.counts["new"] == 2
+    assert [e.codec for e in outcome.stale] == ["gone"]
+
+
+def _md_cells(line: str) -> list[str]:
+    """Split a GFM table row on unescaped pipes (GFM spec, 'Tables' extension)."""
+    assert line.startswith("|")
+    assert line.endswith("|")
+    return re.split(r"(?<!\\)\|", line[1:-1])
+
+
+def test_markdown_tables_are_well_formed(tmp_path: Path) -> None:
+    rows, outcome = sample_rows(tmp_path)
+    text = report.markdown_report(rows, outcome)
+    assert CAUTION in text
+    tables: list[list[str]] = []
+    previous_is_row = False
+    for line in text.splitlines():
+        is_row = line.startswith("|")
+        if is_row and not previous_is_row:
+            tables.append([])
+        if is_row:
+            tables[-1].append(line)
+        previous_is_row = is_row
+    assert len(tables) == 2  # one table per codec
+    for table in tables:
+        width = len(_md_cells(table[0]))
+        assert width == 8
+        assert all(len(_md_cells(row)) == width for row in table), table
+        assert all(re.fullmatch(r"-{3,}:?", c.strip()) for c in _md_cells(table[1]))
+    assert "### Codec `pair\\|coder` (version 1.2)" in text
+    assert "| `uniform(k=256)` | 10000 | 0 | 8.0000 | 8.0000 | 8.0000 | 100.00% |" in text
+    assert "Stale ledger entries" in text
+    assert "`gone`" in text
+
+
+def test_json_report_is_versioned_plain_json(tmp_path: Path) -> None:
+    rows, outcome = sample_rows(tmp_path)
+    path = tmp_path / "out" / "report.json"
+    report.write_report(path, rows, outcome)
+    doc = json.loads(path.read_text())
+    assert doc["kind"] == report.REPORT_KIND
+    assert doc["schema"] == report.REPORT_SCHEMA_VERSION
+    assert doc["caution"] == CAUTION
+    assert len(doc["cases"]) == 4
+    case = next(c for c in doc["cases"] if c["source"] == "uniform(k=256)")
+    assert case["ledger"] == {"status": "improved", "bits": 80_100, "delta_bits": -100,
+                              "delta_pct": pytest.approx(-100 / 80_100 * 100)}
+    assert case["efficiency"] == pytest.approx(1.0)
+    assert doc["ledger"]["counts"]["stale"] == 1
+    assert doc["ledger"]["full_run"] is True
+
+
+def test_markdown_report_file(tmp_path: Path) -> None:
+    rows, outcome = sample_rows(tmp_path)
+    path = tmp_path / "r.md"
+    report.write_report(path, rows, outcome)
+    assert path.read_text() == report.markdown_report(rows, outcome)
+
+
+@pytest.mark.parametrize("name", ["r.txt", "r", "r.html"])
+def test_report_suffix_is_checked(name: str) -> None:
+    with pytest.raises(ValueError, match=r"--ratefloor-report .*use \.md"):
+        report.report_format(Path(name))
+
+
+def test_step_summary_appends(tmp_path: Path) -> None:
+    target = tmp_path / "summary.md"
+    target.write_text("earlier step\n")
+    assert report.append_step_summary("table one", {"GITHUB_STEP_SUMMARY": str(target)}) == target
+    report.append_step_summary("table two\n", {"GITHUB_STEP_SUMMARY": str(target)})
+    assert target.read_text() == "earlier step\ntable one\ntable two\n"
+    assert report.append_step_summary("x", {}) is None
+
+
+def test_summary_lines_compact_and_verbose(tmp_path: Path) -> None:
+    rows, outcome = sample_rows(tmp_path)
+    compact = report.summary_lines(rows, outcome)
+    verbose = report.summary_lines(rows, outcome, verbose=True)
+    assert compact[0].split()[:6] == ["codec", "source", "H", "b/sym", "floor", "b/sym"]
+    assert len(compact) == len(verbose)
+    assert "ledger bits" in verbose[0]
+    assert "ledger bits" not in compact[0]
+    assert any("80,100" in line for line in verbose)
+    assert compact[-1] == CAUTION
+    tally = next(line for line in compact if line.startswith("ledger compared with"))
+    assert "slack 1%" in tally
+    assert "1 improved" in tally
+    assert "2 new" in tally
+    assert "1 stale" in tally
+    assert any(line.strip() == "gone | uniform(k=2) | n=10000 | seed=0" for line in compact)
+
+
+def test_partial_run_says_why_stale_is_not_listed() -> None:
+    outcome = RunOutcome(partial_reasons=("-k",))
+    assert report.summary_lines([], outcome) == ["stale entries not listed: partial run (-k)"]
+
+
+def test_show_rows_from_entries() -> None:
+    e = LedgerEntry(codec="c", source="s", n=4, seed=0, bits=6, rate=1.5, floor="entropy",
+                    floor_rate=1.0, entropy=1.0)
+    row = CaseRow.from_entry(e)
+    assert row.efficiency == pytest.approx(1.0 / 1.5)
+    assert "vs. ledger" not in report.markdown_tables([row], with_ledger=False)
+
+
+PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # PNG spec (RFC 2083 §3.1)
+
+
+def test_plot_png_opens_as_an_image(tmp_path: Path) -> None:
+    pytest.importorskip("matplotlib")
+    from matplotlib.image import imread
+
+    rows, _ = sample_rows(tmp_path)
+    path = tmp_path / "plot.png"
+    report.write_plot(path, rows)
+    assert path.read_bytes()[:8] == PNG_SIGNATURE
+    image = imread(path)
+    height, width = image.shape[:2]
+    assert width > 800  # two panels: the Bernoulli sweep is drawn
+    assert height > 300
+
+
+def test_plot_svg_without_bernoulli(tmp_path: Path) -> None:
+    pytest.importorskip("matplotlib")
+    import xml.etree.ElementTree as ET
+
+    rows, _ = sample_rows(tmp_path)
+    path = tmp_path / "plot.svg"
+    report.write_plot(path, [r for r in rows if r.source_family != "bernoulli"])
+    root = ET.parse(path).getroot()  # stdlib XML parser is the reference
+    assert root.tag.endswith("svg")
+    assert "symbol-code ceiling" in path.read_text()
+
+
+def test_plot_needs_matplotlib(monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setattr(report, "plot_available", lambda: False)
+    with pytest.raises(RuntimeError, match=r"pip install 'pytest-ratefloor\[plot\]'"):
+        report.check_plot_path(Path("p.png"))
+    with pytest.raises(ValueError, match="unknown suffix '.gif'"):
+        report.check_plot_path(Path("p.gif"))

@@ -214,12 +214,18 @@ class Codebook:
 
     @classmethod
     def _from_arrays(
-        cls, symbols: IntArray, values: list[int], lengths: IntArray, name: str
+        cls,
+        symbols: IntArray,
+        values: list[int],
+        lengths: IntArray,
+        name: str,
+        values64: npt.NDArray[np.uint64] | None = None,
     ) -> Codebook:
         """Fast path for tables built here (symbols ascending, entries already valid)."""
         self = cls.__new__(cls)
         self.name = name
         self._set_table(symbols, lengths, values)
+        self._values64 = values64
         return self
 
     def _set_table(self, symbols: IntArray, lengths: IntArray, values: list[int]) -> None:
@@ -228,6 +234,7 @@ class Codebook:
         self._pyvalues = values
         self._max_length = int(lengths.max())
         self._codewords: dict[int, bitarray] | None = None
+        self._encode_table: dict[int, bitarray] | None = None
         self._tree: decodetree | None = None
         self._values64: npt.NDArray[np.uint64] | None = None
 
@@ -237,12 +244,22 @@ class Codebook:
         """symbol → codeword as a big-endian ``frozenbitarray``."""
         if self._codewords is None:
             self._codewords = {
-                s: frozenbitarray(_word_text(v, ln))
-                for s, v, ln in zip(
-                    self._symbols.tolist(), self._pyvalues, self._lengths.tolist()
-                )
+                s: frozenbitarray(w) for s, w in self._codec_table().items()
             }
         return self._codewords
+
+    def _codec_table(self) -> dict[int, bitarray]:
+        """symbol → codeword as private (plain, never handed out) bitarrays for
+        bitarray's encode and decodetree: slices of one concatenation, so a 2^20-entry
+        table costs about a second rather than the several of frozen copies."""
+        if self._encode_table is None:
+            whole = _concatenation(self)
+            ends = np.cumsum(self._lengths).tolist()
+            starts = [0, *ends[:-1]]
+            self._encode_table = {
+                s: whole[a:b] for s, a, b in zip(self._symbols.tolist(), starts, ends)
+            }
+        return self._encode_table
 
     @property
     def symbols(self) -> list[int]:
@@ -303,7 +320,7 @@ class Codebook:
         if arr.size == 0:
             return out
         try:
-            out.encode(self.codewords, arr.tolist())
+            out.encode(self._codec_table(), arr.tolist())
         except ValueError:
             missing = ~np.isin(arr, self._symbols)
             if not bool(missing.any()):
@@ -361,7 +378,7 @@ class Codebook:
                     f"codebook {self.name!r} cannot be decoded symbol by symbol: "
                     f"{_prefix_phrase(witness)} (not prefix-free; see assert_uniquely_decodable)"
                 )
-            self._tree = decodetree(self.codewords)
+            self._tree = decodetree(self._codec_table())
         return self._tree
 
     def _consumed_bits(self, decoded: list[int]) -> int:
@@ -413,6 +430,25 @@ class Codebook:
                     self._raise_short(stream, out, count)
                 self._raise_stuck(stream, out, count)
         return np.array(out, dtype=np.int64)
+
+
+def _concatenation(cb: Codebook) -> bitarray:
+    """All codewords, ascending by symbol, back to back in one big-endian bitarray."""
+    values = cb._values_u64()
+    out = bitarray(endian="big")
+    if values is None:  # beyond 64 bits: go through text
+        out.extend("".join(cb._texts()))
+        return out
+    lengths = cb._lengths
+    starts = np.concatenate(([0], np.cumsum(lengths)[:-1]))
+    bits = np.zeros(int(lengths.sum()), dtype=np.uint8)
+    for j in range(cb.max_length):  # bit j of every codeword longer than j
+        live = np.flatnonzero(lengths > j)
+        shift = (lengths[live] - 1 - j).astype(np.uint64)
+        bits[starts[live] + j] = (values[live] >> shift) & np.uint64(1)
+    out.frombytes(np.packbits(bits).tobytes())
+    del out[bits.size :]
+    return out
 
 
 def _symbol_array(values: npt.ArrayLike, what: str) -> IntArray:
@@ -626,14 +662,15 @@ def _canonical_values(lengths: list[int]) -> list[int]:
     return out
 
 
-def _canonical_values_np(lengths: IntArray) -> list[int]:
-    """Vectorised :func:`_canonical_values` (lengths ascending)."""
+def _canonical_values_np(lengths: IntArray) -> IntArray | None:
+    """Vectorised :func:`_canonical_values` (lengths ascending) as the left-aligned
+    partial Kraft sums shifted down; None when int64 could overflow."""
     top = int(lengths.max())
     if top > 62 or lengths.size >= (1 << (63 - top)):
-        return _canonical_values(lengths.tolist())
+        return None
     steps = np.left_shift(np.int64(1), top - lengths)
     left = np.concatenate(([0], np.cumsum(steps)[:-1]))
-    return list((left >> (top - lengths)).tolist())
+    return np.right_shift(left, top - lengths)
 
 
 def _canonical_mismatch(cb: Codebook) -> tuple[int, str, str | None] | None:
@@ -642,13 +679,23 @@ def _canonical_mismatch(cb: Codebook) -> tuple[int, str, str | None] | None:
     order = np.lexsort((cb._symbols, cb._lengths))
     lens = cb._lengths[order]
     canon = _canonical_values_np(lens)
-    actual = [cb._pyvalues[i] for i in order.tolist()]
-    for k, (want, got, ln) in enumerate(zip(canon, actual, lens.tolist())):
-        if want != got:
-            i = int(order[k])
-            expected = _word_text(want, ln) if want < (1 << ln) else None
-            return int(cb._symbols[i]), _word_text(got, ln), expected
-    return None
+    values = cb._values_u64()
+    if canon is not None and values is not None:
+        differ = np.flatnonzero(values[order].astype(np.int64) != canon)
+        if differ.size == 0:
+            return None
+        k = int(differ[0])
+        want, ln = int(canon[k]), int(lens[k])
+        i = int(order[k])
+    else:
+        exact = _canonical_values(lens.tolist())
+        actual = [cb._pyvalues[i] for i in order.tolist()]
+        first = next((k for k, (a, b) in enumerate(zip(exact, actual)) if a != b), None)
+        if first is None:
+            return None
+        want, ln, i = exact[first], int(lens[first]), int(order[first])
+    expected = _word_text(want, ln) if want < (1 << ln) else None
+    return int(cb._symbols[i]), _word_text(cb._pyvalues[i], ln), expected
 
 
 def is_canonical(code: CodeLike) -> bool:
@@ -727,11 +774,20 @@ def canonical_codebook(
             f"lengths have Kraft sum {Fraction(total, 1 << top)} > 1: no prefix code exists"
         )
     order = np.lexsort((syms, lens))
-    values_in_order = _canonical_values_np(lens[order])
+    lens_o = lens[order]
     by_symbol = np.argsort(syms[order], kind="stable")
     sorted_syms = syms[order][by_symbol]
-    values = [values_in_order[i] for i in by_symbol.tolist()]
-    return Codebook._from_arrays(sorted_syms, values, lens[order][by_symbol], name)
+    sorted_lens = lens_o[by_symbol]
+    fast = _canonical_values_np(lens_o)
+    if fast is not None:
+        values = fast[by_symbol]
+        return Codebook._from_arrays(
+            sorted_syms, values.tolist(), sorted_lens, name, values.astype(np.uint64)
+        )
+    exact = _canonical_values(lens_o.tolist())
+    return Codebook._from_arrays(
+        sorted_syms, [exact[i] for i in by_symbol.tolist()], sorted_lens, name
+    )
 
 
 # ---------------------------------------------------------------- Sardinas–Patterson

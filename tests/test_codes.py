@@ -130,6 +130,18 @@ def test_roundtrip_of_a_huffman_code_built_by_bitarray() -> None:
     assert cb.decode(bits, data.size).dtype == np.int64
 
 
+def test_large_canonical_table_encodes_its_own_words() -> None:
+    # The codec table is built by bit-slicing numpy arrays; the reference is the
+    # '0'/'1' text of each codeword formatted one at a time.
+    rng = np.random.default_rng(12)
+    probs = rng.random(3000) ** 6
+    cb = codes.canonical_codebook((np.arange(3000), codes.huffman_lengths(probs)))
+    data = rng.integers(0, 3000, size=4000)
+    bits = cb.encode(data)
+    assert bits.to01() == "".join(cb.word(int(s)) for s in data)
+    np.testing.assert_array_equal(cb.decode(bits, data.size), data)
+
+
 def test_encode_unknown_symbol_names_symbol_and_index() -> None:
     cb = Codebook({0: "0", 1: "1"}, name="tide")
     with pytest.raises(ValueError, match=r"symbol 5 at index 2 has no codeword in codebook 'tide'"):

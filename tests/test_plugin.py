@@ -19,14 +19,14 @@ from pathlib import Path
 import numpy  # noqa: F401
 import pytest
 
-import pytest_ratefloor.harness  # noqa: F401
+import pytest_ratefloor.harness
 
 # Import what the inner runs import now: pytester drops modules first imported during
 # an in-process run, and numpy cannot be loaded twice in one process.
 with contextlib.suppress(ImportError):
     import pytest_ratefloor.sources  # noqa: F401
 with contextlib.suppress(ImportError):
-    import matplotlib.backends.backend_agg  # noqa: F401
+    import matplotlib.backends.backend_agg
     import matplotlib.figure  # noqa: F401
 
 RFCASE = '''
@@ -179,7 +179,8 @@ def test_pass_record_regress_improve(pytester: pytest.Pytester) -> None:
     set_pad(pytester, "beta", 0)
     run(pytester, "--ratefloor-record")  # baseline: no padding
     set_pad(pytester, "beta", 0)
-    ledger.write_text(ledger.read_text().replace(f'"bits": {BETA_BITS}', f'"bits": {BETA_BITS + 16}'))
+    text = ledger.read_text()
+    ledger.write_text(text.replace(f'"bits": {BETA_BITS}', f'"bits": {BETA_BITS + 16}'))
     result = run(pytester)
     result.assert_outcomes(passed=2)
     result.stdout.fnmatch_lines(["beta *-16 bits (-0.100%) improved", "*1 improved*"])

@@ -211,5 +211,5 @@ def test_plot_needs_matplotlib(monkeypatch: pytest.MonkeyPatch) -> None:
     monkeypatch.setattr(report, "plot_available", lambda: False)
     with pytest.raises(RuntimeError, match=r"pip install 'pytest-ratefloor\[plot\]'"):
         report.check_plot_path(Path("p.png"))
-    with pytest.raises(ValueError, match="unknown suffix '.gif'"):
+    with pytest.raises(ValueError, match=r"unknown suffix '\.gif'"):
         report.check_plot_path(Path("p.gif"))

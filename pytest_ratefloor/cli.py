@@ -199,16 +199,16 @@ class EntropyFigures:
 
 def entropy_figures(path: Path, symbol: str, order: int) -> EntropyFigures:
     """Read ``path`` and compute its figures (``sources.from_file`` gives the estimates)."""
-    import numpy as np
-
-    from pytest_ratefloor import sources
-
     if not path.is_file():
         raise CliError(f"{path}: no such file")
     data = path.read_bytes()
     width = SYMBOL_WIDTH[symbol]
     if width > 1 and len(data) % int(width):
         raise CliError(f"{path}: {len(data)} bytes is not a whole number of {symbol} symbols")
+
+    import numpy as np
+
+    from pytest_ratefloor import sources
     try:
         zeroth = sources.from_file(path, symbol=symbol, order=0)
         symbols = np.asarray(_file_symbols(data, symbol))

@@ -189,6 +189,8 @@ def pytest_configure(config: pytest.Config) -> None:
     config.stash[MEASUREMENTS_KEY] = []
     config.stash[LOST_KEY] = []
     config.stash[DESELECTED_KEY] = [0]
+    if config.option.help or config.option.version:
+        return  # --help must work even beside a broken ledger
     settings = read_settings(config)
     run, settings = open_run(settings)
     config.stash[SETTINGS_KEY] = settings
@@ -341,7 +343,7 @@ def finish_run(run: LedgerRun, settings: Settings,
                 problems.append(f"ledger {settings.ledger_path} not written: {exc}")
     rows = [report.CaseRow.from_measurement(m, v) for m, v in run.verdicts()]
     outcome = report.RunOutcome(
-        ledger_path=settings.ledger_path if (run.baseline.exists or recorded) else None,
+        ledger_path=settings.ledger_path, ledger_exists=run.baseline.exists or recorded,
         slack=settings.slack, recorded=recorded, counts=run.counts(), stale=run.stale(),
         partial_reasons=tuple(run.partial_reasons), problems=tuple(problems),
     )

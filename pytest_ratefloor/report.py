@@ -108,6 +108,8 @@ class RunOutcome:
     """What a run adds to its rows: ledger counts, stale entries, problems."""
 
     ledger_path: Path | None = None
+    #: False when no ledger file existed and none was written (every case is new)
+    ledger_exists: bool = True
     slack: float = 0.0
     recorded: bool = False
     counts: Mapping[str, int] = field(default_factory=dict)
@@ -209,7 +211,10 @@ def summary_lines(rows: Sequence[CaseRow], outcome: RunOutcome, verbose: bool = 
             table.append(cells)
         right = {2, 3, 4, 5} | ({6, 7, 8, 9, 10, 11, 12} if verbose else set())
         lines += _align(table, right)
-    if outcome.ledger_path is not None:
+    if outcome.ledger_path is not None and not outcome.ledger_exists and rows:
+        lines.append(f"no ledger at {outcome.ledger_path} yet: every case is new; "
+                     "create it with: pytest --ratefloor-record")
+    elif outcome.ledger_path is not None:
         verb = "recorded into" if outcome.recorded else "compared with"
         slack = f", slack {100.0 * outcome.slack:g}%" if outcome.slack else ""
         lines.append(f"ledger {verb} {outcome.ledger_path}{slack}: {counts_text(outcome.counts)}")
@@ -275,7 +280,9 @@ def markdown_tables(rows: Sequence[CaseRow], with_ledger: bool = True) -> str:
 def markdown_report(rows: Sequence[CaseRow], outcome: RunOutcome, title: str = TITLE) -> str:
     """The release-notes report: title, caution, ledger tally, per-codec tables, stale list."""
     out = [f"## {title}", "", f"> {CAUTION}", ""]
-    if outcome.ledger_path is not None:
+    if outcome.ledger_path is not None and not outcome.ledger_exists:
+        out += ["No ledger yet: every case is new.", ""]
+    elif outcome.ledger_path is not None:
         verb = "Recorded into" if outcome.recorded else "Compared with"
         out += [f"{verb} ledger `{outcome.ledger_path.name}`: {counts_text(outcome.counts)}.", ""]
     if rows:
@@ -327,7 +334,8 @@ def json_report(rows: Sequence[CaseRow], outcome: RunOutcome,
     }
     if outcome.ledger_path is not None:
         doc["ledger"] = {
-            "path": str(outcome.ledger_path), "slack": outcome.slack,
+            "path": str(outcome.ledger_path), "exists": outcome.ledger_exists,
+            "slack": outcome.slack,
             "recorded": outcome.recorded, "counts": dict(outcome.counts),
             "full_run": not outcome.partial_reasons,
             "partial_reasons": list(outcome.partial_reasons),

@@ -140,6 +140,8 @@ def test_pass_record_regress_improve(pytester: pytest.Pytester) -> None:
     result.assert_outcomes(passed=2)
     result.stdout.fnmatch_lines(["*= ratefloor: measured rate against the floor =*",
                                  "alpha *uniform(k=256)*8.0000*100.00%*new",
+                                 f"no ledger at {ledger} yet: every case is new; "
+                                 "create it with: pytest --ratefloor-record",
                                  "Caution: efficiency measured on synthetic*"])
     assert not ledger.exists()
 
@@ -265,6 +267,7 @@ def test_corrupt_ledger_stops_the_run_and_is_not_overwritten(pytester: pytest.Py
                                  "(the file ends early: truncated?)*left untouched*"
                                  "--ratefloor-record*"])
     assert ledger.read_bytes() == good[: len(good) // 2]
+    assert run(pytester, "--help").ret == pytest.ExitCode.OK  # help still works
 
     # recording replaces it, keeping the unreadable bytes beside it
     result = run(pytester, "--ratefloor-record")

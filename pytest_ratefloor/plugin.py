@@ -374,9 +374,9 @@ def pytest_terminal_summary(terminalreporter: Any, config: pytest.Config) -> Non
     rows, outcome = config.stash[OUTCOME_KEY]
     if not rows and not outcome.stale and not outcome.problems:
         return
-    verbose = int(config.getoption("verbose") or 0) > 0
+    verbosity = int(config.getoption("verbose") or 0)
     terminalreporter.write_sep("=", report.SUMMARY_TITLE)
-    for line in report.summary_lines(rows, outcome, verbose=verbose):
+    for line in report.summary_lines(rows, outcome, verbose=verbosity > 0, quiet=verbosity < 0):
         terminalreporter.write_line(line, red=line.startswith("ERROR"),
                                     yellow="regressed" in line and not line.startswith("ERROR"))
 

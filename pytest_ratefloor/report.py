@@ -184,14 +184,19 @@ def _align(table: list[list[str]], right: set[int]) -> list[str]:
     return lines
 
 
-def summary_lines(rows: Sequence[CaseRow], outcome: RunOutcome, verbose: bool = False) -> list[str]:
+def summary_lines(rows: Sequence[CaseRow], outcome: RunOutcome, verbose: bool = False,
+                  quiet: bool = False) -> list[str]:
     """The terminal summary: one line per case, then the ledger tally and the caution.
 
     Compact: codec, source, entropy, floor, rate, efficiency, change against the
     ledger. ``verbose`` adds n, seed, bits, ledger bits, excess and timings, and
-    lists every stale entry (compact lists at most five).
+    lists every stale entry (compact lists at most five). ``quiet`` leaves out
+    the cases whose bits equal the ledger's.
     """
     lines: list[str] = []
+    all_rows = rows
+    if quiet:
+        rows = [r for r in rows if r.status != "unchanged"]
     if rows:
         header = ["codec", "source", "H b/sym", "floor b/sym", "rate b/sym", "eff."]
         if verbose:
@@ -232,7 +237,7 @@ def summary_lines(rows: Sequence[CaseRow], outcome: RunOutcome, verbose: bool = 
         why = "; ".join(outcome.partial_reasons)
         lines.append(f"stale entries not listed: partial run ({why})")
     lines += [f"ERROR: {p}" for p in outcome.problems]
-    if rows:
+    if all_rows:
         lines.append(CAUTION)
     return lines
 

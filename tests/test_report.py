@@ -165,6 +165,15 @@ def test_summary_lines_compact_and_verbose(tmp_path: Path) -> None:
     assert any(line.strip() == "gone | uniform(k=2) | n=10000 | seed=0" for line in compact)
 
 
+def test_quiet_summary_leaves_out_unchanged_cases(tmp_path: Path) -> None:
+    rows, outcome = sample_rows(tmp_path)
+    same = CaseRow(**{**rows[0].__dict__, "status": "unchanged", "delta_bits": 0})
+    quiet = report.summary_lines([same, rows[1]], outcome, quiet=True)
+    assert not any(line.startswith(same.codec + " ") and same.source in line for line in quiet)
+    assert any(rows[1].source in line for line in quiet)
+    assert quiet[-1] == CAUTION
+
+
 def test_partial_run_says_why_stale_is_not_listed() -> None:
     outcome = RunOutcome(partial_reasons=("-k",))
     assert report.summary_lines([], outcome) == ["stale entries not listed: partial run (-k)"]

@@ -243,9 +243,7 @@ class Codebook:
     def codewords(self) -> dict[int, bitarray]:
         """symbol → codeword as a big-endian ``frozenbitarray``."""
         if self._codewords is None:
-            self._codewords = {
-                s: frozenbitarray(w) for s, w in self._codec_table().items()
-            }
+            self._codewords = {s: frozenbitarray(w) for s, w in self._codec_table().items()}
         return self._codewords
 
     def _codec_table(self) -> dict[int, bitarray]:
@@ -278,6 +276,8 @@ class Codebook:
 
     def word(self, symbol: int) -> str:
         """The codeword of ``symbol`` as '0'/'1' text (KeyError if it has none)."""
+        if symbol not in self:
+            raise KeyError(symbol)
         i = int(np.searchsorted(self._symbols, symbol))
         if i >= self._symbols.size or int(self._symbols[i]) != symbol:
             raise KeyError(symbol)
@@ -290,6 +290,8 @@ class Codebook:
         try:
             sym = operator.index(symbol)  # type: ignore[arg-type]
         except TypeError:
+            return False
+        if not _INT64_MIN <= sym <= _INT64_MAX:
             return False
         i = int(np.searchsorted(self._symbols, sym))
         return i < self._symbols.size and int(self._symbols[i]) == sym
@@ -532,8 +534,7 @@ def _prefix_phrase(witness: Witness) -> str:
     if wa == wb:
         return f"symbols {sa} and {sb} share the codeword {wa!r}"
     return (
-        f"the codeword of symbol {sa} ({wa!r}) is a prefix of the codeword of "
-        f"symbol {sb} ({wb!r})"
+        f"the codeword of symbol {sa} ({wa!r}) is a prefix of the codeword of symbol {sb} ({wb!r})"
     )
 
 
@@ -754,9 +755,7 @@ def canonical_codebook(
         syms = _symbol_array(lengths[0], "symbols")
         lens = _symbol_array(lengths[1], "lengths")
         if syms.shape != lens.shape:
-            raise ValueError(
-                f"symbols and lengths differ in size: {syms.size} and {lens.size}"
-            )
+            raise ValueError(f"symbols and lengths differ in size: {syms.size} and {lens.size}")
     if lens.size and int(lens.min()) < 0:
         i = int(np.argmin(lens))
         raise ValueError(f"symbol {int(syms[i])} has a negative length {int(lens[i])}")
@@ -764,8 +763,6 @@ def canonical_codebook(
     syms, lens = syms[keep], lens[keep]
     if syms.size == 0:
         raise ValueError("no symbol has a positive length: the code would be empty")
-    if np.unique(syms).size != syms.size:
-        raise ValueError("a symbol is listed twice in the lengths")
     top = int(lens.max())
     counts = np.bincount(lens)
     total = sum(int(c) << (top - ln) for ln, c in enumerate(counts.tolist()) if c)
@@ -777,6 +774,9 @@ def canonical_codebook(
     lens_o = lens[order]
     by_symbol = np.argsort(syms[order], kind="stable")
     sorted_syms = syms[order][by_symbol]
+    twice = np.flatnonzero(sorted_syms[1:] == sorted_syms[:-1])
+    if twice.size:
+        raise ValueError(f"symbol {int(sorted_syms[twice[0]])} is listed twice in the lengths")
     sorted_lens = lens_o[by_symbol]
     fast = _canonical_values_np(lens_o)
     if fast is not None:
@@ -862,8 +862,13 @@ def ambiguity(
             if rest and rest not in settled:
                 heapq.heappush(
                     heap,
-                    (cost + len(rest), _STATE, next(seq), rest,
-                     ("step", suffix, first_symbol[w], True)),
+                    (
+                        cost + len(rest),
+                        _STATE,
+                        next(seq),
+                        rest,
+                        ("step", suffix, first_symbol[w], True),
+                    ),
                 )
     return None
 

@@ -20,16 +20,12 @@ from pytest_ratefloor.failures import CodeShapeFailure, KraftFailure, PrefixFail
 def brute_prefix_pairs(words: dict[int, str]) -> set[tuple[int, int]]:
     """All (a, b), a != b, where word a is a prefix of (or equal to) word b: O(N²)."""
     return {
-        (a, b)
-        for (a, wa), (b, wb) in itertools.permutations(words.items(), 2)
-        if wb.startswith(wa)
+        (a, b) for (a, wa), (b, wb) in itertools.permutations(words.items(), 2) if wb.startswith(wa)
     }
 
 
 def random_words(rng: random.Random, n: int, max_len: int) -> dict[int, str]:
-    return {
-        s: "".join(rng.choice("01") for _ in range(rng.randint(1, max_len))) for s in range(n)
-    }
+    return {s: "".join(rng.choice("01") for _ in range(rng.randint(1, max_len))) for s in range(n)}
 
 
 # ------------------------------------------------------------------- construction
@@ -41,7 +37,10 @@ def test_three_spellings_of_one_table_agree() -> None:
     as_pairs = Codebook({0: (0, 1), 1: (2, 2), 2: (6, 3), 3: (7, 3)})
     for cb in (as_text, as_bits, as_pairs):
         assert {s: w.to01() for s, w in cb.codewords.items()} == {
-            0: "0", 1: "10", 2: "110", 3: "111"
+            0: "0",
+            1: "10",
+            2: "110",
+            3: "111",
         }
         assert cb.lengths == {0: 1, 1: 2, 2: 3, 3: 3}
         assert cb.symbols == [0, 1, 2, 3]
@@ -251,6 +250,18 @@ def test_prefix_witness_long_codewords_take_the_text_path() -> None:
         assert (codes.prefix_witness(words) is None) == (not brute_prefix_pairs(words))
 
 
+def test_prefix_witness_for_58_to_64_bit_codewords() -> None:
+    # Lengths 58..64 still pack into uint64 but take the three-key sort.
+    rng = random.Random(4)
+    for _ in range(100):
+        words = {s: "1" * 56 + w for s, w in random_words(rng, 7, 8).items()}
+        pairs = brute_prefix_pairs(words)
+        found = codes.prefix_witness(words)
+        assert (found is None) == (not pairs), words
+        if found is not None:
+            assert (found[0][0], found[1][0]) in pairs
+
+
 def test_bitarray_huffman_codes_are_prefix_free() -> None:
     rng = np.random.default_rng(5)
     for n in (2, 3, 17, 300):
@@ -392,6 +403,8 @@ def test_canonical_codebook_refuses_overfull_lengths() -> None:
         codes.canonical_codebook({0: 1, 1: -1})
     with pytest.raises(ValueError, match="empty"):
         codes.canonical_codebook({0: 0})
+    with pytest.raises(ValueError, match="symbol 4 is listed twice"):
+        codes.canonical_codebook((np.array([4, 1, 4]), np.array([1, 2, 2])))
 
 
 def test_canonical_with_long_codewords_uses_exact_integers() -> None:
@@ -454,3 +467,31 @@ def test_length_cap_failure_names_symbol_length_and_cap() -> None:
     msg = str(info.value)
     assert "symbol 4 has a 5-bit codeword but max_length=4" in msg
     assert "2 codewords over the cap" in msg
+
+
+# ------------------------------------------------------------------ inside pytest
+
+
+def test_failures_show_in_a_pytest_run(pytester: pytest.Pytester) -> None:
+    pytester.makepyfile(
+        """
+        from pytest_ratefloor import assert_kraft, assert_prefix_free
+
+        def test_table():
+            assert_prefix_free({0: "0", 1: "01", 2: "11"})
+
+        def test_lengths():
+            assert_kraft({0: "0", 1: "1", 2: "10"})
+        """
+    )
+    result = pytester.runpytest("-p", "no:cacheprovider")
+    result.assert_outcomes(failed=2)
+    result.stdout.fnmatch_lines(
+        [
+            "*PrefixFailure: codebook 'codebook' is not prefix-free: the codeword of symbol 0"
+            " ('0') is a prefix of the codeword of symbol 1 ('01')*",
+            "*KraftFailure: *Kraft sum*= 5/4 > 1*McMillan*",
+        ]
+    )
+    # __tracebackhide__: the traceback stops at the user's call, not inside codes.py
+    assert "def assert_prefix_free" not in result.stdout.str()

@@ -87,9 +87,7 @@ def test_sp_agrees_with_brute_force_on_random_small_codes() -> None:
     seen = {"ud": 0, "ambiguous": 0}
     for trial in range(700):
         n = rng.randint(2, 5)
-        words = {
-            s: "".join(rng.choice("01") for _ in range(rng.randint(1, 5))) for s in range(n)
-        }
+        words = {s: "".join(rng.choice("01") for _ in range(rng.randint(1, 5))) for s in range(n)}
         found = codes.ambiguity(words)
         brute = brute_shortest_ambiguity(words, bound)
         if found is None:

@@ -237,6 +237,8 @@ def symbols_from_decoder(value: object, n: int) -> np.ndarray:
             f"decoder returned an array of shape {arr.shape}; expected a flat sequence of "
             f"{n} integers"
         )
+    if arr.size == 0 and arr.dtype.kind in "fO":
+        arr = np.zeros(0, dtype=np.int64)  # an empty list has no integer dtype of its own
     if arr.dtype.kind not in "iub":
         if arr.dtype.kind == "O" and all(
             isinstance(v, (int, np.integer)) and not isinstance(v, bool) for v in arr

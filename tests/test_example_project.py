@@ -27,7 +27,8 @@ LEDGER = EXAMPLE / "ratefloor-ledger.json"
 RULE_VARIABLE = "KELPWICK_RICE_RULE"
 # The Rice parameter the naive rule changes: theta = 0.93 has zig-zag mean ~27,
 # GvV picks k = 4, "2**k nearest the mean" picks k = 5 (see kelpwick/levels.py).
-REGRESSED_ID = f"tests/test_rates.py::test_levels[{sources.two_sided_geometric(0.93).spec}]"
+REGRESSED_SOURCE = sources.two_sided_geometric(0.93).spec
+REGRESSED_ID = f"example_project/tests/test_rates.py::test_levels[{REGRESSED_SOURCE}]"
 TIMEOUT = 300
 
 
@@ -84,8 +85,13 @@ def test_example_suite_passes_and_the_regression_switch_fails_one_case(tmp_path:
 
     # The regression run: exactly one case fails, and it fails on the ledger.
     assert naive_rc == 1, naive_out
-    failed = re.findall(r"^FAILED (\S+) - (\S+?):", naive_out, flags=re.MULTILINE)
-    assert failed == [(REGRESSED_ID, "pytest_ratefloor.failures.RegressionFailure")], naive_out
+    failed = re.findall(r"^FAILED (\S+)", naive_out, flags=re.MULTILINE)
+    assert failed == [REGRESSED_ID], naive_out
+    assert (
+        "RegressionFailure: rate regression: codec 'kelpwick-levels-rice' on "
+        f"{REGRESSED_SOURCE}, n=100000, seed=0"
+    ) in naive_out
+    assert "RateFailure" not in naive_out  # within the floor tolerance: only the ledger sees it
     assert _outcomes(naive_out) == {"passed": counts["passed"] - 1, "failed": 1}, naive_out
 
 

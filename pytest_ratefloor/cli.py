@@ -22,7 +22,6 @@ import zlib
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
 
 from pytest_ratefloor.ledger import Key, Ledger, LedgerEntry, LedgerError, compare
 from pytest_ratefloor.report import CAUTION, CaseRow, markdown_tables
@@ -211,32 +210,21 @@ def entropy_figures(path: Path, symbol: str, order: int) -> EntropyFigures:
     from pytest_ratefloor import sources
     try:
         zeroth = sources.from_file(path, symbol=symbol, order=0)
-        symbols = np.asarray(_file_symbols(data, symbol))
         higher = sources.from_file(path, symbol=symbol, order=order) if order > 0 else None
     except ValueError as exc:
-        raise CliError(f"{path}: {exc}") from None
+        raise CliError(str(exc)) from None
+    symbols = np.asarray(zeroth.data)
     contexts = None
-    if order > 0 and len(symbols) > order:
-        windows = np.lib.stride_tricks.sliding_window_view(symbols, order)[:-1]
+    if order > 0:
+        windows = np.lib.stride_tricks.sliding_window_view(symbols, order)
         contexts = len(np.unique(windows, axis=0))
     return EntropyFigures(
-        path=path, size=len(data), symbol=symbol, symbols=len(symbols),
-        distinct=len(np.unique(symbols)), order=order, h0=float(zeroth.entropy),
+        path=path, size=len(data), symbol=symbol, symbols=int(zeroth.n),
+        distinct=int(zeroth.alphabet_size or 0), order=order, h0=float(zeroth.entropy),
         hk=None if higher is None else float(higher.entropy), contexts=contexts,
         zlib_bytes=len(zlib.compress(data, 9)),
         lzma_bytes=len(lzma.compress(data, preset=9)),
     )
-
-
-def _file_symbols(data: bytes, symbol: str) -> Any:
-    """The symbol array of a file (for counts; the estimates come from sources.from_file)."""
-    import numpy as np
-
-    raw = np.frombuffer(data, dtype=np.uint8)
-    if symbol == "bit":
-        return np.unpackbits(raw)  # most significant bit first
-    dtype = {"u8": "u1", "u16le": "<u2", "u32le": "<u4"}[symbol]
-    return np.frombuffer(data, dtype=dtype).astype(np.int64)
 
 
 def render_entropy(f: EntropyFigures) -> str:
@@ -252,9 +240,10 @@ def render_entropy(f: EntropyFigures) -> str:
     ]
     if f.hk is not None:
         note = ""
-        if f.contexts is not None and f.contexts * 4 > n:
-            note = (f"  [{f.contexts:,} contexts for {n:,} symbols: far too few symbols per "
-                    "context, the estimate is optimistic]")
+        # a model with more free counts than a quarter of the data mostly memorises it
+        if f.contexts is not None and f.contexts * max(f.distinct - 1, 1) * 4 > n:
+            note = (f"  [{f.contexts:,} contexts x {f.distinct:,} symbols for {n:,} symbols "
+                    "of data: the model memorises the file, so this estimate is optimistic]")
         lines.append(
             f"  order-{f.order} conditional entropy (estimate):  {f.hk:.4f} bits/symbol -> "
             f"floor {EntropyFigures.floor_bytes(f.hk, n):,} bytes{note}"
@@ -268,8 +257,8 @@ def render_entropy(f: EntropyFigures) -> str:
 
 ENTROPY_NOTE = (
     "Estimates are plug-in entropies of the file's own symbol counts: they describe this "
-    "file, not its source, and the order-K figure omits the cost of describing the model "
-    "(compressors must pay it), so real coders land above these floors."
+    "file, not where it came from. They omit the cost of describing the model, which a "
+    "coder must learn or transmit; a coder using longer contexts can beat a lower order."
 )
 
 

@@ -155,9 +155,12 @@ def _plugin_h0(counts: Counter[object]) -> float:
 
 
 def _conditional_entropy(symbols: list[int], k: int) -> float:
-    """H(X_t | previous k symbols), plug-in, over positions k..n-1 (stdlib only)."""
-    joint = Counter(tuple(symbols[i - k:i + 1]) for i in range(k, len(symbols)))
-    context = Counter(tuple(symbols[i - k:i]) for i in range(k, len(symbols)))
+    """H(X_t | previous k symbols), plug-in, with the data read as a ring (the definition
+    sources.empirical documents), in stdlib Python only."""
+    ring = symbols + symbols[:k]
+    n = len(symbols)
+    joint = Counter(tuple(ring[i:i + k + 1]) for i in range(n))
+    context = Counter(tuple(ring[i:i + k]) for i in range(n))
     total = sum(joint.values())
     return -sum(c / total * math.log2(c / context[key[:-1]]) for key, c in joint.items())
 

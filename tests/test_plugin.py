@@ -208,6 +208,16 @@ def test_partial_record_keeps_unmeasured_entries_and_stale_listing(
     result.assert_outcomes(failed=1)
     result.stdout.fnmatch_lines(["stale entries not listed: partial run (stopped early)"])
 
+    # -m, and an interrupted run (Ctrl-C inside a test) are not full runs either
+    result = run(pytester, "-m", "not slow", "-p", "no:warnings")
+    result.stdout.fnmatch_lines(["stale entries not listed: partial run (-m)"])
+    pytester.makepyfile(test_stop=(
+        "def test_zz_stop(ratefloor):\n    raise KeyboardInterrupt\n"))
+    result = pytester.runpytest(*INNER, no_reraise_ctrlc=True)
+    assert result.ret == pytest.ExitCode.INTERRUPTED
+    result.stdout.fnmatch_lines(["stale entries not listed: partial run (interrupted)"])
+    (pytester.path / "test_stop.py").unlink()
+
     # a full run without beta's test lists beta's entry as stale (and keeps it)
     pytester.makepyfile(test_codecs=TESTS.split("def test_beta")[0])
     set_pad(pytester, "alpha", 2)

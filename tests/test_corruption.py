@@ -634,3 +634,23 @@ def test_a_crashing_decoder_fails_one_test_and_the_session_goes_on(
     result.stdout.fnmatch_lines(["*trial 0: hang: did not return within 0.2 s*"])
     # the worker's faulthandler trace goes to the test's captured stderr
     result.stdout.fnmatch_lines(["*Captured stderr call*", "*Fatal Python error: Aborted*"])
+
+
+@linux_only
+def test_reference_source_is_named_in_the_failure(tmp_path: Path) -> None:
+    from pytest_ratefloor import sources
+
+    source = sources.uniform(16)
+    codec = ByteCodec(zlib.compress, lambda data: b"\0" * 2000, name="zero-filler")
+    with pytest.raises(CorruptionFailure) as info:
+        assert_survives_corruption(
+            codec, source, n=2000, seed=3, trials=2, must_detect=True, save_dir=tmp_path
+        )
+    message = str(info.value)
+    assert "decoder of 'zero-filler' failed 2 corruption trials (must-detect mode)" in message
+    assert "on uniform(k=16), n=2000, seed=3;" in message
+    # the clean stream is zlib of the u8-packed sample (packing "auto" for 16 symbols)
+    clean = zlib.compress(source.sample(2000, seed=3).astype(np.uint8).tobytes())
+    assert f"clean stream {len(clean)} bytes" in message
+    assert _replay_path(message, 1).read_bytes() == clean[:-1]
+    assert "replay: from pytest_ratefloor.corruption import load_damaged; decompress(" in message

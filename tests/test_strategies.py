@@ -249,3 +249,27 @@ def test_schedules_fit_the_stream(schedule: list[Corruption]) -> None:
     assert len(set(schedule)) == len(schedule)
     assert all(c.stream_length == 100 for c in schedule)
     assert schedule[0] == Corruption.truncate(100, 0)
+
+
+# ---------------------------------------------------------------------------
+# with the project's reference sources
+
+
+def test_sequences_over_reference_sources() -> None:
+    from pytest_ratefloor import sources
+
+    geometric = sources.geometric(0.3)
+    table, _ = geometric.pmf_table()
+
+    @FAST
+    @given(symbol_sequences(geometric), symbol_sequences(sources.bernoulli(0.1)))
+    def check(geo: np.ndarray, bits: np.ndarray) -> None:
+        assert geo.size == 0 or 0 <= geo.min() <= geo.max() <= table.max()
+        assert set(bits.tolist()) <= {0, 1}
+
+    check()
+    # the negative extreme of a two-sided source is drawn on its own
+    two_sided = sources.two_sided_geometric(0.5)
+    lowest = int(two_sided.pmf_table()[0].min())
+    assert lowest < 0
+    assert _find(symbol_sequences(two_sided), lambda a: a.tolist() == [lowest]).tolist() == [lowest]

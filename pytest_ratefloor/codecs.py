@@ -385,11 +385,15 @@ def resolve_packing(packing: str, source: Source | None = None) -> str:
     return packing
 
 
-def pack(symbols: np.ndarray, packing: str) -> bytes:
-    """Pack int symbols into bytes; a symbol that does not fit raises PackingError naming it."""
+def pack(symbols: np.ndarray, packing: str, trusted: bool = False) -> bytes:
+    """Pack int symbols into bytes; a symbol that does not fit raises PackingError naming it.
+
+    ``trusted=True`` skips the range scan when the caller guarantees that
+    every symbol fits (a sample of a source whose declared range fits).
+    """
     p = PACKINGS[packing]
     arr = np.asarray(symbols)
-    if len(arr):
+    if len(arr) and not trusted:
         lo, hi = int(arr.min()), int(arr.max())
         if lo < p.lo or hi > p.hi:
             bad = np.flatnonzero((arr < p.lo) | (arr > p.hi))[0]
@@ -452,26 +456,33 @@ class ByteCodec:
         self.name = _check_name(name if name is not None else _callable_name(compress))
         self.version = _check_version(version)
         self.packing = packing
+        # Set by for_source when the source's declared range fits the packing:
+        # the source's samples then need no range scan.
+        self._trusted = False
 
     def __repr__(self) -> str:
         return f"ByteCodec(name={self.name!r}, version={self.version!r}, packing={self.packing!r})"
 
     def for_source(self, source: Source) -> ByteCodec:
-        """This codec with ``"auto"`` packing resolved for ``source``."""
-        if self.packing != "auto":
-            return self
-        return ByteCodec(
-            self._compress,
-            self._decompress,
-            name=self.name,
-            version=self.version,
-            packing=resolve_packing("auto", source),
+        """This codec as used on ``source``: ``"auto"`` packing resolved.
+
+        When the source declares a finite range that fits the packing, the
+        bound codec skips the per-call range scan of the symbols (the checks
+        only feed it symbols of that source).
+        """
+        packing = resolve_packing(self.packing, source)
+        bound = ByteCodec(
+            self._compress, self._decompress, name=self.name, version=self.version, packing=packing
         )
+        lo, hi = source.min_symbol, source.max_symbol
+        p = PACKINGS[packing]
+        bound._trusted = lo is not None and hi is not None and p.lo <= lo and hi <= p.hi
+        return bound
 
     def encode(self, symbols: np.ndarray) -> Encoded:
         """Pack, compress, and charge ``8 · len`` bits."""
         packing = resolve_packing(self.packing)
-        out = self._compress(pack(symbols, packing))
+        out = self._compress(pack(symbols, packing, trusted=self._trusted))
         raw = _bytes_of(out)
         if raw is None:
             raise CodecContractError(

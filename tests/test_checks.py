@@ -82,6 +82,8 @@ def test_sample_fingerprint_definition() -> None:
     assert sample_fingerprint(np.array([1, 2, 255])) == expected
     assert sample_fingerprint(np.array([1, 2, 255], dtype=np.int32)) == expected
     assert sample_fingerprint([1, 2, 255]) == expected
+    assert sample_fingerprint([1, 2, 255], bounds=(0, 255)) == expected  # skips the scan only
+    assert sample_fingerprint([1, 2, 3], bounds=(0, 9)) == sample_fingerprint([1, 2, 3])
     wide = hashlib.sha256(b"ratefloor-sample-v1:i4:2:" + (-1).to_bytes(4, "little", signed=True)
                           + (7).to_bytes(4, "little", signed=True)).hexdigest()[:16]
     assert sample_fingerprint(np.array([-1, 7])) == wide

@@ -57,7 +57,8 @@ class Settings:
     """The options and ini keys of one run, parsed and validated."""
 
     ledger_path: Path
-    ledger_given: bool
+    #: the ledger path came from --ratefloor-ledger (so the record command repeats it)
+    ledger_from_cli: bool
     record: bool
     slack: float
     report_path: Path | None
@@ -84,20 +85,21 @@ def parse_slack(text: str, origin: str) -> float:
 
 
 def _path_setting(config: pytest.Config, option: str, ini: str) -> tuple[Path | None, bool]:
-    """CLI value (relative to the invocation dir) or ini value (relative to the ini file)."""
+    """CLI value (relative to the invocation dir) or ini value (relative to the ini file);
+    the flag tells whether it came from the command line."""
     cli = config.getoption(option)
     if cli:
         return config.invocation_params.dir / str(cli), True
     value = str(config.getini(ini) or "").strip()
     if value:
         base = config.inipath.parent if config.inipath is not None else config.rootpath
-        return base / value, True
+        return base / value, False
     return None, False
 
 
 def read_settings(config: pytest.Config) -> Settings:
     """Read every option and ini key now, so a bad configuration fails the run at once."""
-    ledger_path, given = _path_setting(config, "ratefloor_ledger", "ratefloor_ledger")
+    ledger_path, from_cli = _path_setting(config, "ratefloor_ledger", "ratefloor_ledger")
     cli_slack = config.getoption("ratefloor_slack")
     if cli_slack is not None:
         slack = parse_slack(str(cli_slack), "--ratefloor-slack")
@@ -115,7 +117,7 @@ def read_settings(config: pytest.Config) -> Settings:
         raise pytest.UsageError(str(exc)) from None
     return Settings(
         ledger_path=ledger_path or config.rootpath / DEFAULT_LEDGER_NAME,
-        ledger_given=given,
+        ledger_from_cli=from_cli,
         record=bool(config.getoption("ratefloor_record")),
         slack=slack,
         report_path=report_path,
@@ -130,7 +132,7 @@ def open_run(settings: Settings) -> tuple[LedgerRun, Settings]:
     replaced (a copy is kept beside it). A newer-schema ledger always stops it.
     """
     hint = "pytest --ratefloor-record"
-    if settings.ledger_given:
+    if settings.ledger_from_cli:
         hint += f" --ratefloor-ledger {shlex.quote(str(settings.ledger_path))}"
     try:
         baseline = Ledger.load(settings.ledger_path)

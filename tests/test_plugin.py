@@ -365,10 +365,20 @@ def test_ini_keys_and_cli_precedence(pytester: pytest.Pytester) -> None:
 
     set_pad(pytester, "alpha", 1)  # +0.025 % is within the ini slack of 1 %
     run(pytester).assert_outcomes(passed=2)
-    run(pytester, "--ratefloor-slack", "0").assert_outcomes(passed=1, failed=1)  # CLI wins
+    result = run(pytester, "--ratefloor-slack", "0")  # the command line wins
+    result.assert_outcomes(passed=1, failed=1)
+    # the ledger came from the ini file: the record command needs no ledger option
+    result.stdout.fnmatch_lines(["*record the new figure: pytest --ratefloor-record "
+                                 "test_codecs.py::test_alpha"])
     result = run(pytester, "--ratefloor-ledger", "elsewhere.json")
     result.assert_outcomes(passed=2)
     result.stdout.fnmatch_lines(["alpha *new"])
+    run(pytester, "--ratefloor-ledger", "elsewhere.json", "--ratefloor-record")
+    set_pad(pytester, "alpha", 2)
+    result = run(pytester, "--ratefloor-ledger", "elsewhere.json", "--ratefloor-slack", "0")
+    result.stdout.fnmatch_lines(["*record the new figure: pytest --ratefloor-record "
+                                 f"--ratefloor-ledger {pytester.path / 'elsewhere.json'} "
+                                 "test_codecs.py::test_alpha"])
 
 
 @pytest.mark.parametrize(

@@ -117,7 +117,7 @@ def symbol_sequences(
     any_symbol = st.sampled_from(symbols)
     # the extremes often, any symbol otherwise
     symbol = st.one_of(st.sampled_from([lo, hi]), any_symbol)
-    short = st.integers(1, _SHORT)
+    short = st.sampled_from(range(1, _SHORT + 1))  # every short length, evenly
     sampler = source_or_alphabet if hasattr(source_or_alphabet, "sample") else None
 
     families: list[st.SearchStrategy[np.ndarray]] = []

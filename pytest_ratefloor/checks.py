@@ -106,7 +106,7 @@ def sample_fingerprint(symbols: ArrayLike, bounds: tuple[int, int] | None = None
     arr = np.asarray(symbols).ravel()
     if arr.dtype.kind not in "iub":
         raise ValueError(f"sample_fingerprint needs integer symbols, got dtype {arr.dtype}")
-    if bounds is not None and 0 <= bounds[0] and bounds[1] <= 0xFF:
+    if bounds is not None and bounds[0] >= 0 and bounds[1] <= 0xFF:
         lo, hi = 0, 0xFF  # u1 holds them: the narrowest candidate, no scan needed
     else:
         lo, hi = (int(arr.min()), int(arr.max())) if arr.size else (0, 0)
@@ -235,6 +235,8 @@ def _encode(codec: Codec, symbols: np.ndarray, run: _Run, case: str) -> Encoded:
         raise run.misbehaviour(
             case, f"the encoder raised {type(exc).__name__}: {exc}"
         ) from exc
+    except SystemExit as exc:  # would otherwise end the whole test session
+        raise run.misbehaviour(case, f"the encoder called sys.exit({exc.code!r})") from exc
 
 
 def _decode(codec: Codec, encoded: Encoded, n: int, run: _Run, case: str) -> np.ndarray:
@@ -247,6 +249,8 @@ def _decode(codec: Codec, encoded: Encoded, n: int, run: _Run, case: str) -> np.
         raise run.misbehaviour(
             case, f"the decoder raised {type(exc).__name__}: {exc}"
         ) from exc
+    except SystemExit as exc:
+        raise run.misbehaviour(case, f"the decoder called sys.exit({exc.code!r})") from exc
 
 
 def _compare(expected: np.ndarray, decoded: np.ndarray, run: _Run, case: str) -> None:

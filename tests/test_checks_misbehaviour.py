@@ -62,6 +62,13 @@ def test_decoder_that_raises_keeps_the_original_as_cause() -> None:
     assert WHERE in str(info.value)
 
 
+def test_decoder_calling_sys_exit_does_not_end_the_run() -> None:
+    import sys
+
+    with pytest.raises(CodecMisbehaviour, match=r"the decoder called sys\.exit\(3\)"):
+        assert_roundtrip(stream(decode=lambda d, n: sys.exit(3)), SOURCE, n=N, seed=3)
+
+
 @pytest.mark.parametrize(
     ("encode", "message"),
     [

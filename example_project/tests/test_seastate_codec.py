@@ -72,9 +72,9 @@ def test_package_merge_matches_exhaustive_search(symbols: int, cap: int) -> None
     for _ in range(5):
         counts = rng.integers(1, 200, size=symbols) ** 2
         best = min(
-            _cost(counts, np.array(lens))
+            int(np.dot(counts, lens))
             for lens in itertools.product(range(1, cap + 1), repeat=symbols)
-            if sum(Fraction(1, 2**v) for v in lens) <= 1
+            if sum(1 << (cap - v) for v in lens) <= 1 << cap  # Kraft sum <= 1, scaled by 2**cap
         )
         lengths = seastate.limited_lengths(counts, max_length=cap)
         assert lengths.max() <= cap

@@ -57,7 +57,9 @@ def limited_lengths(counts: ArrayLike, max_length: int = MAX_LENGTH) -> np.ndarr
     """
     weights = np.asarray(counts)
     if weights.ndim != 1 or (weights.size and weights.dtype.kind not in "iu"):
-        raise ValueError(f"counts must be a 1-D integer array, got {weights!r}")
+        raise ValueError(
+            f"counts must be a 1-D integer array, got shape {weights.shape} dtype {weights.dtype}"
+        )
     if weights.size and int(weights.min()) < 0:
         raise ValueError(f"counts must be >= 0, got {int(weights.min())}")
     used = [int(s) for s in np.flatnonzero(weights)]

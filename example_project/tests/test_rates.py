@@ -46,9 +46,9 @@ def test_level_changes_on_a_calm_day(ratefloor):
 
 
 # Fault flags: the adaptive range coder should land within a few bits of the
-# Krichevsky–Trofimov ideal length; the message head (2-3 bytes of symbol count) and
-# the termination (< 2 bytes) are a fixed cost, so the tolerance is absolute: 64 bits
-# over the batch.
+# Krichevsky–Trofimov ideal length; the message head (3 bytes of symbol count at these
+# n) and the termination (< 2 bytes) are a fixed cost, so the tolerance is absolute:
+# 64 bits over the batch.
 N_FLAGS = 50_000
 test_faults = gate(
     FAULTS,

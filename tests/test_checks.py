@@ -383,3 +383,22 @@ def test_packing_that_does_not_fit_is_a_clear_error() -> None:
     with pytest.raises(PackingError, match=r"symbol \d+ at index \d+ does not fit packing 'bits'.*"
                                            r"codec 'zlib-9'.*source uniform\(k=4\)"):
         measure(zlib_codec(packing="bits"), sources.uniform(4), n=N)
+
+
+@pytest.mark.parametrize(
+    "source",
+    [sources.uniform(256), sources.bernoulli(0.1), sources.zipf(256, 1.1),
+     sources.categorical([0.5, 0.25, 0.125, 0.0625, 0.0625]), sources.geometric(0.2),
+     sources.markov([[0.9, 0.1], [0.4, 0.6]])],
+    ids=lambda s: s.spec,
+)
+def test_sample_information_equals_the_sources_own_sum(source: sources.Source) -> None:
+    from pytest_ratefloor.checks import sample_information
+
+    sample = source.sample(300_000, 1)  # large enough for the histogram path
+    expected = math.fsum(source.self_information(sample).tolist())  # exactly rounded sum
+    assert sample_information(source, sample) == pytest.approx(expected, rel=1e-12)
+    bad = sample.copy()
+    bad[-1] = 10**6 if source.max_symbol is not None else -1
+    with pytest.raises(ValueError, match="1000000|-1"):
+        sample_information(source, bad)

@@ -400,5 +400,5 @@ def test_sample_information_equals_the_sources_own_sum(source: sources.Source) -
     assert sample_information(source, sample) == pytest.approx(expected, rel=1e-12)
     bad = sample.copy()
     bad[-1] = 10**6 if source.max_symbol is not None else -1
-    with pytest.raises(ValueError, match="1000000|-1"):
+    with pytest.raises(ValueError, match=r"1000000|-1"):
         sample_information(source, bad)

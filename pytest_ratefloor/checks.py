@@ -261,9 +261,9 @@ def _compare(expected: np.ndarray, decoded: np.ndarray, run: _Run, case: str) ->
     index = int(np.flatnonzero(expected != decoded)[0])
     lo, hi = max(0, index - _WINDOW), min(len(expected), index + _WINDOW + 1)
     raise RoundTripFailure(
-        f"codec {run.codec.name!r} does not round-trip {case}: {len(expected)} symbols\n"
-        f"  first mismatch at index {index}: expected {int(expected[index])}, "
-        f"decoded {int(decoded[index])}\n"
+        f"codec {run.codec.name!r} does not round-trip {case}\n"
+        f"  input length {len(expected)}; first mismatch at index {index}: "
+        f"expected {int(expected[index])}, decoded {int(decoded[index])}\n"
         f"  expected[{lo}:{hi}] = {_show(expected[lo:hi])}\n"
         f"  decoded [{lo}:{hi}] = {_show(decoded[lo:hi])}\n"
         f"  ({run.origin})"

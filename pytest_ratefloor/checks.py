@@ -531,7 +531,7 @@ def _worst_codewords(codec: Codec, source: Source, count: int = 3) -> str:
         from pytest_ratefloor import codes
 
         symbols, probs = source.pmf_table()
-        rows = codes.excess_by_symbol(codebook, symbols, probs)[:count]
+        rows = [r for r in codes.excess_by_symbol(codebook, symbols, probs) if r[3] > 0][:count]
     except Exception as exc:  # the message must not fail because of its garnish
         return f"\n  (worst codewords unavailable: {type(exc).__name__}: {exc})"
     if not rows:

@@ -11,23 +11,21 @@ byte-per-symbol codecs whose encoder appends as many zero bytes as a file
 from __future__ import annotations
 
 import contextlib
+import importlib
 import json
 import os
 import xml.etree.ElementTree as ET
 from pathlib import Path
 
-import numpy  # noqa: F401
 import pytest
-
-import pytest_ratefloor.harness
 
 # Import what the inner runs import now: pytester drops modules first imported during
 # an in-process run, and numpy cannot be loaded twice in one process.
-with contextlib.suppress(ImportError):
-    import pytest_ratefloor.sources  # noqa: F401
-with contextlib.suppress(ImportError):
-    import matplotlib.backends.backend_agg
-    import matplotlib.figure  # noqa: F401
+for _name in ("numpy", "pytest_ratefloor.harness", "pytest_ratefloor.sources"):
+    importlib.import_module(_name)
+for _name in ("matplotlib.figure", "matplotlib.backends.backend_agg"):  # the plot extra
+    with contextlib.suppress(ImportError):
+        importlib.import_module(_name)
 
 RFCASE = '''
 """Byte-per-symbol codecs with a controllable trailer, for the ledger gate."""
@@ -35,32 +33,11 @@ import pathlib
 
 import numpy as np
 
-from pytest_ratefloor import StreamCodec
+from pytest_ratefloor import StreamCodec, sources
 
 HERE = pathlib.Path(__file__).parent
 
-try:
-    from pytest_ratefloor import sources
-    SOURCE = sources.uniform(256)
-except ImportError:  # sources.py not written yet: a stand-in with the same figures
-    class _Uniform256:
-        spec = "uniform(k=256)"
-        family = "uniform"
-        params = {"k": 256}
-        entropy = 8.0
-        varentropy = 0.0
-        alphabet_size = 256
-        min_symbol = 0
-        max_symbol = 255
-
-        def sample(self, n, seed=0):
-            gen = np.random.Generator(np.random.PCG64(seed))
-            return gen.integers(0, 256, n, dtype=np.int64)
-
-        def information(self, symbols):
-            return 8.0 * len(symbols)
-
-    SOURCE = _Uniform256()
+SOURCE = sources.uniform(256)
 
 
 def padded(name):

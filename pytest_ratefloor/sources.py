@@ -12,17 +12,21 @@ Sampling contract
 arithmetic. numpy promises a stable stream only for its bit generators, not
 for the distribution methods of ``Generator``, so none of those is used.
 
-A memoryless source turns word ``u`` (``0 <= u < 2**64``) into symbol number
-``j = #{i : T[i] <= u}`` of its symbol order, where ``T`` are integer
-cumulative thresholds ``T[i] ~ 2**64 * P(first i+1 symbols)`` computed once
-with exact rational or integer arithmetic (or with :mod:`decimal`, which is
-software arithmetic and gives the same digits everywhere). One word gives one
-symbol, so ``sample(n)[:m] == sample(m)``. Comparing words with integer
-thresholds means no libm or SIMD rounding difference can change a sample.
-Each symbol is drawn with probability within about ``2**-64`` of its exact
-probability (Zipf: within a relative ``2**-40``, see :func:`zipf`); mass
-below ``2**-64`` in the far tail of an unbounded family is the part a single
-64-bit word cannot express, and those symbols are never drawn.
+A memoryless source gives every symbol an integer *mass*: the number of the
+2**64 possible words that map to it, fixed once per source from cumulative
+thresholds ``T[i] ~ 2**64 * P(first i+1 symbols)`` computed with exact
+rational or integer arithmetic (or with :mod:`decimal`, which is software
+arithmetic and gives the same digits everywhere). Word ``u`` then becomes
+symbol number ``j = #{i : T[i] <= u}`` (the inverse CDF, through a guide
+table on the word's top 16 bits), or, for long tables, goes through an alias
+table over the same masses. Either way a word is only ever compared with
+integers, so no libm or SIMD rounding difference can change a sample, and
+one word gives one symbol, so ``sample(n)[:m] == sample(m)``. Each symbol is
+drawn with probability within about ``2**-64`` of its exact probability
+(Zipf: within a relative ``2**-40``, see :class:`Zipf`); mass below ``2**-64``
+in the far tail of an unbounded family is what a single 64-bit word cannot
+express, and those symbols are never drawn. Chains (Markov, empirical of
+order k > 0) draw one word per symbol too, in a loop over time.
 
 Entropies are exact closed forms where they exist (uniform, Bernoulli,
 geometric, two-sided geometric) and exact finite or truncation-bounded sums
@@ -406,12 +410,13 @@ class _InverseCdf:
         return out
 
 
-def _power_floors(r: float, two_sided: bool) -> Iterator[tuple[int, int]]:
+def _power_floors(r: Fraction, two_sided: bool) -> Iterator[tuple[int, int]]:
     """Yield (floor(2**64 r**m), floor(2**65 r**m / (1 + r))) for m = 1, 2, ...
 
-    Integer fixed point with 128 guard bits: exact whenever the value is a
-    dyadic rational (the only way it can be an integer), otherwise off only if
-    the true value lies within m * 2**-128 of an integer.
+    ``r`` is a dyadic rational in [0, 1) (a float, or 1 minus one, taken
+    exactly). Integer fixed point with 128 guard bits: exact whenever the value
+    is a dyadic rational (the only way it can be an integer), otherwise off
+    only if the true value lies within m * 2**-128 of an integer.
     """
     guard = 128
     num, den = r.as_integer_ratio()
@@ -432,13 +437,13 @@ def _zigzag_values(count: int) -> np.ndarray:
     return np.where(z % 2 == 1, -(z + 1) // 2, z // 2)
 
 
-def _geometric_table(r: float) -> _InverseCdf:
+def _geometric_table(r: Fraction) -> _InverseCdf:
     """Table sampler of X = max{m >= 0 : 2**64 - u <= 2**64 r**m} (geometric, ratio r)."""
     thresholds = [_WORD - s for s, _ in _power_floors(r, two_sided=False)]
     return _InverseCdf(thresholds, np.arange(len(thresholds) + 1, dtype=np.int64))
 
 
-def _two_sided_table(r: float) -> _InverseCdf:
+def _two_sided_table(r: Fraction) -> _InverseCdf:
     """Table sampler of the two-sided geometric in zigzag order (see _GeometricCounter)."""
     thresholds: list[int] = []
     for s, a in _power_floors(r, two_sided=True):
@@ -459,7 +464,7 @@ class _GeometricCounter:
     platform, and equals what a table of exact thresholds would give.
     """
 
-    def __init__(self, r: float, factors: Sequence[Fraction]) -> None:
+    def __init__(self, r: Fraction, factors: Sequence[Fraction]) -> None:
         ctx = _decimal_context(80)
         self.num, den = r.as_integer_ratio()
         self.shift = den.bit_length() - 1
@@ -647,12 +652,27 @@ def _positive_support(symbols: np.ndarray, probs: np.ndarray) -> tuple[np.ndarra
     return symbols[keep].astype(np.int64), probs[keep].astype(np.float64)
 
 
+_CHUNK = 1 << 16  # words per step: keeps the working arrays in cache
+
+
+def _draw_in_chunks(
+    draw: Callable[[np.ndarray], np.ndarray], n: int, bitgen: np.random.PCG64
+) -> np.ndarray:
+    """``draw`` applied to n raw words, taken in cache-sized chunks (same words, same order)."""
+    if n <= _CHUNK:
+        return draw(np.asarray(bitgen.random_raw(n), dtype=np.uint64))
+    out = np.empty(n, dtype=np.int64)
+    for start in range(0, n, _CHUNK):
+        chunk = np.asarray(bitgen.random_raw(min(_CHUNK, n - start)), dtype=np.uint64)
+        out[start : start + chunk.size] = draw(chunk)
+    return out
+
+
 class _Memoryless(Source):
     """A source of independent, identically distributed symbols."""
 
     def _sample(self, n: int, bitgen: np.random.PCG64) -> np.ndarray:
-        words = bitgen.random_raw(n)
-        return self._draw(np.asarray(words, dtype=np.uint64))
+        return _draw_in_chunks(self._draw, n, bitgen)
 
     @abc.abstractmethod
     def _draw(self, words: np.ndarray) -> np.ndarray:
@@ -788,12 +808,13 @@ class Geometric(_Memoryless):
     """Symbols 0, 1, 2, ... with P(x) = (1-p)^x p, 1e-12 <= p <= 1 (p = 1: the constant 0).
 
     H = h(p)/p bits; varentropy = log2(1-p)^2 (1-p)/p^2 (−log2 P is affine in x).
-    Sampling (inverse CDF on v = 2**64 - u): X = max{x : v <= 2**64 (1-p)^x}.
-    For p >= 2**-10 this is a table of exact thresholds covering every word
-    (the largest symbol is the one whose threshold needs v = 1; the mass a
-    64-bit word cannot express, below 2**-64, is never drawn); for smaller p
-    the same X comes from a logarithm with an exact check of every borderline
-    word (slower, see benchmarks/bench_sampling.py).
+    Sampling: the inverse CDF on v = 2**64 - u, X = max{x : v <= 2**64 (1-p)^x}
+    with 1 - p taken exactly. For p >= 2**-10 its exact integer thresholds
+    form a table covering every word (the largest symbol is the one that needs
+    v = 1; the mass below 2**-64 that a word cannot express is never drawn),
+    drawn through an alias table when it is long; for smaller p the inverse
+    CDF is evaluated with a logarithm and every borderline word is decided
+    exactly (slower, see benchmarks/bench_sampling.py).
     """
 
     def __init__(self, p: float) -> None:
@@ -834,7 +855,7 @@ class Geometric(_Memoryless):
 
     def _draw(self, words: np.ndarray) -> np.ndarray:
         if self._sampler is None:
-            r = 1.0 - self.p  # exact for p >= 2**-53, and p >= 1e-12 here
+            r = 1 - Fraction(self.p)  # exactly; the float 1.0 - p may be rounded
             if self.p >= _GEOMETRIC_TABLE_MIN_P:
                 self._sampler = _geometric_table(r)
             else:
@@ -917,12 +938,11 @@ class TwoSidedGeometric(_Memoryless):
 
     def _draw(self, words: np.ndarray) -> np.ndarray:
         if self._sampler is None:
-            r = self.theta
-            if r <= _TWO_SIDED_TABLE_MAX_THETA:
+            r = Fraction(self.theta)
+            if self.theta <= _TWO_SIDED_TABLE_MAX_THETA:
                 self._sampler = _two_sided_table(r)
             else:
-                fr = Fraction(r)
-                counter = _GeometricCounter(r, [Fraction(1), 2 / (1 + fr)])
+                counter = _GeometricCounter(r, [Fraction(1), 2 / (1 + r)])
 
                 def draw(w: np.ndarray) -> np.ndarray:
                     n1, n2 = counter.counts(w)
@@ -1642,7 +1662,7 @@ class Empirical(Source):
                 self._table = _InverseCdf(
                     _thresholds_from_weights(self.counts.tolist()), self.symbols
                 )
-            return self._table(np.asarray(bitgen.random_raw(n), dtype=np.uint64))
+            return _draw_in_chunks(self._table, n, bitgen)
         if self._chain is None:
             bounds = np.flatnonzero(np.diff(self._row_ctx)) + 1
             groups = np.split(np.arange(self._rows.shape[0]), bounds)

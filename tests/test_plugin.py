@@ -74,8 +74,12 @@ BETA_BITS = 2000 * 8
 
 
 def make_project(pytester: pytest.Pytester, tests: str = TESTS) -> Path:
-    """Write the user project; return the default ledger path (not created)."""
-    pytester.makepyfile(rfcase=RFCASE, test_codecs=tests)
+    """Write the user project; return the default ledger path (not created).
+
+    Module names are unusual on purpose: in-process runs share sys.modules with the
+    outer suite, so an inner ``test_codecs.py`` would clash with ours.
+    """
+    pytester.makepyfile(rfcase=RFCASE, test_rf_gated=tests)
     return pytester.path / LEDGER_NAME
 
 
@@ -142,8 +146,8 @@ def test_pass_record_regress_improve(pytester: pytest.Pytester) -> None:
         "*delta: +8 bits (+0.025%), allowed slack 0%",
         f"*ledger: {ledger}",
         "*if the increase is intended, record the new figure: pytest --ratefloor-record "
-        "test_codecs.py::test_alpha",
-        "FAILED test_codecs.py::test_alpha*",
+        "test_rf_gated.py::test_alpha",
+        "FAILED test_rf_gated.py::test_alpha*",
     ])
     result.stdout.fnmatch_lines(["alpha *+8 bits (+0.025%) regressed", "*1 regressed*"])
     assert ledger.read_bytes() == recorded  # reading never writes
@@ -188,15 +192,15 @@ def test_partial_record_keeps_unmeasured_entries_and_stale_listing(
     # -m, and an interrupted run (Ctrl-C inside a test) are not full runs either
     result = run(pytester, "-m", "not slow", "-p", "no:warnings")
     result.stdout.fnmatch_lines(["stale entries not listed: partial run (-m)"])
-    pytester.makepyfile(test_stop=(
+    pytester.makepyfile(test_rf_stop=(
         "def test_zz_stop(ratefloor):\n    raise KeyboardInterrupt\n"))
     result = pytester.runpytest(*INNER, no_reraise_ctrlc=True)
     assert result.ret == pytest.ExitCode.INTERRUPTED
     result.stdout.fnmatch_lines(["stale entries not listed: partial run (interrupted)"])
-    (pytester.path / "test_stop.py").unlink()
+    (pytester.path / "test_rf_stop.py").unlink()
 
     # a full run without beta's test lists beta's entry as stale (and keeps it)
-    pytester.makepyfile(test_codecs=TESTS.split("def test_beta")[0])
+    pytester.makepyfile(test_rf_gated=TESTS.split("def test_beta")[0])
     set_pad(pytester, "alpha", 2)
     result = run(pytester, "--ratefloor-record")
     result.assert_outcomes(passed=1)
@@ -218,7 +222,7 @@ def test_resampled_source_is_a_clear_error(pytester: pytest.Pytester) -> None:
     result.stdout.fnmatch_lines([
         "*SampleMismatch: ledger entry cannot be compared: codec 'beta' on uniform(k=256), "
         "n=2000, seed=3 was recorded on a different sample (fingerprint 0123456789abcdef*",
-        "*re-record the case: pytest --ratefloor-record test_codecs.py::test_beta",
+        "*re-record the case: pytest --ratefloor-record test_rf_gated.py::test_beta",
     ])
     # recording is the remedy
     run(pytester, "--ratefloor-record").assert_outcomes(passed=2)
@@ -233,7 +237,7 @@ def test_marker_slack(pytester: pytest.Pytester) -> None:
     set_pad(pytester, "beta", 1)
     result = run(pytester, "--strict-markers")
     result.assert_outcomes(passed=1, failed=1)  # alpha within its marker slack, beta not
-    result.stdout.fnmatch_lines(["alpha *within-slack", "FAILED test_codecs.py::test_beta*"])
+    result.stdout.fnmatch_lines(["alpha *within-slack", "FAILED test_rf_gated.py::test_beta*"])
     make_project(pytester, TESTS.replace(
         "def test_alpha", "import pytest\n\n@pytest.mark.ratefloor(slack='lots')\ndef test_alpha"))
     result = run(pytester)
@@ -346,7 +350,7 @@ def test_ini_keys_and_cli_precedence(pytester: pytest.Pytester) -> None:
     result.assert_outcomes(passed=1, failed=1)
     # the ledger came from the ini file: the record command needs no ledger option
     result.stdout.fnmatch_lines(["*record the new figure: pytest --ratefloor-record "
-                                 "test_codecs.py::test_alpha"])
+                                 "test_rf_gated.py::test_alpha"])
     result = run(pytester, "--ratefloor-ledger", "elsewhere.json")
     result.assert_outcomes(passed=2)
     result.stdout.fnmatch_lines(["alpha *new"])
@@ -355,7 +359,7 @@ def test_ini_keys_and_cli_precedence(pytester: pytest.Pytester) -> None:
     result = run(pytester, "--ratefloor-ledger", "elsewhere.json", "--ratefloor-slack", "0")
     result.stdout.fnmatch_lines(["*record the new figure: pytest --ratefloor-record "
                                  f"--ratefloor-ledger {pytester.path / 'elsewhere.json'} "
-                                 "test_codecs.py::test_alpha"])
+                                 "test_rf_gated.py::test_alpha"])
 
 
 @pytest.mark.parametrize(

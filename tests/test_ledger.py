@@ -9,7 +9,6 @@ import stat
 from fractions import Fraction
 from pathlib import Path
 
-import execnet
 import numpy as np
 import pytest
 
@@ -276,6 +275,7 @@ def test_payload_is_plain_data_for_execnet_and_absorbs_to_the_same_run(tmp_path:
     worker.observe(meas(codec="b", bits=7))
     worker.partial_reasons.append("-k")
     payload = worker.payload()
+    execnet = pytest.importorskip("execnet")  # installed with pytest-xdist
     # execnet's own serializer is the reference: it rejects numpy scalars (notes §8)
     shipped = execnet.loads(execnet.dumps(payload))
     controller = LedgerRun(baseline=base)

@@ -53,10 +53,16 @@ import numpy as np
 from numpy.typing import ArrayLike
 
 __all__ = [
+    "Bernoulli",
     "Categorical",
     "Empirical",
+    "Geometric",
     "Markov",
+    "Poisson",
     "Source",
+    "TwoSidedGeometric",
+    "Uniform",
+    "Zipf",
     "bernoulli",
     "categorical",
     "empirical",
@@ -122,7 +128,10 @@ def _real(where: str, name: str, value: object) -> float:
         value, (int, float, np.integer, np.floating)
     ):
         raise ValueError(f"{where}: {name} must be a real number, got {_show(value)}")
-    return float(value) + 0.0  # + 0.0 turns -0.0 into 0.0 so specs stay canonical
+    try:
+        return float(value) + 0.0  # + 0.0 turns -0.0 into 0.0 so specs stay canonical
+    except OverflowError:
+        raise ValueError(f"{where}: {name} is too large, got {_show(value)}") from None
 
 
 def _fmt(x: float) -> str:
@@ -684,10 +693,13 @@ class _Memoryless(Source):
 
 
 class Uniform(_Memoryless):
-    """Symbols 0..k-1 equally likely. H = log2 k, varentropy 0.
+    """Symbols 0..k-1 equally likely (1 <= k <= 2**62). H = log2 k, varentropy 0.
 
-    Sampling: symbol = floor(u * k / 2**64) (multiply-high), computed through
-    the guide table for k <= 65536 and with exact 64x64-bit products above.
+    Sampling: symbol = floor(u * k / 2**64) (the multiply-high of Lemire's
+    method, without rejection: each symbol gets floor or ceil of 2**64 / k
+    words). It is computed through the guide table for k <= 65536, from the
+    high half of the word with an exact fix-up for k < 2**32, and with full
+    64x64-bit products above.
     """
 
     def __init__(self, k: int) -> None:
@@ -1323,16 +1335,13 @@ class _ChainSampler:
         state = bisect_right(self.start_thresholds, first)
         out = list(self.prefixes[state][:n])
         steps = n - len(out)
-        if steps > 0:
-            thresholds, symbols, nxt, begin, last = (
-                self.thresholds,
-                self.symbols,
-                self.next,
-                self.begin,
-                self.last,
-            )
-            append = out.append
-            for word in bitgen.random_raw(steps).tolist():
+        thresholds, symbols, nxt = self.thresholds, self.symbols, self.next
+        begin, last = self.begin, self.last
+        append = out.append
+        while steps > 0:  # chunks keep the list of words small
+            chunk = min(steps, _CHUNK)
+            steps -= chunk
+            for word in bitgen.random_raw(chunk).tolist():
                 row = bisect_right(thresholds, word, begin[state], last[state])
                 append(symbols[row])
                 state = nxt[row]
@@ -1553,6 +1562,55 @@ def _lookup_rows(model: np.ndarray, query: np.ndarray) -> np.ndarray:
     return where[inverse[model.shape[0] :]]
 
 
+def _context_model(
+    data: np.ndarray, k: int
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Counts of the (k+1)-grams of ``data`` read as a ring.
+
+    Returns (grams, counts, contexts, gram_context, gram_next): the distinct
+    grams in lexicographic order with their counts, the distinct k-gram
+    contexts (lexicographic), and for each gram the index of its context
+    (first k symbols) and of the context it leads to (last k symbols).
+    Symbols are replaced by their ranks and each gram packed into one int64
+    when the alphabet allows, so long data is counted with 1-D sorts.
+    """
+    n = data.size
+    width = k + 1
+    alphabet, ranks = np.unique(data, return_inverse=True)
+    ranks = ranks.ravel().astype(np.int64)
+    base = int(alphabet.size)
+    if base**width < 1 << 62:
+        ring = np.concatenate([ranks, ranks[:k]])
+        code = np.zeros(n, dtype=np.int64)
+        for j in range(width):
+            code *= base
+            code += ring[j : j + n]
+        codes, counts = np.unique(code, return_counts=True)
+        span = base**k
+        ctx_codes, ctx_ids = np.unique(
+            np.concatenate([codes // base, codes % span]), return_inverse=True
+        )
+
+        def unpack(packed: np.ndarray, size: int) -> np.ndarray:
+            out = np.empty((packed.size, size), dtype=np.int64)
+            rest = packed.copy()
+            for j in range(size - 1, -1, -1):
+                out[:, j] = rest % base
+                rest //= base
+            return alphabet[out].astype(np.int64)
+
+        grams, contexts = unpack(codes, width), unpack(ctx_codes, k)
+    else:
+        windows = np.lib.stride_tricks.sliding_window_view(np.concatenate([data, data[:k]]), width)
+        grams, counts = np.unique(windows, axis=0, return_counts=True)
+        contexts, ctx_ids = np.unique(
+            np.vstack([grams[:, :k], grams[:, 1:]]), axis=0, return_inverse=True
+        )
+    ctx_ids = ctx_ids.ravel()
+    rows = grams.shape[0]
+    return grams, counts.astype(np.int64), contexts, ctx_ids[:rows], ctx_ids[rows:]
+
+
 class Empirical(Source):
     """A source fitted to data; its entropy is a plug-in *estimate*.
 
@@ -1612,23 +1670,23 @@ class Empirical(Source):
         self.n = n
         self.path: str | None = None  # set by from_file
         k = self.order
-        ring = np.concatenate([arr, arr[:k]])
-        windows = np.lib.stride_tricks.sliding_window_view(ring, k + 1)
-        rows, counts = np.unique(windows, axis=0, return_counts=True)
+        rows, counts, contexts, row_ctx, row_next = _context_model(arr, k)
         self._rows = rows  # distinct (k+1)-grams, lexicographic, so contexts are contiguous
-        self._counts = counts.astype(np.int64)
-        both = np.vstack([rows[:, :k], rows[:, 1:]])
-        contexts, ctx_ids = np.unique(both, axis=0, return_inverse=True)
-        ctx_ids = ctx_ids.ravel()
+        self._counts = counts
         self._contexts = contexts
-        self._row_ctx = ctx_ids[: rows.shape[0]]
-        self._row_next = ctx_ids[rows.shape[0] :]
-        self._ctx_counts = np.bincount(
-            self._row_ctx, weights=self._counts, minlength=len(contexts)
-        ).astype(np.int64)
-        row_ctx_count = self._ctx_counts[self._row_ctx]
-        self._row_neg_log2 = np.array(
-            [-_log2_ratio(c, t) for c, t in zip(self._counts.tolist(), row_ctx_count.tolist())]
+        self._row_ctx = row_ctx
+        self._row_next = row_next
+        self._ctx_counts = np.bincount(row_ctx, weights=counts, minlength=len(contexts)).astype(
+            np.int64
+        )
+        # -log2(c(w x) / c(w)), via log1p where the ratio is near 1
+        c = counts.astype(np.float64)
+        t = self._ctx_counts[row_ctx].astype(np.float64)
+        near_one = 2 * c > t
+        self._row_neg_log2 = np.where(
+            near_one,
+            -np.log1p(np.where(near_one, (c - t) / t, 0.0)) / _LN2,
+            np.log2(t) - np.log2(c),
         )
         symbols, sym_counts = np.unique(arr, return_counts=True)
         self.symbols = symbols

@@ -168,6 +168,7 @@ def test_markov_sampling_is_reproducible_and_starts_from_initial():
     assert np.array_equal(a, src.sample(3000, seed=2))
     assert np.array_equal(a[:100], src.sample(100, seed=2))
     assert all(src.sample(5, seed=s)[0] == 1 for s in range(20))
+    assert np.array_equal(src.sample(100_000)[:70_000], src.sample(70_000))  # across chunks
     assert src.sample(0).shape == (0,)
     stationary = sources.markov([[0.9, 0.1], [0.4, 0.6]])
     firsts = [stationary.sample(1, seed=s)[0] for s in range(2000)]

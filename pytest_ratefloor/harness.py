@@ -91,6 +91,7 @@ class RateFloorHarness:
         self.measurements: list[Measurement] = []
 
     def _record(self, m: Measurement) -> None:
+        __tracebackhide__ = True  # a ledger regression raised below belongs to the user's test
         self.measurements.append(m)
         properties = getattr(self.node, "user_properties", None)
         if properties is not None:

@@ -237,7 +237,19 @@ def gate_measurement(item: pytest.Item, m: Measurement) -> None:
     if verdict.ledger_bits is not None and verdict.delta_bits is not None:
         item.user_properties.append(("ratefloor.ledger_bits", int(verdict.ledger_bits)))
         item.user_properties.append(("ratefloor.ledger_delta_bits", int(verdict.delta_bits)))
-    run.enforce(m, verdict, nodeid=item.nodeid)
+    run.enforce(m, verdict, nodeid=command_line_id(item))
+
+
+def command_line_id(item: pytest.Item) -> str:
+    """The test id as typed from the directory pytest was started in (what FAILED lines show).
+
+    ``item.nodeid`` is relative to the rootdir, which differs from the working
+    directory when a sub-project is run from above (``pytest example_project``).
+    """
+    path = os.path.relpath(item.path, item.config.invocation_params.dir)
+    _, _, rest = item.nodeid.partition("::")
+    posix = Path(path).as_posix()
+    return f"{posix}::{rest}" if rest else posix
 
 
 @pytest.fixture

@@ -289,8 +289,8 @@ class _InverseCdf:
     ``thresholds`` are non-decreasing integers in [0, 2**64]; those equal to
     2**64 can never be reached by a word and are dropped. A 65536-cell guide
     table on the top 16 bits of the word answers every word whose cell holds
-    no threshold; the rest go to ``resolve`` (default: a binary search limited
-    to the thresholds inside the word's cell, vectorised over the words).
+    no threshold; the rest go to ``resolve`` (default: binary search over the
+    thresholds).
 
     When more than 1/16 of the cells hold thresholds (long tables) and there
     are at most 65536 symbols, the same integer masses T[i] - T[i-1] are
@@ -311,8 +311,6 @@ class _InverseCdf:
         self.values = np.asarray(values[: len(kept) + 1], dtype=np.int64)
         self._resolve = resolve or self._search
         self._guide: np.ndarray | None = None
-        self._first = np.zeros(0, dtype=np.int64)
-        self._last = np.zeros(0, dtype=np.int64)
         self._sentinel = 0
         self._alias: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None
 
@@ -361,25 +359,8 @@ class _InverseCdf:
         return out
 
     def _search(self, words: np.ndarray) -> np.ndarray:
-        """Symbols for words whose guide cell holds thresholds (binary search in the cell)."""
-        cells = (
-            _top16(words) if words.flags.c_contiguous else (words >> np.uint64(48)).astype(np.int64)
-        )
-        lo = self._first[cells]
-        hi = self._last[cells]
-        out = np.empty(words.shape, dtype=np.int64)
-        active = np.arange(words.size)
-        w = words
-        while active.size:
-            mid = (lo + hi) >> 1
-            right = self.thresholds[mid] <= w
-            lo = np.where(right, mid + 1, lo)
-            hi = np.where(right, hi, mid)
-            done = lo == hi
-            out[active[done]] = self.values[lo[done]]
-            keep = ~done
-            active, w, lo, hi = active[keep], w[keep], lo[keep], hi[keep]
-        return out
+        """Symbols for words whose guide cell holds thresholds (binary search)."""
+        return self.values[np.searchsorted(self.thresholds, words, side="right")]
 
     def _guide_table(self) -> np.ndarray:
         if self._guide is None:
@@ -393,8 +374,6 @@ class _InverseCdf:
             while sentinel in present:
                 sentinel += 1
             guide[first != last] = sentinel
-            self._first = first.astype(np.int64)
-            self._last = last.astype(np.int64)
             self._sentinel = sentinel
             self._guide = guide
             split_cells = int(np.count_nonzero(first != last))

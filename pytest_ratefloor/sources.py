@@ -347,16 +347,24 @@ class _InverseCdf:
         starts = np.arange(buckets, dtype=np.uint64) << np.uint64(48)
         limits = starts | np.uint64(_LOW48)
         limits[~full] = starts[~full] + cuts[~full]
-        self._alias = (limits, symbol[first], symbol[second])
+        cut16 = np.minimum(cuts >> np.uint64(32), np.uint64(0xFFFF)).astype(np.uint16)
+        self._alias = (limits, cut16, np.concatenate([symbol[first], symbol[second]]))
 
     def _draw_alias(self, words: np.ndarray) -> np.ndarray:
         assert self._alias is not None
-        cut, primary, alias = self._alias
-        bucket = _top16(words)
-        out = primary[bucket]
-        over = np.flatnonzero(words >= cut[bucket])
-        out[over] = alias[bucket[over]]
-        return out
+        limits, cut16, shares = self._alias
+        halves = words.view(np.uint16)
+        little = sys.byteorder == "little"
+        bucket = (halves[3::4] if little else halves[0::4]).astype(np.intp)
+        position = halves[2::4] if little else halves[1::4]  # bits 32..47 of the word
+        # the top 16 of the 48 bits below the bucket decide unless they equal the cut's
+        cut = np.take(cut16, bucket)
+        over = position > cut
+        tie = np.flatnonzero(position == cut)
+        if tie.size:
+            over[tie] = words[tie] >= limits[bucket[tie]]
+        bucket += over.astype(np.intp) << 16  # second shares follow the first ones
+        return np.take(shares, bucket)
 
     def _search(self, words: np.ndarray) -> np.ndarray:
         """Symbols for words whose guide cell holds thresholds (binary search)."""

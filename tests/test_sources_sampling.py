@@ -289,7 +289,8 @@ def test_alias_table_gives_every_symbol_exactly_its_mass(src):
     src.sample(1)
     table = src._table if isinstance(src, sources.Zipf) else src._sampler
     assert table._alias is not None
-    limits, first, second = table._alias
+    limits, _, shares = table._alias
+    first, second = shares[: 1 << 16], shares[1 << 16 :]
     mass: dict[int, int] = {}
     for bucket, (limit, a, b) in enumerate(zip(limits.tolist(), first.tolist(), second.tolist())):
         share = limit - (bucket << 48)  # words of the bucket below the limit go to `first`
@@ -303,6 +304,11 @@ def test_alias_table_gives_every_symbol_exactly_its_mass(src):
         if bounds[i + 1] > bounds[i]:
             expected[v] = bounds[i + 1] - bounds[i]
     assert {k: v for k, v in mass.items() if v} == expected
+    # words on either side of each bucket's limit go to its two shares
+    pick = np.flatnonzero(first != second)[:: max(1, int(np.count_nonzero(first != second)) // 500)]
+    probe = np.concatenate([limits[pick] - np.uint64(1), limits[pick]])
+    want = np.concatenate([first[pick], second[pick]])
+    assert np.array_equal(table(probe), want)
 
 
 @pytest.mark.parametrize("p", [0.5, 0.2, 0.01, 2.0**-10])

@@ -103,4 +103,5 @@ def _plain(value: Any) -> Any:
         return int(value)
     if isinstance(value, float):
         return float(value)
-    raise TypeError(f"measurement field value {value!r} of type {type(value).__name__} is not plain data")
+    kind = type(value).__name__
+    raise TypeError(f"measurement field value {value!r} of type {kind} is not plain data")

@@ -60,13 +60,15 @@ def test_record_is_builtin_only_and_round_trips() -> None:
         check(value)
     json.dumps(record)  # the stdlib json rejects numpy scalars too
     again = Measurement.from_record(record)
-    assert again.bits == 480 and again.n == 1000
+    assert again.bits == 480
+    assert again.n == 1000
     assert again.rate == pytest.approx(0.48)
 
 
 def test_derived_figures() -> None:
     m = _measurement(n=1000, bits=500, floor_bits=400.0)
-    assert m.rate == 0.5 and m.floor_rate == 0.4
+    assert m.rate == 0.5
+    assert m.floor_rate == 0.4
     assert m.excess == pytest.approx(0.1)
     assert m.efficiency == pytest.approx(0.8)
     assert m.key == ("demo", "bernoulli(p=0.1)", 1000, 0)

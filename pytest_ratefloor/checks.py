@@ -629,14 +629,7 @@ def assert_rate(
     tolerance and :func:`impossible_margin` for the impossible-rate rule.
     """
     __tracebackhide__ = True
-    check_floor(floor)
-    tolerance(rel, abs)
-    run, outcome = _run_roundtrip(codec, source, n, seed, edge_cases=False)
-    m = _measurement(run, outcome, floor)
-    failure = rate_verdict(m, rel, abs, codec=outcome.codec, source=source)
-    if failure is not None:
-        raise failure
-    return m
+    return check(codec, source, n=n, seed=seed, floor=floor, rel=rel, abs=abs, edge_cases=False)
 
 
 def check(

@@ -32,18 +32,18 @@ _EXPORTS: dict[str, str] = {
     # the pytest side
     "gate": "pytest_ratefloor.harness",
     # failures
-    "RateFloorFailure": "pytest_ratefloor.failures",
-    "RoundTripFailure": "pytest_ratefloor.failures",
-    "CodecMisbehaviour": "pytest_ratefloor.failures",
-    "RateFailure": "pytest_ratefloor.failures",
-    "ImpossibleRate": "pytest_ratefloor.failures",
-    "PrefixFailure": "pytest_ratefloor.failures",
-    "KraftFailure": "pytest_ratefloor.failures",
-    "CodeShapeFailure": "pytest_ratefloor.failures",
-    "AmbiguousCode": "pytest_ratefloor.failures",
-    "RegressionFailure": "pytest_ratefloor.failures",
-    "CorruptionFailure": "pytest_ratefloor.failures",
-    "LedgerError": "pytest_ratefloor.failures",
+    "RateFloorFailure": "pytest_ratefloor.errors",
+    "RoundTripFailure": "pytest_ratefloor.errors",
+    "CodecMisbehaviour": "pytest_ratefloor.errors",
+    "RateFailure": "pytest_ratefloor.errors",
+    "ImpossibleRate": "pytest_ratefloor.errors",
+    "PrefixFailure": "pytest_ratefloor.errors",
+    "KraftFailure": "pytest_ratefloor.errors",
+    "CodeShapeFailure": "pytest_ratefloor.errors",
+    "AmbiguousCode": "pytest_ratefloor.errors",
+    "RegressionFailure": "pytest_ratefloor.errors",
+    "CorruptionFailure": "pytest_ratefloor.errors",
+    "LedgerError": "pytest_ratefloor.errors",
 }
 
 __all__ = ["__version__", *_EXPORTS]
@@ -76,40 +76,40 @@ if TYPE_CHECKING:  # pragma: no cover - for type checkers only
     from pytest_ratefloor.codes import assert_prefix_free as assert_prefix_free
     from pytest_ratefloor.codes import assert_uniquely_decodable as assert_uniquely_decodable
     from pytest_ratefloor.corruption import assert_survives_corruption as assert_survives_corruption
-    from pytest_ratefloor.failures import (
+    from pytest_ratefloor.errors import (
         AmbiguousCode as AmbiguousCode,
     )
-    from pytest_ratefloor.failures import (
+    from pytest_ratefloor.errors import (
         CodecMisbehaviour as CodecMisbehaviour,
     )
-    from pytest_ratefloor.failures import (
+    from pytest_ratefloor.errors import (
         CodeShapeFailure as CodeShapeFailure,
     )
-    from pytest_ratefloor.failures import (
+    from pytest_ratefloor.errors import (
         CorruptionFailure as CorruptionFailure,
     )
-    from pytest_ratefloor.failures import (
+    from pytest_ratefloor.errors import (
         ImpossibleRate as ImpossibleRate,
     )
-    from pytest_ratefloor.failures import (
+    from pytest_ratefloor.errors import (
         KraftFailure as KraftFailure,
     )
-    from pytest_ratefloor.failures import (
+    from pytest_ratefloor.errors import (
         LedgerError as LedgerError,
     )
-    from pytest_ratefloor.failures import (
+    from pytest_ratefloor.errors import (
         PrefixFailure as PrefixFailure,
     )
-    from pytest_ratefloor.failures import (
+    from pytest_ratefloor.errors import (
         RateFailure as RateFailure,
     )
-    from pytest_ratefloor.failures import (
+    from pytest_ratefloor.errors import (
         RateFloorFailure as RateFloorFailure,
     )
-    from pytest_ratefloor.failures import (
+    from pytest_ratefloor.errors import (
         RegressionFailure as RegressionFailure,
     )
-    from pytest_ratefloor.failures import (
+    from pytest_ratefloor.errors import (
         RoundTripFailure as RoundTripFailure,
     )
     from pytest_ratefloor.harness import gate as gate

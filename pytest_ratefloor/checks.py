@@ -9,7 +9,7 @@ rather than doubling the work. Edge cases (empty input, single symbols,
 constant runs, alternation, lengths 1…17 and around 2¹⁶, every symbol of
 the alphabet) are encoded separately.
 
-Failures are ``AssertionError`` subclasses from :mod:`pytest_ratefloor.failures`:
+Failures are ``AssertionError`` subclasses from :mod:`pytest_ratefloor.errors`:
 ``RoundTripFailure`` (names the case, its length, the first mismatching
 index, expected vs decoded and a window around it), ``CodecMisbehaviour``
 (raised, wrong type or length, mutated input, not deterministic — naming
@@ -39,10 +39,10 @@ from pytest_ratefloor.codecs import (
     Codec,
     CodecContractError,
     Encoded,
-    PackingError,
+    LayoutError,
     as_codec,
 )
-from pytest_ratefloor.failures import (
+from pytest_ratefloor.errors import (
     CodecMisbehaviour,
     ImpossibleRate,
     RateFailure,
@@ -222,8 +222,8 @@ def _encode(codec: Codec, symbols: np.ndarray, run: _Run, case: str) -> Encoded:
         return codec.encode(symbols)
     except CodecContractError as exc:
         raise run.misbehaviour(case, str(exc)) from None
-    except PackingError as exc:
-        raise PackingError(
+    except LayoutError as exc:
+        raise LayoutError(
             f"{exc} — codec {codec.name!r} on {case} ({run.origin})"
         ) from None
     except Exception as exc:

@@ -23,6 +23,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
+from pytest_ratefloor.errors import CommandLineError
 from pytest_ratefloor.ledger import Key, Ledger, LedgerEntry, LedgerError, compare
 from pytest_ratefloor.report import CAUTION, CaseRow, markdown_tables
 
@@ -34,18 +35,15 @@ DIFF_STATUSES = ("regressed", "resampled", "within-slack", "improved", "unchange
                  "dropped")
 
 
-class CliError(Exception):
-    """A user error: printed as one line on stderr, exit status 2."""
-
 
 def _load(path: str) -> Ledger:
     p = Path(path)
     if not p.exists():
-        raise CliError(f"{path}: no such file")
+        raise CommandLineError(f"{path}: no such file")
     try:
         return Ledger.load(p)
     except LedgerError as exc:
-        raise CliError(str(exc)) from None
+        raise CommandLineError(str(exc)) from None
 
 
 # -- show ------------------------------------------------------------------------------
@@ -199,11 +197,11 @@ class EntropyFigures:
 def entropy_figures(path: Path, symbol: str, order: int) -> EntropyFigures:
     """Read ``path`` and compute its figures (``sources.from_file`` gives the estimates)."""
     if not path.is_file():
-        raise CliError(f"{path}: no such file")
+        raise CommandLineError(f"{path}: no such file")
     data = path.read_bytes()
     width = SYMBOL_WIDTH[symbol]
     if width > 1 and len(data) % int(width):
-        raise CliError(f"{path}: {len(data)} bytes is not a whole number of {symbol} symbols")
+        raise CommandLineError(f"{path}: {len(data)} bytes is not a whole number of {symbol} symbols")
 
     import numpy as np
 
@@ -212,7 +210,7 @@ def entropy_figures(path: Path, symbol: str, order: int) -> EntropyFigures:
         zeroth = sources.from_file(path, symbol=symbol, order=0)
         higher = sources.from_file(path, symbol=symbol, order=order) if order > 0 else None
     except ValueError as exc:
-        raise CliError(str(exc)) from None
+        raise CommandLineError(str(exc)) from None
     symbols = np.asarray(zeroth.data)
     contexts = None
     if order > 0:
@@ -297,22 +295,22 @@ def _run(args: argparse.Namespace) -> int:
         try:
             slack = float(args.slack)
         except ValueError:
-            raise CliError(f"--slack: expected a relative slack such as 0.01, got {args.slack!r}") \
+            raise CommandLineError(f"--slack: expected a relative slack such as 0.01, got {args.slack!r}") \
                 from None
         if not 0.0 <= slack < math.inf:
-            raise CliError(f"--slack: must be a finite number >= 0, got {args.slack!r}")
+            raise CommandLineError(f"--slack: must be a finite number >= 0, got {args.slack!r}")
         old, new = _load(args.old), _load(args.new)
         lines = diff(old, new, slack)
         sys.stdout.write(render_diff(old, new, lines, args.format))
         return 1 if diff_counts(lines)["regressed"] else 0
     if args.command == "entropy":
         if args.order < 0:
-            raise CliError(f"--order: must be >= 0, got {args.order}")
+            raise CommandLineError(f"--order: must be >= 0, got {args.order}")
         figures = [entropy_figures(Path(f), args.symbol, args.order) for f in args.files]
         sys.stdout.write("\n".join(render_entropy(f) for f in figures) + "\n")
         sys.stdout.write(ENTROPY_NOTE + "\n")
         return 0
-    raise CliError(f"unknown command {args.command!r}")  # pragma: no cover - argparse guards
+    raise CommandLineError(f"unknown command {args.command!r}")  # pragma: no cover - argparse guards
 
 
 def main(argv: Sequence[str] | None = None) -> int:
@@ -325,7 +323,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         return code
     try:
         return _run(args)
-    except CliError as exc:
+    except CommandLineError as exc:
         print(f"ratefloor: error: {exc}", file=sys.stderr)
         return 2
     except OSError as exc:

@@ -5,7 +5,7 @@ A codec under test comes in one of three shapes:
 * ``StreamCodec(encode, decode)`` — the team's own bit/byte stream coder:
   ``encode(symbols) -> bytes | bytearray | memoryview | bitarray | (bytes, nbits)``
   and ``decode(data, n) -> sequence of n ints``;
-* ``ByteCodec(compress, decompress, packing=...)`` — a general byte
+* ``ByteCodec(compress, decompress, symbol=...)`` — a general byte
   compressor (zlib, bz2, lzma, ...): the symbols are packed into bytes first;
 * a ``Codebook`` (a symbol code from :mod:`pytest_ratefloor.codes`), encoded
   and decoded by bitarray's C prefix-code encoder and decode tree.
@@ -17,34 +17,16 @@ exact bit count) and whose ``decode`` returns an ``int64`` array of exactly
 return type, wrong length, inconsistent bit count) raise
 :class:`CodecContractError`; the checks turn it into a ``CodecMisbehaviour``
 that names the codec, the source, ``n`` and the seed. A symbol that does not
-fit the chosen byte packing raises :class:`PackingError` (a ``ValueError``):
+fit the chosen symbol layout raises :class:`LayoutError` (a ``ValueError``):
 that is a configuration mistake, not a codec fault.
 
 Rate accounting: exact bits for a ``bitarray`` or ``(bytes, nbits)``;
 ``8 · len`` for a byte string. Everything the decoder receives is counted
 (the decoder is told only ``n`` besides the payload).
 
-Byte packing (``ByteCodec(packing=...)``):
-
-========================  ====================================================
-``"bits"``                symbols 0/1, 8 per byte, first symbol in the most
-                          significant bit; with ``n`` known the tail bits of
-                          the last byte are padding (zero)
-``"u8"``                  one byte per symbol, 0..255
-``"u16le"``/``"u32le"``   little-endian unsigned 16/32-bit words
-``"i32le"``               little-endian two's-complement 32-bit words
-``"zigzag-u8"`` etc.      signed symbols mapped by zig-zag (0, −1, 1, −2, 2, …
-                          → 0, 1, 2, 3, 4, …) then ``u8``/``u16le``/``u32le``
-``"auto"``                chosen from the source's alphabet when the codec is
-                          bound to a source (:meth:`ByteCodec.for_source`):
-                          binary alphabet ⊆ {0, 1} → ``"bits"``; ⊆ 0..255 →
-                          ``"u8"``; else the narrowest of ``"u16le"``/``"u32le"``;
-                          alphabets with negative symbols use zig-zag (common
-                          practice for residuals: small magnitudes stay small)
-                          with the narrowest word that fits. For an unbounded
-                          alphabet the range is that of ``source.pmf_table()``
-                          (all but 2⁻⁶⁰ of the mass).
-========================  ====================================================
+Symbol layouts (``ByteCodec(symbol=...)``, ``"auto"`` by default) are described
+in :mod:`pytest_ratefloor.layouts`; ``packing=`` is accepted as the older
+name of the same option.
 """
 
 from __future__ import annotations
@@ -56,34 +38,26 @@ from typing import TYPE_CHECKING, Any, Protocol, runtime_checkable
 import numpy as np
 from bitarray import bitarray
 
+from pytest_ratefloor import validation
+from pytest_ratefloor.errors import CodecContractError, LayoutError
+from pytest_ratefloor.layouts import AUTO, LAYOUTS, pack, packed_size, resolve_layout, unpack
+
 if TYPE_CHECKING:
     from pytest_ratefloor.sources import Source
 
 __all__ = [
-    "PACKINGS",
     "ByteCodec",
     "CodebookCodec",
     "Codec",
     "CodecContractError",
     "Encoded",
-    "PackingError",
+    "LayoutError",
     "StreamCodec",
     "as_codec",
-    "resolve_packing",
     "symbols_from_decoder",
 ]
 
 
-class CodecContractError(Exception):
-    """The codec broke the adapter contract (wrong type, wrong length, bad bit count).
-
-    The message says what was returned and what was expected; the checks add
-    the codec name, the source, ``n`` and the seed.
-    """
-
-
-class PackingError(ValueError):
-    """A symbol does not fit the byte packing of a ``ByteCodec`` (or the packing is unknown)."""
 
 
 @dataclass(frozen=True)
@@ -141,14 +115,12 @@ def _callable_name(fn: Callable[..., Any]) -> str:
 
 
 def _check_name(name: object, parameter: str = "name") -> str:
-    if not isinstance(name, str) or not name.strip():
-        raise ValueError(f"codec {parameter} must be a non-empty string, got {name!r}")
-    return name
+    return validation.text(name, f"codec {parameter}")
 
 
 def _check_version(version: object) -> str | None:
     if version is not None and not isinstance(version, str):
-        raise ValueError(f"codec version must be a string or None, got {version!r}")
+        raise TypeError(f"codec version must be a string or None, got {validation.show(version)}")
     return version
 
 
@@ -284,10 +256,8 @@ class StreamCodec:
         name: str | None = None,
         version: str | None = None,
     ) -> None:
-        if not callable(encode):
-            raise ValueError(f"StreamCodec encode must be callable, got {encode!r}")
-        if not callable(decode):
-            raise ValueError(f"StreamCodec decode must be callable, got {decode!r}")
+        validation.function(encode, "StreamCodec encode")
+        validation.function(decode, "StreamCodec decode")
         self._encode = encode
         self._decode = decode
         self.name = _check_name(name if name is not None else _callable_name(encode))
@@ -309,132 +279,13 @@ class StreamCodec:
         return self
 
 
-# ---------------------------------------------------------------- byte packing
-
-@dataclass(frozen=True)
-class _Packing:
-    name: str
-    dtype: str | None  # numpy dtype of one packed word; None for "bits"
-    lo: int
-    hi: int
-    zigzag: bool = False
-
-
-PACKINGS: dict[str, _Packing] = {
-    p.name: p
-    for p in (
-        _Packing("bits", None, 0, 1),
-        _Packing("u8", "u1", 0, 0xFF),
-        _Packing("u16le", "<u2", 0, 0xFFFF),
-        _Packing("u32le", "<u4", 0, 0xFFFF_FFFF),
-        _Packing("i32le", "<i4", -(2**31), 2**31 - 1),
-        _Packing("zigzag-u8", "u1", -(2**7), 2**7 - 1, zigzag=True),
-        _Packing("zigzag-u16le", "<u2", -(2**15), 2**15 - 1, zigzag=True),
-        _Packing("zigzag-u32le", "<u4", -(2**31), 2**31 - 1, zigzag=True),
-    )
-}
-
-
-def _packing_for_range(lo: int, hi: int) -> str:
-    """The ``"auto"`` rule for a symbol range ``lo..hi``."""
-    if lo >= 0:
-        for name in ("bits", "u8", "u16le", "u32le"):
-            if hi <= PACKINGS[name].hi:
-                return name
-    else:
-        for name in ("zigzag-u8", "zigzag-u16le", "zigzag-u32le"):
-            p = PACKINGS[name]
-            if p.lo <= lo and hi <= p.hi:
-                return name
-    raise PackingError(
-        f"no byte packing holds the symbol range {lo}..{hi} (widest: 32-bit words); "
-        "wrap the codec in a StreamCodec instead"
-    )
-
-
-def source_symbol_range(source: Source) -> tuple[int, int]:
-    """The symbol range a byte packing must hold for ``source``.
-
-    The declared ``min_symbol``/``max_symbol`` where finite; for an unbounded
-    side the extreme of ``source.pmf_table()`` (all but 2⁻⁶⁰ of the mass).
-    """
-    lo, hi = source.min_symbol, source.max_symbol
-    if lo is None or hi is None:
-        table_symbols, _ = source.pmf_table()
-        if lo is None:
-            lo = int(np.min(table_symbols))
-        if hi is None:
-            hi = int(np.max(table_symbols))
-    return int(lo), int(hi)
-
-
-def resolve_packing(packing: str, source: Source | None = None) -> str:
-    """Check a packing name; resolve ``"auto"`` from the source's alphabet."""
-    if packing == "auto":
-        if source is None:
-            raise PackingError(
-                "packing='auto' is resolved from the source's alphabet; bind the codec to a "
-                "source with .for_source(source) or name a packing "
-                f"({', '.join(sorted(PACKINGS))})"
-            )
-        return _packing_for_range(*source_symbol_range(source))
-    if packing not in PACKINGS:
-        raise PackingError(
-            f"unknown packing {packing!r}; expected 'auto' or one of {', '.join(sorted(PACKINGS))}"
-        )
-    return packing
-
-
-def pack(symbols: np.ndarray, packing: str, trusted: bool = False) -> bytes:
-    """Pack int symbols into bytes; a symbol that does not fit raises PackingError naming it.
-
-    ``trusted=True`` skips the range scan when the caller guarantees that
-    every symbol fits (a sample of a source whose declared range fits).
-    """
-    p = PACKINGS[packing]
-    arr = np.asarray(symbols)
-    if len(arr) and not trusted:
-        lo, hi = int(arr.min()), int(arr.max())
-        if lo < p.lo or hi > p.hi:
-            bad = np.flatnonzero((arr < p.lo) | (arr > p.hi))[0]
-            raise PackingError(
-                f"symbol {int(arr[bad])} at index {bad} does not fit packing {packing!r} "
-                f"(symbols {p.lo}..{p.hi})"
-            )
-    if p.dtype is None:
-        return np.packbits(arr.astype(np.uint8)).tobytes()
-    if p.zigzag:
-        wide = arr.astype(np.int64)
-        arr = np.where(wide >= 0, 2 * wide, -2 * wide - 1)
-    return arr.astype(p.dtype).tobytes()
-
-
-def packed_size(n: int, packing: str) -> int:
-    """Bytes that ``n`` symbols take in ``packing``."""
-    p = PACKINGS[packing]
-    if p.dtype is None:
-        return (n + 7) // 8
-    return n * np.dtype(p.dtype).itemsize
-
-
-def unpack(data: bytes, n: int, packing: str) -> np.ndarray:
-    """Inverse of :func:`pack` for exactly ``n`` symbols (``len(data)`` must match)."""
-    p = PACKINGS[packing]
-    raw = np.frombuffer(data, dtype=np.uint8)
-    if p.dtype is None:
-        return np.unpackbits(raw, count=n).astype(np.int64)
-    words = np.frombuffer(data, dtype=p.dtype).astype(np.int64)
-    if p.zigzag:
-        words = np.where(words & 1, -(words >> 1) - 1, words >> 1)
-    return words
-
-
 class ByteCodec:
     """A general byte compressor: ``compress(bytes) -> bytes``, ``decompress(bytes) -> bytes``.
 
-    The symbols are packed into bytes first (see the module docstring for
-    the packing rules); the rate is ``8 · len(compressed)``. ``packing="auto"``
-    is resolved from the source when the checks bind the codec to it.
+    The symbols are written as bytes first in the layout ``symbol`` (see
+    :mod:`pytest_ratefloor.layouts`; ``packing`` is the older name of the same
+    option); the rate is ``8 · len(compressed)``. ``symbol="auto"`` is
+    resolved from the source when the checks bind the codec to it.
     """
 
     def __init__(
@@ -443,46 +294,57 @@ class ByteCodec:
         decompress: Callable[[bytes], Any],
         name: str | None = None,
         version: str | None = None,
-        packing: str = "auto",
+        symbol: str = AUTO,
+        *,
+        packing: str | None = None,
     ) -> None:
-        if not callable(compress):
-            raise ValueError(f"ByteCodec compress must be callable, got {compress!r}")
-        if not callable(decompress):
-            raise ValueError(f"ByteCodec decompress must be callable, got {decompress!r}")
-        if packing != "auto":
-            resolve_packing(packing)
+        validation.function(compress, "ByteCodec compress")
+        validation.function(decompress, "ByteCodec decompress")
+        if packing is not None:
+            if symbol != AUTO and symbol != packing:
+                raise ValueError(
+                    f"ByteCodec: symbol={symbol!r} and packing={packing!r} name the same "
+                    "option; give one"
+                )
+            symbol = packing
+        if symbol != AUTO:
+            resolve_layout(symbol)
         self._compress = compress
         self._decompress = decompress
         self.name = _check_name(name if name is not None else _callable_name(compress))
         self.version = _check_version(version)
-        self.packing = packing
-        # Set by for_source when the source's declared range fits the packing:
+        self.symbol = symbol
+        # Set by for_source when the source's declared range fits the layout:
         # the source's samples then need no range scan.
         self._trusted = False
 
+    @property
+    def packing(self) -> str:
+        """The older name of :attr:`symbol`."""
+        return self.symbol
+
     def __repr__(self) -> str:
-        return f"ByteCodec(name={self.name!r}, version={self.version!r}, packing={self.packing!r})"
+        return f"ByteCodec(name={self.name!r}, version={self.version!r}, symbol={self.symbol!r})"
 
     def for_source(self, source: Source) -> ByteCodec:
-        """This codec as used on ``source``: ``"auto"`` packing resolved.
+        """This codec as used on ``source``: an ``"auto"`` layout resolved.
 
-        When the source declares a finite range that fits the packing, the
+        When the source declares a finite range that fits the layout, the
         bound codec skips the per-call range scan of the symbols (the checks
         only feed it symbols of that source).
         """
-        packing = resolve_packing(self.packing, source)
+        layout = resolve_layout(self.symbol, source)
         bound = ByteCodec(
-            self._compress, self._decompress, name=self.name, version=self.version, packing=packing
+            self._compress, self._decompress, name=self.name, version=self.version, symbol=layout
         )
         lo, hi = source.min_symbol, source.max_symbol
-        p = PACKINGS[packing]
-        bound._trusted = lo is not None and hi is not None and p.lo <= lo and hi <= p.hi
+        bound._trusted = lo is not None and hi is not None and LAYOUTS[layout].holds(lo, hi)
         return bound
 
     def encode(self, symbols: np.ndarray) -> Encoded:
-        """Pack, compress, and charge ``8 · len`` bits."""
-        packing = resolve_packing(self.packing)
-        out = self._compress(pack(symbols, packing, trusted=self._trusted))
+        """Write the symbols in the layout, compress, and charge ``8 · len`` bits."""
+        layout = resolve_layout(self.symbol)
+        out = self._compress(pack(symbols, layout, trusted=self._trusted))
         raw = _bytes_of(out)
         if raw is None:
             raise CodecContractError(
@@ -491,8 +353,8 @@ class ByteCodec:
         return Encoded(payload=raw, bits=8 * len(raw))
 
     def decode(self, encoded: Encoded, n: int) -> np.ndarray:
-        """Decompress and unpack exactly ``n`` symbols."""
-        packing = resolve_packing(self.packing)
+        """Decompress and read back exactly ``n`` symbols."""
+        layout = resolve_layout(self.symbol)
         out = self._decompress(encoded.payload)
         raw = _bytes_of(out)
         if raw is None:
@@ -500,13 +362,13 @@ class ByteCodec:
                 f"decompressor returned {_type_name(out)}; expected bytes, bytearray or "
                 "memoryview"
             )
-        want = packed_size(n, packing)
+        want = packed_size(n, layout)
         if len(raw) != want:
             raise CodecContractError(
-                f"decompressor returned {len(raw)} bytes; {n} symbols packed {packing!r} "
+                f"decompressor returned {len(raw)} bytes; {n} symbols in layout {layout!r} "
                 f"take {want} bytes"
             )
-        return unpack(raw, n, packing)
+        return unpack(raw, n, layout)
 
 
 class CodebookCodec:

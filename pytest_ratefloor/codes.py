@@ -45,12 +45,12 @@ import numpy as np
 import numpy.typing as npt
 from bitarray import bitarray, decodetree, frozenbitarray
 
-from pytest_ratefloor.failures import (
+from pytest_ratefloor.errors import (
     AmbiguousCode,
     CodeShapeFailure,
     KraftFailure,
     PrefixFailure,
-    SearchLimitExceeded,
+    SearchLimitError,
 )
 
 __all__ = [
@@ -76,7 +76,7 @@ __all__ = [
 ]
 
 #: Default bound of the Sardinas–Patterson search: the number of distinct dangling
-#: suffixes it may settle before giving up with :class:`SearchLimitExceeded`. The
+#: suffixes it may settle before giving up with :class:`SearchLimitError`. The
 #: dangling suffixes of a code are suffixes of its codewords, so the search always
 #: ends by itself after at most Σℓ of them; the bound only keeps a huge table from
 #: running for minutes. Each settled suffix costs O(ℓmax + matches) dictionary work.
@@ -804,7 +804,7 @@ def ambiguity(
     is a codeword. Dangling suffixes are explored shortest-total-length first
     (Dijkstra on the length of the longer parse), recording how each arose, so both
     parses of the shortest ambiguous string can be rebuilt. A prefix-free code
-    returns None at once. Raises :class:`SearchLimitExceeded` after ``limit``
+    returns None at once. Raises :class:`SearchLimitError` after ``limit``
     distinct dangling suffixes.
     """
     cb = _as_codebook(code)
@@ -841,7 +841,7 @@ def ambiguity(
             continue
         settled[suffix] = how
         if len(settled) > limit:
-            raise SearchLimitExceeded(
+            raise SearchLimitError(
                 f"Sardinas–Patterson search on codebook {cb.name!r} passed limit={limit} "
                 f"dangling suffixes without a verdict; raise limit= to search further"
             )
@@ -904,7 +904,7 @@ def _rebuild(
 def assert_uniquely_decodable(code: CodeLike, limit: int = SP_SUFFIX_LIMIT) -> None:
     """Fail (:class:`AmbiguousCode`) with a shortest ambiguous bit string and its two
     parses. Prefix-free codes pass at once; otherwise Sardinas–Patterson, bounded by
-    ``limit`` dangling suffixes (:class:`SearchLimitExceeded` past it)."""
+    ``limit`` dangling suffixes (:class:`SearchLimitError` past it)."""
     __tracebackhide__ = True
     cb = _as_codebook(code)
     found = ambiguity(cb, limit=limit)

@@ -4,7 +4,7 @@ This module holds the corruption check: a deterministic schedule of damage
 (truncations, single and burst bit flips, appended garbage, random bytes of
 the same length), the isolated worker process that feeds each damaged stream
 to the decoder, and :func:`assert_survives_corruption`, which turns what went
-wrong into a :class:`~pytest_ratefloor.failures.CorruptionFailure` with a
+wrong into a :class:`~pytest_ratefloor.errors.CorruptionFailure` with a
 replay file.
 
 What counts as surviving
@@ -90,7 +90,7 @@ from typing import Any, Literal, cast
 import numpy as np
 from bitarray import bitarray
 
-from pytest_ratefloor.failures import CodecMisbehaviour, CorruptionFailure
+from pytest_ratefloor.errors import CodecMisbehaviour, CorruptionFailure, CorruptionSetupError
 
 __all__ = [
     "DEFAULT_MEMORY_LIMIT",
@@ -135,10 +135,6 @@ _STATUS_COUNTED = {
     "silent": "returned wrong data silently",
 }
 
-
-class CorruptionSetupError(RuntimeError):
-    """The isolated worker cannot be set up (e.g. a decoder that does not pickle
-    where ``fork`` is unavailable). Not a fault of the codec."""
 
 
 # --------------------------------------------------------------------------
@@ -1132,9 +1128,9 @@ def assert_survives_corruption(
     without raising is a failure; output that the codec adapter rejects
     (wrong type or length) counts as returned, not as detected.
 
-    Raises :class:`~pytest_ratefloor.failures.CorruptionFailure` naming each
+    Raises :class:`~pytest_ratefloor.errors.CorruptionFailure` naming each
     failed corruption (the run stops after :data:`MAX_FAILURES`),
-    :class:`~pytest_ratefloor.failures.CodecMisbehaviour` if the encoder fails
+    :class:`~pytest_ratefloor.errors.CodecMisbehaviour` if the encoder fails
     on the clean sample, and :class:`CorruptionSetupError` if no worker can be
     started. Returns the :class:`CorruptionRun` when every trial survived.
     """

@@ -50,11 +50,13 @@ Each floor is a number of bits for one sample ``x₁…xₙ`` of a source:
 from __future__ import annotations
 
 import math
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Literal
 
 import numpy as np
 from numpy.typing import ArrayLike
 from scipy.special import gammaln
+
+from pytest_ratefloor import validation
 
 if TYPE_CHECKING:
     from pytest_ratefloor.sources import Source
@@ -62,6 +64,7 @@ if TYPE_CHECKING:
 __all__ = [
     "FLOORS",
     "HUFFMAN_TAIL",
+    "Floor",
     "adaptive_bits",
     "check_floor",
     "empirical_bits",
@@ -71,7 +74,10 @@ __all__ = [
     "symbol_counts",
 ]
 
-FLOORS: dict[str, str] = {
+#: The name of a floor, as ``floor=`` takes it.
+Floor = Literal["entropy", "sample", "empirical", "huffman", "adaptive"]
+
+FLOORS: dict[Floor, str] = {
     "entropy": "n·H, the entropy of the source",
     "sample": "the self-information of the sample, −log2 P(x1…xn)",
     "empirical": "n·Ĥ of the sample's order-0 histogram",
@@ -84,11 +90,9 @@ _LN2 = math.log(2.0)
 _huffman_cache: dict[str, float] = {}
 
 
-def check_floor(floor: object) -> str:
-    """Return ``floor`` if it names a floor, else raise ValueError naming it."""
-    if not isinstance(floor, str) or floor not in FLOORS:
-        raise ValueError(f"unknown floor {floor!r}; expected one of {', '.join(FLOORS)}")
-    return floor
+def check_floor(floor: object) -> Floor:
+    """Return ``floor`` if it names a floor (TypeError / ValueError naming it otherwise)."""
+    return validation.choice(floor, "floor", FLOORS)
 
 
 def symbol_counts(sample: ArrayLike) -> np.ndarray:

@@ -48,7 +48,13 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Literal, Protocol
 
-from pytest_ratefloor.failures import LedgerError, RegressionFailure
+from pytest_ratefloor.errors import (
+    LedgerError,
+    NewerLedgerError,
+    RegressionFailure,
+    SampleMismatchError,
+    UnreadableLedgerError,
+)
 from pytest_ratefloor.measurement import Measurement
 
 #: Version of the ledger layout this plugin reads and writes.
@@ -73,17 +79,7 @@ STATUSES: tuple[Status, ...] = (
 )
 
 
-class UnreadableLedger(LedgerError):
-    """The ledger file is not valid JSON or not a well-formed ledger (corrupt or truncated)."""
 
-
-class NewerLedger(LedgerError):
-    """The ledger was written with a newer schema than this plugin understands."""
-
-
-class SampleMismatch(LedgerError):
-    """The ledger entry was measured on a different sample (fingerprint differs):
-    the source spec changed meaning, so the two bit counts cannot be compared."""
 
 
 def case_label(key: Key) -> str:
@@ -146,19 +142,19 @@ class LedgerEntry:
         """Validate one entry of a loaded file; errors name the file and the case."""
         where = f"{path}: case {label!r}"
         if not isinstance(obj, dict):
-            raise UnreadableLedger(f"{where} is not a JSON object")
+            raise UnreadableLedgerError(f"{where} is not a JSON object")
 
         def need(name: str, kind: type | tuple[type, ...], optional: bool = False) -> Any:
             if name not in obj:
                 if optional:
                     return None
-                raise UnreadableLedger(f"{where} lacks the field {name!r}")
+                raise UnreadableLedgerError(f"{where} lacks the field {name!r}")
             value = obj[name]
             if value is None and optional:
                 return None
             # bool is an int subclass: a 'true' bit count is corruption, not a number
             if isinstance(value, bool) or not isinstance(value, kind):
-                raise UnreadableLedger(f"{where} has a bad {name!r}: {value!r}")
+                raise UnreadableLedgerError(f"{where} has a bad {name!r}: {value!r}")
             return value
 
         entry = cls(
@@ -172,9 +168,9 @@ class LedgerEntry:
             codec_version=need("codec_version", str, optional=True),
         )
         if entry.bits < 0 or entry.n < 0:
-            raise UnreadableLedger(f"{where} has a negative bit count or size")
+            raise UnreadableLedgerError(f"{where} has a negative bit count or size")
         if case_label(entry.key) != label:
-            raise UnreadableLedger(
+            raise UnreadableLedgerError(
                 f"{where} does not match its fields (expected key {case_label(entry.key)!r}); "
                 "was the file edited by hand?"
             )
@@ -220,7 +216,7 @@ class Environment:
         if not isinstance(obj, dict) or not all(
             isinstance(obj.get(k), str) for k in ("plugin", "numpy", "python", "platform")
         ):
-            raise UnreadableLedger(f"{path}: 'recorded_with' is not a well-formed block: {obj!r}")
+            raise UnreadableLedgerError(f"{path}: 'recorded_with' is not a well-formed block: {obj!r}")
         return cls(plugin=obj["plugin"], numpy=obj["numpy"], python=obj["python"],
                    platform=obj["platform"])
 
@@ -238,8 +234,8 @@ class Ledger:
     def load(cls, path: Path) -> Ledger:
         """Read ``path``; a missing file is an empty ledger.
 
-        :raises UnreadableLedger: not JSON, truncated, or not a well-formed ledger.
-        :raises NewerLedger: written with a schema newer than :data:`SCHEMA_VERSION`.
+        :raises UnreadableLedgerError: not JSON, truncated, or not a well-formed ledger.
+        :raises NewerLedgerError: written with a schema newer than :data:`SCHEMA_VERSION`.
         """
         path = Path(path)
         try:
@@ -247,11 +243,11 @@ class Ledger:
         except FileNotFoundError:
             return cls(path=path)
         except IsADirectoryError:
-            raise UnreadableLedger(f"{path}: is a directory, not a ledger file") from None
+            raise UnreadableLedgerError(f"{path}: is a directory, not a ledger file") from None
         except UnicodeDecodeError as exc:
-            raise UnreadableLedger(f"{path}: not UTF-8 text ({exc.reason}); corrupt?") from None
+            raise UnreadableLedgerError(f"{path}: not UTF-8 text ({exc.reason}); corrupt?") from None
         except OSError as exc:
-            raise UnreadableLedger(f"{path}: cannot be read ({exc.strerror})") from None
+            raise UnreadableLedgerError(f"{path}: cannot be read ({exc.strerror})") from None
         return cls.parse(text, path)
 
     @classmethod
@@ -262,25 +258,25 @@ class Ledger:
         except json.JSONDecodeError as exc:
             # a ledger always ends with its closing brace; without it, the write was cut short
             hint = "" if text.rstrip().endswith("}") else " (the file ends early: truncated?)"
-            raise UnreadableLedger(
+            raise UnreadableLedgerError(
                 f"{path}: not valid JSON at line {exc.lineno} column {exc.colno}: "
                 f"{exc.msg}{hint}"
             ) from None
         if not isinstance(doc, dict) or doc.get("kind") != LEDGER_KIND:
-            raise UnreadableLedger(
+            raise UnreadableLedgerError(
                 f"{path}: not a pytest-ratefloor ledger (no \"kind\": {LEDGER_KIND!r})"
             )
         schema = doc.get("schema")
         if isinstance(schema, bool) or not isinstance(schema, int) or schema < 1:
-            raise UnreadableLedger(f"{path}: bad schema version {schema!r}")
+            raise UnreadableLedgerError(f"{path}: bad schema version {schema!r}")
         if schema > SCHEMA_VERSION:
-            raise NewerLedger(
+            raise NewerLedgerError(
                 f"{path}: ledger schema {schema} is newer than this pytest-ratefloor "
                 f"understands (schema {SCHEMA_VERSION}); upgrade pytest-ratefloor"
             )
         cases = doc.get("cases")
         if not isinstance(cases, dict):
-            raise UnreadableLedger(f"{path}: 'cases' is missing or not a JSON object")
+            raise UnreadableLedgerError(f"{path}: 'cases' is missing or not a JSON object")
         entries: dict[Key, LedgerEntry] = {}
         for label, obj in cases.items():
             entry = LedgerEntry.from_json(label, obj, path)
@@ -464,7 +460,7 @@ def regression_message(verdict: Verdict, ledger_path: Path, record_hint: str) ->
 
 def resampled_message(entry: LedgerEntry, m: Measurement, ledger_path: Path,
                       record_hint: str) -> str:
-    """The text of a SampleMismatch."""
+    """The text of a SampleMismatchError."""
     return (
         f"ledger entry cannot be compared: {_describe_case(m.key)} was recorded on a "
         f"different sample (fingerprint {entry.fingerprint} in the ledger, {m.fingerprint} now)\n"
@@ -532,7 +528,7 @@ class LedgerRun:
         """Raise for a regression or a resampled case, unless recording.
 
         :raises RegressionFailure: more bits than the ledger allows.
-        :raises SampleMismatch: the ledger entry was measured on another sample.
+        :raises SampleMismatchError: the ledger entry was measured on another sample.
         """
         __tracebackhide__ = True
         if self.record or verdict.status not in ("regressed", "resampled"):
@@ -541,7 +537,7 @@ class LedgerRun:
         if verdict.status == "regressed":
             raise RegressionFailure(regression_message(verdict, self.baseline.path, hint))
         entry = self.baseline.entries[m.key]
-        raise SampleMismatch(resampled_message(entry, m, self.baseline.path, hint))
+        raise SampleMismatchError(resampled_message(entry, m, self.baseline.path, hint))
 
     def admit(self, m: Measurement, slack: float | None = None,
               nodeid: str | None = None) -> Verdict:

@@ -24,8 +24,8 @@ from pytest_ratefloor.ledger import (
     UNREADABLE_SUFFIX,
     Ledger,
     LedgerRun,
-    NewerLedger,
-    UnreadableLedger,
+    NewerLedgerError,
+    UnreadableLedgerError,
     keep_copy,
 )
 
@@ -136,9 +136,9 @@ def open_run(settings: Settings) -> tuple[LedgerRun, Settings]:
         hint += f" --ratefloor-ledger {shlex.quote(str(settings.ledger_path))}"
     try:
         baseline = Ledger.load(settings.ledger_path)
-    except NewerLedger as exc:
+    except NewerLedgerError as exc:
         raise pytest.UsageError(f"ratefloor: {exc}") from None
-    except UnreadableLedger as exc:
+    except UnreadableLedgerError as exc:
         if not settings.record:
             raise pytest.UsageError(
                 f"ratefloor: {exc}. The ledger was left untouched; restore it from version "

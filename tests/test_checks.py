@@ -28,9 +28,9 @@ from pytest_ratefloor.checks import (
     sample_fingerprint,
     tolerance,
 )
-from pytest_ratefloor.codecs import ByteCodec, PackingError, StreamCodec
+from pytest_ratefloor.codecs import ByteCodec, LayoutError, StreamCodec
 from pytest_ratefloor.codes import Codebook
-from pytest_ratefloor.failures import (
+from pytest_ratefloor.errors import (
     ImpossibleRate,
     RateFailure,
     RegressionFailure,
@@ -137,7 +137,7 @@ def test_arguments_are_checked() -> None:
         measure(zlib_codec(), sources.uniform(4), n=0)
     with pytest.raises(ValueError, match=r"seed must be an int, got 1\.5"):
         assert_roundtrip(zlib_codec(), sources.uniform(4), seed=1.5)  # type: ignore[arg-type]
-    with pytest.raises(ValueError, match="unknown floor 'shanon'"):
+    with pytest.raises(ValueError, match="floor must be one of 'entropy'.*got 'shanon'"):
         assert_rate(zlib_codec(), sources.uniform(4), floor="shanon")
     with pytest.raises(TypeError, match=r"must be a pytest_ratefloor\.sources source, got list"):
         measure(zlib_codec(), [1, 2, 3])  # type: ignore[arg-type]
@@ -380,7 +380,7 @@ def test_check_records_before_raising() -> None:
 
 
 def test_packing_that_does_not_fit_is_a_clear_error() -> None:
-    with pytest.raises(PackingError, match=r"symbol \d+ at index \d+ does not fit packing 'bits'.*"
+    with pytest.raises(LayoutError, match=r"symbol \d+ at index \d+ does not fit layout 'bits'.*"
                                            r"codec 'zlib-9'.*source uniform\(k=4\)"):
         measure(zlib_codec(packing="bits"), sources.uniform(4), n=N)
 

@@ -45,7 +45,7 @@ def _kt_sequential_bits(sequence: list[int], k: int) -> float:
 
 def test_floor_names_are_checked() -> None:
     assert check_floor("adaptive") == "adaptive"
-    with pytest.raises(ValueError, match="unknown floor 'shannon'; expected one of entropy"):
+    with pytest.raises(ValueError, match="floor must be one of 'entropy', 'sample'.*got 'shannon'"):
         check_floor("shannon")
 
 

@@ -14,7 +14,7 @@ from bitarray import bitarray
 from pytest_ratefloor import sources
 from pytest_ratefloor.checks import assert_rate, assert_roundtrip, check, measure
 from pytest_ratefloor.codecs import ByteCodec, StreamCodec
-from pytest_ratefloor.failures import CodecMisbehaviour, RoundTripFailure
+from pytest_ratefloor.errors import CodecMisbehaviour, RoundTripFailure
 
 N = 1000
 SOURCE = sources.uniform(16)
@@ -244,7 +244,7 @@ def test_encoder_failing_on_empty_input_is_named() -> None:
 def test_compressor_misbehaviour_through_byte_codec() -> None:
     codec = ByteCodec(zlib.compress, lambda b: zlib.decompress(b)[1:], name="drops-a-byte")
     with pytest.raises(CodecMisbehaviour, match=r"decompressor returned 999 bytes; 1000 symbols "
-                                                r"packed 'u8' take 1000 bytes"):
+                                                r"in layout 'u8' take 1000 bytes"):
         assert_roundtrip(codec, SOURCE, n=N, seed=3)
 
 

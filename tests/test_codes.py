@@ -14,7 +14,7 @@ from bitarray.util import canonical_huffman, huffman_code
 
 from pytest_ratefloor import codes
 from pytest_ratefloor.codes import Codebook
-from pytest_ratefloor.failures import CodeShapeFailure, KraftFailure, PrefixFailure
+from pytest_ratefloor.errors import CodeShapeFailure, KraftFailure, PrefixFailure
 
 
 def brute_prefix_pairs(words: dict[int, str]) -> set[tuple[int, int]]:

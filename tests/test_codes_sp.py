@@ -11,7 +11,7 @@ import pytest
 
 from pytest_ratefloor import codes
 from pytest_ratefloor.codes import Codebook
-from pytest_ratefloor.failures import AmbiguousCode, SearchLimitExceeded
+from pytest_ratefloor.errors import AmbiguousCode, SearchLimitError
 
 
 def brute_shortest_ambiguity(
@@ -144,7 +144,7 @@ def test_prefix_free_codes_pass_at_once_even_when_large() -> None:
 
 def test_search_limit_is_named_when_exceeded() -> None:
     # {0, 01, 011} needs the dangling suffixes '1' and '11' before it can say "UD".
-    with pytest.raises(SearchLimitExceeded, match=r"limit=1 dangling suffixes"):
+    with pytest.raises(SearchLimitError, match=r"limit=1 dangling suffixes"):
         codes.assert_uniquely_decodable(Codebook({0: "0", 1: "01", 2: "011"}, name="x"), limit=1)
     assert codes.ambiguity({0: "0", 1: "01", 2: "011"}, limit=2) is None
     with pytest.raises(ValueError, match="limit must be >= 1"):

@@ -30,7 +30,7 @@ from pytest_ratefloor.corruption import (
     load_damaged,
     run_corruption_trials,
 )
-from pytest_ratefloor.failures import CodecMisbehaviour, CorruptionFailure
+from pytest_ratefloor.errors import CodecMisbehaviour, CorruptionFailure
 
 linux_only = pytest.mark.skipif(
     not sys.platform.startswith("linux"), reason="fork, RLIMIT_AS and signals as on Linux"

@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 
 from pytest_ratefloor import __version__
-from pytest_ratefloor.failures import LedgerError, RegressionFailure
+from pytest_ratefloor.errors import LedgerError, RegressionFailure
 from pytest_ratefloor.ledger import (
     LEDGER_KIND,
     SCHEMA_VERSION,
@@ -21,9 +21,9 @@ from pytest_ratefloor.ledger import (
     Ledger,
     LedgerEntry,
     LedgerRun,
-    NewerLedger,
-    SampleMismatch,
-    UnreadableLedger,
+    NewerLedgerError,
+    SampleMismatchError,
+    UnreadableLedgerError,
     case_label,
     compare,
     keep_copy,
@@ -129,7 +129,7 @@ def test_missing_file_is_an_empty_ledger(tmp_path: Path) -> None:
 def test_unreadable_ledgers_name_the_file(tmp_path: Path, text: str, fragment: str) -> None:
     path = tmp_path / "bad.json"
     path.write_text(text, encoding="utf-8")
-    with pytest.raises(UnreadableLedger, match=r"bad\.json") as info:
+    with pytest.raises(UnreadableLedgerError, match=r"bad\.json") as info:
         Ledger.load(path)
     assert fragment in str(info.value)
     assert path.read_text(encoding="utf-8") == text  # never repaired behind the user's back
@@ -140,7 +140,7 @@ def test_truncated_ledger_is_called_truncated(tmp_path: Path) -> None:
     Ledger(path).merged([meas(), meas(codec="b")]).write()
     full = path.read_bytes()
     path.write_bytes(full[: len(full) // 2])
-    with pytest.raises(UnreadableLedger, match=r"ledger\.json.*truncated"):
+    with pytest.raises(UnreadableLedgerError, match=r"ledger\.json.*truncated"):
         Ledger.load(path)
 
 
@@ -151,21 +151,21 @@ def test_bad_entry_fields_are_named(tmp_path: Path) -> None:
     label = next(iter(doc["cases"]))
     doc["cases"][label]["bits"] = True  # a bool is not a bit count
     path.write_text(json.dumps(doc))
-    with pytest.raises(UnreadableLedger, match="bad 'bits'"):
+    with pytest.raises(UnreadableLedgerError, match="bad 'bits'"):
         Ledger.load(path)
     doc["cases"][label]["bits"] = 5
     doc["cases"]["renamed"] = doc["cases"].pop(label)
     path.write_text(json.dumps(doc))
-    with pytest.raises(UnreadableLedger, match="does not match its fields"):
+    with pytest.raises(UnreadableLedgerError, match="does not match its fields"):
         Ledger.load(path)
 
 
 def test_newer_schema_is_refused(tmp_path: Path) -> None:
     path = tmp_path / "ledger.json"
     path.write_text(json.dumps({"kind": LEDGER_KIND, "schema": SCHEMA_VERSION + 1, "cases": {}}))
-    with pytest.raises(NewerLedger, match=r"schema 2 is newer.*upgrade"):
+    with pytest.raises(NewerLedgerError, match=r"schema 2 is newer.*upgrade"):
         Ledger.load(path)
-    assert issubclass(NewerLedger, LedgerError)
+    assert issubclass(NewerLedgerError, LedgerError)
 
 
 def test_merge_keeps_unmeasured_entries(tmp_path: Path) -> None:
@@ -230,7 +230,7 @@ def test_regression_message_carries_everything(tmp_path: Path) -> None:
 def test_resampled_case_is_an_error_not_a_silent_comparison(tmp_path: Path) -> None:
     base = Ledger(tmp_path / "l.json").merged([meas(bits=1000, fingerprint="aaaa")])
     run = LedgerRun(baseline=base)
-    with pytest.raises(SampleMismatch, match=r"different sample.*aaaa.*bbbb(.|\n)*re-record"):
+    with pytest.raises(SampleMismatchError, match=r"different sample.*aaaa.*bbbb(.|\n)*re-record"):
         run.admit(meas(bits=900, fingerprint="bbbb"))
 
 

@@ -220,7 +220,7 @@ def test_resampled_source_is_a_clear_error(pytester: pytest.Pytester) -> None:
     result = run(pytester)
     result.assert_outcomes(passed=1, failed=1)
     result.stdout.fnmatch_lines([
-        "*SampleMismatch: ledger entry cannot be compared: codec 'beta' on uniform(k=256), "
+        "*SampleMismatchError: ledger entry cannot be compared: codec 'beta' on uniform(k=256), "
         "n=2000, seed=3 was recorded on a different sample (fingerprint 0123456789abcdef*",
         "*re-record the case: pytest --ratefloor-record test_rf_gated.py::test_beta",
     ])

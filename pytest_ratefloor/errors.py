@@ -1,0 +1,145 @@
+"""Every exception the plugin raises, in one place, with one naming scheme.
+
+``*Failure``
+    ``AssertionError`` subclasses: a check found the codec (or its code
+    table, or its rate against the ledger) wanting. pytest reports them as
+    test failures. All derive from :class:`RateFloorFailure`. Three public
+    names from the first release keep their shorter form
+    (:class:`CodecMisbehaviour`, :class:`ImpossibleRate`,
+    :class:`AmbiguousCode`); they are failures all the same.
+``*Error``
+    Something other than the codec is wrong: a ledger file that cannot be
+    used (:class:`LedgerError` and its kinds), a byte layout that cannot hold
+    the symbols (:class:`LayoutError`, a ``ValueError``), a codec adapter
+    contract breach before it is attributed (:class:`CodecContractError`),
+    an isolated worker that cannot start (:class:`CorruptionSetupError`), a
+    bounded search that hit its limit (:class:`SearchLimitError`), a command
+    line mistake (:class:`CommandLineError`).
+
+A bad argument is not here: it is a plain ``TypeError`` (wrong type) or
+``ValueError`` (bad value) from :mod:`pytest_ratefloor.validation`.
+Checks set ``__tracebackhide__`` so a failure's traceback ends at the
+user's call.
+"""
+
+from __future__ import annotations
+
+__all__ = [
+    "AmbiguousCode",
+    "CodeShapeFailure",
+    "CodecContractError",
+    "CodecMisbehaviour",
+    "CommandLineError",
+    "CorruptionFailure",
+    "CorruptionSetupError",
+    "ImpossibleRate",
+    "KraftFailure",
+    "LayoutError",
+    "LedgerError",
+    "NewerLedgerError",
+    "PrefixFailure",
+    "RateFailure",
+    "RateFloorFailure",
+    "RegressionFailure",
+    "RoundTripFailure",
+    "SampleMismatchError",
+    "SearchLimitError",
+    "UnreadableLedgerError",
+]
+
+
+# -- failures: what the checks find ------------------------------------------------
+
+
+class RateFloorFailure(AssertionError):
+    """Base class of every failure the plugin reports."""
+
+
+class RoundTripFailure(RateFloorFailure):
+    """Decoded symbols differ from the symbols that were encoded."""
+
+
+class CodecMisbehaviour(RateFloorFailure):
+    """The codec raised, returned the wrong type or length, mutated its input,
+    or was not deterministic."""
+
+
+class RateFailure(RateFloorFailure):
+    """The measured rate exceeds the floor by more than the tolerance."""
+
+
+class ImpossibleRate(RateFloorFailure):
+    """The measured length is below what any decodable code can reach on the
+    sample: the decoder must be getting information from outside the stream."""
+
+
+class PrefixFailure(RateFloorFailure):
+    """A codeword is a prefix of another (or two codewords are equal)."""
+
+
+class KraftFailure(RateFloorFailure):
+    """The Kraft sum exceeds 1, or is below 1 where a complete code was asked for."""
+
+
+class CodeShapeFailure(RateFloorFailure):
+    """A codeword exceeds the format's length cap, or the table is not canonical."""
+
+
+class AmbiguousCode(RateFloorFailure):
+    """A bit string has two different parses into codewords (not uniquely decodable)."""
+
+
+class RegressionFailure(RateFloorFailure):
+    """The measured bits exceed the committed ledger entry by more than the slack."""
+
+
+class CorruptionFailure(RateFloorFailure):
+    """The decoder hung, crashed, grew memory without bound, or (where detection
+    is promised) silently returned wrong data on a damaged stream."""
+
+
+# -- errors: what is wrong besides the codec ----------------------------------------
+
+
+class LedgerError(Exception):
+    """The ledger file cannot be used: corrupt, truncated, newer schema, or a
+    fingerprint mismatch. Raised as an error, never silently repaired."""
+
+
+class UnreadableLedgerError(LedgerError):
+    """The ledger file is not valid JSON or not a well-formed ledger (corrupt or truncated)."""
+
+
+class NewerLedgerError(LedgerError):
+    """The ledger was written with a newer schema than this plugin understands."""
+
+
+class SampleMismatchError(LedgerError):
+    """The ledger entry was measured on a different sample (fingerprint differs):
+    the source spec changed meaning, so the two bit counts cannot be compared."""
+
+
+class LayoutError(ValueError):
+    """A symbol does not fit a byte layout, or the layout name is unknown."""
+
+
+class CodecContractError(Exception):
+    """A codec broke the adapter contract (wrong type, wrong length, bad bit count).
+
+    The message says what was returned and what was expected; the checks turn
+    it into a :class:`CodecMisbehaviour` naming the codec, the source, ``n``
+    and the seed.
+    """
+
+
+class CorruptionSetupError(RuntimeError):
+    """The isolated decode worker cannot be set up (e.g. a decoder that does not
+    pickle where ``fork`` is unavailable). Not a fault of the codec."""
+
+
+class SearchLimitError(RuntimeError):
+    """A bounded search (e.g. Sardinas–Patterson) hit its documented limit."""
+
+
+class CommandLineError(Exception):
+    """A mistake on the ``ratefloor`` command line: one line on stderr, exit status 2."""

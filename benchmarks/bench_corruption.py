@@ -23,9 +23,8 @@ from collections.abc import Callable
 
 import numpy as np
 
-from pytest_ratefloor.codecs import ByteCodec
+from pytest_ratefloor.codecs import ByteCodec, encoded_from_stream
 from pytest_ratefloor.corruption import (
-    _Stream,
     assert_survives_corruption,
     corruption_schedule,
     run_corruption_trials,
@@ -57,12 +56,13 @@ def main() -> None:
     symbols = np.random.Generator(np.random.PCG64(11)).integers(0, 16, N).astype(np.int64)
     payload = zlib.compress(symbols.astype(np.uint8).tobytes())
     schedule = corruption_schedule(len(payload), TRIALS, seed=0)
-    stream = _Stream.from_payload(payload, "encoder")
+    encoded = encoded_from_stream(payload)
+    stream, shape = encoded.stream, encoded.shape
 
     def bare() -> None:
         for c in schedule:
             with contextlib.suppress(Exception):
-                decode(stream.rebuild(c.apply(stream.data)), N)
+                decode(shape.rebuild(c.apply(stream)).payload, N)
 
     def isolated() -> None:
         run = run_corruption_trials(decode, payload, N, schedule, timeout=2.0)

@@ -2,7 +2,7 @@
 
 The public API is re-exported here lazily (PEP 562), so that loading the
 plugin at pytest start-up does not import numpy-heavy modules a run may not
-need. See README.md for usage and DESIGN.md for the contract.
+need. See README.md for usage and DEVELOPERS.md for the architecture.
 """
 
 from __future__ import annotations
@@ -29,8 +29,10 @@ _EXPORTS: dict[str, str] = {
     "assert_uniquely_decodable": "pytest_ratefloor.codes",
     "assert_survives_corruption": "pytest_ratefloor.corruption",
     "Measurement": "pytest_ratefloor.measurement",
+    "Floor": "pytest_ratefloor.floors",
     # the pytest side
     "gate": "pytest_ratefloor.harness",
+    "RateFloorHarness": "pytest_ratefloor.harness",
     # failures
     "RateFloorFailure": "pytest_ratefloor.errors",
     "RoundTripFailure": "pytest_ratefloor.errors",
@@ -112,5 +114,7 @@ if TYPE_CHECKING:  # pragma: no cover - for type checkers only
     from pytest_ratefloor.errors import (
         RoundTripFailure as RoundTripFailure,
     )
+    from pytest_ratefloor.floors import Floor as Floor
+    from pytest_ratefloor.harness import RateFloorHarness as RateFloorHarness
     from pytest_ratefloor.harness import gate as gate
     from pytest_ratefloor.measurement import Measurement as Measurement

@@ -4,7 +4,7 @@
 
     ratefloor show LEDGER [--format md|json]
     ratefloor diff OLD NEW [--slack REL] [--format text|md]
-    ratefloor entropy FILE... [--symbol u8|bit|u16le|u32le] [--order K]
+    ratefloor entropy FILE... [--symbol LAYOUT] [--order K]
 
 Exit status: 0 on success; ``diff`` exits 1 when any case regressed (needs more
 bits than in OLD, beyond ``--slack``), so it can gate a release job; 2 for any
@@ -23,16 +23,15 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
-from pytest_ratefloor.errors import CommandLineError
-from pytest_ratefloor.ledger import Key, Ledger, LedgerEntry, LedgerError, compare
-from pytest_ratefloor.report import CAUTION, CaseRow, markdown_tables
+from pytest_ratefloor import validation
+from pytest_ratefloor.errors import CommandLineError, LedgerError
+from pytest_ratefloor.layouts import LAYOUTS
+from pytest_ratefloor.ledger import Ledger, entry_json
+from pytest_ratefloor.report import CAUTION, align, markdown_tables, md_cell, signed_pct
+from pytest_ratefloor.verdicts import VERDICTS, Comparison, compare, counts_of, listed
 
-#: Bytes per symbol of each ``--symbol`` layout (``bit``: 1/8).
-SYMBOL_WIDTH = {"u8": 1.0, "bit": 0.125, "u16le": 2.0, "u32le": 4.0}
 #: Layout of ``ratefloor show --format json``.
 SHOW_SCHEMA_VERSION = 1
-DIFF_STATUSES = ("regressed", "resampled", "within-slack", "improved", "unchanged", "new",
-                 "dropped")
 
 
 
@@ -51,7 +50,7 @@ def _load(path: str) -> Ledger:
 
 def show(ledger: Ledger, fmt: str) -> str:
     """The ledger as release-notes Markdown or as versioned JSON."""
-    entries = [ledger.entries[k] for k in sorted(ledger.entries)]
+    rows = [listed(ledger.entries[k]) for k in sorted(ledger.entries)]
     if fmt == "json":
         env = ledger.environment
         doc = {
@@ -59,7 +58,7 @@ def show(ledger: Ledger, fmt: str) -> str:
             "ledger": str(ledger.path), "caution": CAUTION,
             "recorded_with": None if env is None else env.to_json(),
             "cases": [
-                {**e.to_json(), "efficiency": _efficiency(e)} for e in entries
+                {**entry_json(r.case), "efficiency": _finite(r.case.efficiency)} for r in rows
             ],
         }
         return json.dumps(doc, indent=2, sort_keys=True) + "\n"
@@ -68,105 +67,58 @@ def show(ledger: Ledger, fmt: str) -> str:
         env = ledger.environment
         head += [f"Recorded with pytest-ratefloor {env.plugin}, numpy {env.numpy}, "
                  f"Python {env.python} on {env.platform}.", ""]
-    if not entries:
+    if not rows:
         return "\n".join([*head, "The ledger holds no case."]) + "\n"
-    body = markdown_tables([CaseRow.from_entry(e) for e in entries], with_ledger=False)
+    body = markdown_tables(rows, with_ledger=False)
     return "\n".join(head) + "\n" + body.rstrip("\n") + "\n"
 
 
-def _efficiency(e: LedgerEntry) -> float | None:
-    eff = CaseRow.from_entry(e).efficiency
-    return None if eff is None or not math.isfinite(eff) else eff
+def _finite(value: float) -> float | None:
+    return value if math.isfinite(value) else None
 
 
 # -- diff ------------------------------------------------------------------------------
 
 
-@dataclass(frozen=True)
-class DiffLine:
-    key: Key
-    status: str
-    old_bits: int | None
-    new_bits: int | None
-
-    @property
-    def delta_bits(self) -> int | None:
-        if self.old_bits is None or self.new_bits is None:
-            return None
-        return self.new_bits - self.old_bits
-
-    @property
-    def delta_pct(self) -> float | None:
-        if self.old_bits is None or self.new_bits is None:
-            return None
-        if self.old_bits == 0:
-            return 0.0 if self.new_bits == 0 else math.inf
-        return 100.0 * (self.new_bits - self.old_bits) / self.old_bits
-
-
-def diff(old: Ledger, new: Ledger, slack: float = 0.0) -> list[DiffLine]:
+def diff(old: Ledger, new: Ledger, slack: float = 0.0) -> list[Comparison]:
     """Per case: regressed / within-slack / improved / unchanged / resampled / new / dropped."""
-    out: list[DiffLine] = []
-    for key in sorted(set(old.entries) | set(new.entries)):
-        before, after = old.entries.get(key), new.entries.get(key)
-        if after is None:
-            assert before is not None
-            out.append(DiffLine(key, "dropped", before.bits, None))
-        elif before is None:
-            out.append(DiffLine(key, "new", None, after.bits))
-        else:
-            out.append(DiffLine(key, compare(after, before, slack).status, before.bits, after.bits))
-    return out
-
-
-def diff_counts(lines: Sequence[DiffLine]) -> dict[str, int]:
-    counts = dict.fromkeys(DIFF_STATUSES, 0)
-    for line in lines:
-        counts[line.status] += 1
-    return counts
+    return [compare(new.entries.get(key), old.entries.get(key), slack)
+            for key in sorted(set(old.entries) | set(new.entries))]
 
 
 def _bits(value: int | None) -> str:
     return "–" if value is None else f"{value:,}"
 
 
-def _delta(line: DiffLine) -> tuple[str, str]:
+def _delta(line: Comparison) -> tuple[str, str]:
     if line.delta_bits is None or line.delta_pct is None:
         return "–", "–"
-    pct = "+inf%" if math.isinf(line.delta_pct) else f"{line.delta_pct:+.3f}%"
-    return f"{line.delta_bits:+,}", pct
+    return f"{line.delta_bits:+,}", signed_pct(line.delta_pct)
 
 
-def render_diff(old: Ledger, new: Ledger, lines: Sequence[DiffLine], fmt: str) -> str:
+def render_diff(old: Ledger, new: Ledger, lines: Sequence[Comparison], fmt: str) -> str:
     """A table of every case, then the count of each verdict (no average to hide behind)."""
-    counts = diff_counts(lines)
-    tally = ", ".join(f"{counts[s]} {s}" for s in DIFF_STATUSES)
+    counts = counts_of(list(lines))
+    tally = ", ".join(f"{counts[s]} {s}" for s in VERDICTS)
     header = ["codec", "source", "n", "seed", "old bits", "new bits", "Δ bits", "Δ %", "verdict"]
     rows = []
     for line in lines:
         codec, source, n, seed = line.key
-        rows.append([codec, source, str(n), str(seed), _bits(line.old_bits),
-                     _bits(line.new_bits), *_delta(line), line.status])
+        new_bits = None if line.current is None else line.current.bits
+        rows.append([codec, source, str(n), str(seed), _bits(line.ledger_bits),
+                     _bits(new_bits), *_delta(line), str(line.status)])
     if fmt == "md":
-        def cell(text: str) -> str:
-            return text.replace("\\", "\\\\").replace("|", "\\|")
-
         out = [f"## Rate ledger changes: `{old.path.name}` → `{new.path.name}`", "",
                f"**{tally}**", ""]
         if rows:
             out += ["| " + " | ".join(header) + " |",
                     "| " + " | ".join(["---", "---", "---:", "---:", "---:", "---:", "---:",
                                        "---:", "---"]) + " |"]
-            out += ["| " + " | ".join(cell(c) for c in r) + " |" for r in rows]
+            out += ["| " + " | ".join(md_cell(c) for c in r) + " |" for r in rows]
         return "\n".join(out) + "\n"
     table = [header, *rows]
-    widths = [max(len(r[i]) for r in table) for i in range(len(header))]
-    right = {2, 3, 4, 5, 6, 7}
-    text = [f"ratefloor diff: {old.path} -> {new.path}"]
-    for r in table:
-        text.append("  ".join(c.rjust(w) if i in right else c.ljust(w)
-                              for i, (c, w) in enumerate(zip(r, widths))).rstrip())
-    text.append(f"cases: {tally}")
+    text = [f"ratefloor diff: {old.path} -> {new.path}", *align(table, {2, 3, 4, 5, 6, 7}),
+            f"cases: {tally}"]
     return "\n".join(text) + "\n"
 
 
@@ -199,9 +151,11 @@ def entropy_figures(path: Path, symbol: str, order: int) -> EntropyFigures:
     if not path.is_file():
         raise CommandLineError(f"{path}: no such file")
     data = path.read_bytes()
-    width = SYMBOL_WIDTH[symbol]
+    width = LAYOUTS[symbol].bytes_per_symbol
     if width > 1 and len(data) % int(width):
-        raise CommandLineError(f"{path}: {len(data)} bytes is not a whole number of {symbol} symbols")
+        raise CommandLineError(
+            f"{path}: {len(data)} bytes is not a whole number of {symbol} symbols"
+        )
 
     import numpy as np
 
@@ -232,7 +186,7 @@ def render_entropy(f: EntropyFigures) -> str:
         return f"{8.0 * nbytes / n:.4f} bits/symbol" if n else "–"
 
     lines = [
-        f"{f.path}: {f.size:,} bytes = {n:,} {f.symbol} symbols, {f.distinct:,} distinct",
+        f"{f.path}: {f.size:,} bytes = {n:,} symbols (layout {f.symbol}), {f.distinct:,} distinct",
         f"  order-0 entropy (estimate):  {f.h0:.4f} bits/symbol -> floor "
         f"{EntropyFigures.floor_bytes(f.h0, n):,} bytes",
     ]
@@ -280,7 +234,7 @@ def build_parser() -> argparse.ArgumentParser:
     p_diff.add_argument("--format", choices=("text", "md"), default="text")
     p_ent = sub.add_parser("entropy", help="empirical entropy of files, with zlib/lzma sizes")
     p_ent.add_argument("files", nargs="+", metavar="FILE")
-    p_ent.add_argument("--symbol", choices=tuple(SYMBOL_WIDTH), default="u8",
+    p_ent.add_argument("--symbol", choices=tuple(LAYOUTS), default="u8",
                        help="how the bytes form symbols (default u8)")
     p_ent.add_argument("--order", type=int, default=1, metavar="K",
                        help="context length of the conditional estimate (default 1; 0: none)")
@@ -293,16 +247,13 @@ def _run(args: argparse.Namespace) -> int:
         return 0
     if args.command == "diff":
         try:
-            slack = float(args.slack)
-        except ValueError:
-            raise CommandLineError(f"--slack: expected a relative slack such as 0.01, got {args.slack!r}") \
-                from None
-        if not 0.0 <= slack < math.inf:
-            raise CommandLineError(f"--slack: must be a finite number >= 0, got {args.slack!r}")
+            slack = validation.slack(args.slack, "--slack")
+        except ValueError as exc:
+            raise CommandLineError(str(exc)) from None
         old, new = _load(args.old), _load(args.new)
         lines = diff(old, new, slack)
         sys.stdout.write(render_diff(old, new, lines, args.format))
-        return 1 if diff_counts(lines)["regressed"] else 0
+        return 1 if counts_of(lines)["regressed"] else 0
     if args.command == "entropy":
         if args.order < 0:
             raise CommandLineError(f"--order: must be >= 0, got {args.order}")
@@ -310,7 +261,7 @@ def _run(args: argparse.Namespace) -> int:
         sys.stdout.write("\n".join(render_entropy(f) for f in figures) + "\n")
         sys.stdout.write(ENTROPY_NOTE + "\n")
         return 0
-    raise CommandLineError(f"unknown command {args.command!r}")  # pragma: no cover - argparse guards
+    raise CommandLineError(f"unknown command {args.command!r}")  # pragma: no cover
 
 
 def main(argv: Sequence[str] | None = None) -> int:

@@ -10,15 +10,17 @@ A codec under test comes in one of three shapes:
 * a ``Codebook`` (a symbol code from :mod:`pytest_ratefloor.codes`), encoded
   and decoded by bitarray's C prefix-code encoder and decode tree.
 
-:func:`as_codec` turns any of them into a :class:`Codec`, whose ``encode``
-returns an :class:`Encoded` (the payload handed back to the decoder plus the
-exact bit count) and whose ``decode`` returns an ``int64`` array of exactly
-``n`` symbols. Contract breaches that the adapter itself detects (wrong
-return type, wrong length, inconsistent bit count) raise
-:class:`CodecContractError`; the checks turn it into a ``CodecMisbehaviour``
-that names the codec, the source, ``n`` and the seed. A symbol that does not
-fit the chosen symbol layout raises :class:`LayoutError` (a ``ValueError``):
-that is a configuration mistake, not a codec fault.
+:func:`as_codec` turns any of them (and an ``(encode, decode)`` pair of
+functions, or an object with those two methods, as a ``StreamCodec``) into a
+:class:`Codec`, whose ``encode`` returns an :class:`Encoded` (the payload
+handed back to the decoder plus the exact bit count) and whose ``decode``
+returns an ``int64`` array of exactly ``n`` symbols. Contract breaches that
+the adapter itself detects (wrong return type, wrong length, inconsistent
+bit count) raise :class:`CodecContractError`; the checks turn it into a
+``CodecMisbehaviour`` that names the codec, the source, ``n`` and the seed.
+A symbol that does not fit the chosen symbol layout raises
+:class:`LayoutError` (a ``ValueError``): that is a configuration mistake,
+not a codec fault.
 
 Rate accounting: exact bits for a ``bitarray`` or ``(bytes, nbits)``;
 ``8 · len`` for a byte string. Everything the decoder receives is counted
@@ -27,13 +29,20 @@ Rate accounting: exact bits for a ``bitarray`` or ``(bytes, nbits)``;
 Symbol layouts (``ByteCodec(symbol=...)``, ``"auto"`` by default) are described
 in :mod:`pytest_ratefloor.layouts`; ``packing=`` is accepted as the older
 name of the same option.
+
+Replaying damaged streams (what the corruption check needs from a codec):
+:attr:`Encoded.stream` is the payload as bytes, :attr:`Encoded.shape` (a
+:class:`PayloadShape`) turns damaged bytes back into a payload of the shape
+the encoder returned and serialises that shape for a replay file, and every
+adapter's ``replay_statement`` writes the line that feeds a saved payload to
+its own decoder.
 """
 
 from __future__ import annotations
 
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
-from typing import TYPE_CHECKING, Any, Protocol, runtime_checkable
+from typing import TYPE_CHECKING, Any, Literal, Protocol, get_args, runtime_checkable
 
 import numpy as np
 from bitarray import bitarray
@@ -46,18 +55,27 @@ if TYPE_CHECKING:
     from pytest_ratefloor.sources import Source
 
 __all__ = [
+    "PAYLOAD_KINDS",
     "ByteCodec",
     "CodebookCodec",
     "Codec",
     "CodecContractError",
     "Encoded",
     "LayoutError",
+    "PayloadKind",
+    "PayloadShape",
     "StreamCodec",
     "as_codec",
+    "encoded_from_stream",
     "symbols_from_decoder",
 ]
 
+#: The three payload shapes an encoder may return (see :func:`encoded_from_stream`).
+PayloadKind = Literal["bytes", "bitarray", "pair"]
+PAYLOAD_KINDS: tuple[PayloadKind, ...] = get_args(PayloadKind)
 
+BitOrder = Literal["big", "little"]
+_BIT_ORDERS: tuple[BitOrder, ...] = get_args(BitOrder)
 
 
 @dataclass(frozen=True)
@@ -66,20 +84,112 @@ class Encoded:
 
     ``payload`` is handed back to the decoder unchanged (byte strings are
     snapshotted as ``bytes`` so a buffer the encoder reuses cannot change them
-    afterwards); ``bits`` is the exact length charged to the codec.
+    afterwards); ``bits`` is the exact length charged to the codec. The
+    payload is one of the shapes of :data:`PAYLOAD_KINDS`: ``bytes``, a
+    ``bitarray`` or a ``(bytes, nbits)`` pair.
     """
 
     payload: Any
     bits: int
 
-    def signature(self) -> tuple[int, bytes]:
-        """Canonical (bits, bytes) of the payload, for determinism comparisons."""
+    @property
+    def stream(self) -> bytes:
+        """The payload as bytes: a byte string as it is, a ``bitarray`` with its
+        last byte padded by zero bits, the bytes of a ``(bytes, nbits)`` pair."""
         data = self.payload
         if isinstance(data, tuple):
             data = data[0]
         if isinstance(data, bitarray):
-            return self.bits, data.tobytes()
-        return self.bits, bytes(data)
+            return data.tobytes()
+        return bytes(data)
+
+    @property
+    def shape(self) -> PayloadShape:
+        """The payload's shape: what :meth:`rebuild` needs besides the bytes."""
+        data = self.payload
+        if isinstance(data, bitarray):
+            endian: BitOrder = "little" if data.endian == "little" else "big"
+            return PayloadShape("bitarray", pad=-len(data) % 8, endian=endian)
+        if isinstance(data, tuple):
+            return PayloadShape("pair", pad=8 * len(data[0]) - self.bits)
+        if isinstance(data, (bytes, bytearray, memoryview)):
+            return PayloadShape("bytes")
+        raise TypeError(
+            f"payload of type {_type_name(data)} has no stream shape; expected one of "
+            f"{_ENCODER_SHAPES}"
+        )
+
+    def rebuild(self, data: bytes) -> Encoded:
+        """``data`` (e.g. a damaged copy of :attr:`stream`) in this payload's shape."""
+        return self.shape.rebuild(data)
+
+    def signature(self) -> tuple[int, bytes]:
+        """Canonical (bits, bytes) of the payload, for determinism comparisons."""
+        return self.bits, self.stream
+
+
+@dataclass(frozen=True)
+class PayloadShape:
+    """How a payload is laid out apart from its bytes, so that other bytes
+    (a damaged copy of the stream, a saved file) can be handed to the decoder
+    in the shape the encoder returned.
+
+    ``kind`` is one of :data:`PAYLOAD_KINDS`; ``pad`` the number of unused
+    bits at the end of the last byte (0..7; always 0 for ``"bytes"``);
+    ``endian`` the bit order of a ``bitarray`` payload.
+    """
+
+    kind: PayloadKind
+    pad: int = 0
+    endian: BitOrder = "big"
+
+    def __post_init__(self) -> None:
+        validation.choice(self.kind, "payload kind", PAYLOAD_KINDS)
+        validation.integer(self.pad, "pad", minimum=0, maximum=0 if self.kind == "bytes" else 7)
+        validation.choice(self.endian, "endian", _BIT_ORDERS)
+
+    def bits_of(self, size: int) -> int:
+        """The bit count of a stream of ``size`` bytes in this shape:
+        ``8·size`` less the padding (never below 0)."""
+        return max(0, 8 * size - self.pad)
+
+    def rebuild(self, data: bytes) -> Encoded:
+        """``data`` as a payload of this shape, with its bit count.
+
+        ``"bytes"`` → the bytes; ``"bitarray"`` → a ``bitarray`` of the same
+        endianness holding the first :meth:`bits_of` ``(len(data))`` bits;
+        ``"pair"`` → ``(data, that many bits)``. So an unchanged length keeps
+        the exact bit count, a cut removes whole bytes from the end, appended
+        bytes add 8 bits each, and flips in padding bits change nothing.
+        """
+        if type(data) is not bytes:
+            data = bytes(data)
+        if self.kind == "bytes":
+            return Encoded(payload=data, bits=8 * len(data))
+        nbits = self.bits_of(len(data))
+        if self.kind == "pair":
+            return Encoded(payload=(data, nbits), bits=nbits)
+        bits = bitarray(endian=self.endian)
+        bits.frombytes(data)
+        del bits[nbits:]
+        return Encoded(payload=bits, bits=nbits)
+
+    def to_record(self, size: int) -> dict[str, Any]:
+        """Builtin-only description of a ``size``-byte stream in this shape
+        (``shape``, ``nbits``, ``endian``), e.g. for a JSON file beside it."""
+        return {"shape": self.kind, "nbits": self.bits_of(size), "endian": self.endian}
+
+    @classmethod
+    def from_record(cls, record: Mapping[str, Any], size: int) -> PayloadShape:
+        """The shape described by :meth:`to_record` for a stream of ``size`` bytes.
+
+        Missing fields mean a plain byte string (``shape``), a full last byte
+        (``nbits``) and big-endian bits (``endian``).
+        """
+        kind = record.get("shape", "bytes")
+        nbits = validation.integer(record.get("nbits", 8 * size), "nbits", minimum=0)
+        pad = 0 if kind == "bytes" or size == 0 else 8 * size - nbits
+        return cls(kind, pad=pad, endian=record.get("endian", "big"))
 
 
 @runtime_checkable
@@ -101,6 +211,11 @@ class Codec(Protocol):
         """The codec as used on ``source`` (resolves source-dependent settings)."""
         ...
 
+    def replay_statement(self, payload: str, n: int) -> str:
+        """A line of Python that decodes ``payload`` (the text of an expression
+        giving a payload of the encoder's shape) with this codec's own decoder."""
+        ...
+
 
 def _type_name(value: object) -> str:
     return type(value).__name__
@@ -112,6 +227,16 @@ def _callable_name(fn: Callable[..., Any]) -> str:
     if qual is None:
         return _type_name(fn)
     return f"{module}.{qual}" if module and module != "builtins" else str(qual)
+
+
+def _call_text(fn: object, fallback: str, args: str) -> str:
+    """``import module; module.name(args)`` for a function importable by its
+    module path, else ``fallback(args)``."""
+    module = getattr(fn, "__module__", None)
+    qual = getattr(fn, "__qualname__", None)
+    if module and qual and "<" not in qual and module not in ("__main__", "builtins"):
+        return f"import {module}; {module}.{qual}({args})"
+    return f"{fallback}({args})"
 
 
 def _check_name(name: object, parameter: str = "name") -> str:
@@ -278,6 +403,10 @@ class StreamCodec:
         """Nothing to resolve: the same codec."""
         return self
 
+    def replay_statement(self, payload: str, n: int) -> str:
+        """``decode(payload, n)``, the decoder imported by its module path where possible."""
+        return _call_text(self._decode, "decode", f"{payload}, {n}")
+
 
 class ByteCodec:
     """A general byte compressor: ``compress(bytes) -> bytes``, ``decompress(bytes) -> bytes``.
@@ -370,6 +499,10 @@ class ByteCodec:
             )
         return unpack(raw, n, layout)
 
+    def replay_statement(self, payload: str, n: int) -> str:
+        """``decompress(payload)``, imported by its module path where possible."""
+        return _call_text(self._decompress, "decompress", payload)
+
 
 class CodebookCodec:
     """A :class:`~pytest_ratefloor.codes.Codebook` used as a codec.
@@ -404,6 +537,10 @@ class CodebookCodec:
         """Nothing to resolve: the same codec."""
         return self
 
+    def replay_statement(self, payload: str, n: int) -> str:
+        """``codebook.decode(payload, n)``."""
+        return f"codebook.decode({payload}, {n})"
+
 
 def _is_codebook(obj: object) -> bool:
     return hasattr(obj, "codewords") and hasattr(obj, "encode") and hasattr(obj, "decode")
@@ -412,11 +549,18 @@ def _is_codebook(obj: object) -> bool:
 def as_codec(obj: object) -> Codec:
     """Give ``obj`` the :class:`Codec` interface.
 
-    Accepts a ``StreamCodec``/``ByteCodec``/``CodebookCodec`` (returned as is),
-    a ``Codebook``, a plain ``{symbol: codeword}`` mapping (made into a
-    ``Codebook``), or any object with ``encode(symbols)`` and
-    ``decode(data, n)`` methods (wrapped as a ``StreamCodec`` named by its
-    ``name`` attribute or its class).
+    Accepts:
+
+    * a ``StreamCodec``/``ByteCodec``/``CodebookCodec`` (returned as is);
+    * a ``Codebook``, or a plain ``{symbol: codeword}`` mapping (made into a
+      ``Codebook``);
+    * an ``(encode, decode)`` pair of callables (a tuple or a list), wrapped
+      as a ``StreamCodec`` named after the decoder's ``__qualname__``;
+    * any object with ``encode(symbols)`` and ``decode(data, n)`` methods
+      (wrapped as a ``StreamCodec`` named by its ``name`` attribute or its
+      class).
+
+    :raises TypeError: anything else, or a pair whose items are not both callable.
     """
     if isinstance(obj, (StreamCodec, ByteCodec, CodebookCodec)):
         return obj
@@ -426,6 +570,14 @@ def as_codec(obj: object) -> Codec:
         from pytest_ratefloor.codes import Codebook
 
         return CodebookCodec(Codebook(obj))
+    if isinstance(obj, (tuple, list)) and len(obj) == 2:
+        pair_encode, pair_decode = obj
+        if not (callable(pair_encode) and callable(pair_decode)):
+            raise TypeError(
+                f"codec pair must be two callables (encode, decode), got {validation.show(obj)}"
+            )
+        name = getattr(pair_decode, "__qualname__", None) or _type_name(pair_decode)
+        return StreamCodec(pair_encode, pair_decode, name=name)
     encode = getattr(obj, "encode", None)
     decode = getattr(obj, "decode", None)
     if callable(encode) and callable(decode) and not isinstance(obj, (str, bytes)):
@@ -440,6 +592,6 @@ def as_codec(obj: object) -> Codec:
         )
     raise TypeError(
         f"cannot use {_type_name(obj)} as a codec; expected StreamCodec, ByteCodec, Codebook, "
-        "a {symbol: codeword} mapping, or an object with encode(symbols) and decode(data, n)"
+        "a {symbol: codeword} mapping, an (encode, decode) pair of callables, or an object "
+        "with encode(symbols) and decode(data, n)"
     )
-

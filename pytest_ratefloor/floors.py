@@ -21,30 +21,39 @@ Each floor is a number of bits for one sample ``x₁…xₙ`` of a source:
     coder can beat it there).
 ``"huffman"``
     The expected length of the optimal symbol-by-symbol prefix code for the
-    true pmf (Huffman 1952), times ``n``: Huffman code lengths on
-    ``source.pmf_table()``. For geometric sources the optimal Golomb code
-    instead (Gallager & van Voorhis 1975, from memory), which is the optimal
-    prefix code of the infinite alphabet. For Markov sources one Huffman
-    code per state (for the row of the transition matrix), weighted by the
-    stationary distribution. For other sources with an unbounded alphabet
-    (Poisson, two-sided geometric) Huffman on ``pmf_table()`` truncated at
-    a tail of 2⁻⁶⁰: the missing mass changes the expected length by less
-    than 2⁻⁵⁰ bits/symbol, far below any tolerance. A source with a single
-    possible symbol needs 0 bits. An expected length, not a bound for one
-    sample.
+    true distribution, times ``n``: what the source answers as
+    ``source.optimal_code_rate()``. Memoryless sources: Huffman code lengths
+    on ``source.pmf_table()`` (Huffman 1952); for an unbounded alphabet
+    (Poisson, two-sided geometric) truncated at a tail of
+    :data:`HUFFMAN_TAIL` = 2⁻⁶⁰, where the missing mass changes the
+    expected length by less than 2⁻⁵⁰ bits/symbol, far below any tolerance.
+    Geometric sources: the optimal Golomb code instead (Gallager & van
+    Voorhis 1975, from memory), which is the optimal prefix code of the
+    infinite alphabet. Markov sources and order-k empirical models: one
+    Huffman code per state or context (for the symbols that follow it),
+    weighted by the stationary or context distribution. A source, state or
+    context with a single possible symbol needs 0 bits. An expected length,
+    not a bound for one sample.
 ``"adaptive"``
     The exact ideal code length of the Krichevsky–Trofimov sequential
     estimator (½-counts) on the very sample (Krichevsky & Trofimov 1981;
     Rissanen 1984 for its optimality, both from memory), via log-gamma:
     ``L = log₂Γ(n + k/2) − log₂Γ(k/2) − Σₐ [log₂Γ(nₐ + ½) − log₂Γ(½)]``
     over an alphabet of ``k`` symbols — what an adaptive arithmetic coder
-    with ½-counts reaches within a few bits. ``k`` is the source's alphabet
+    with ½-counts reaches within a few bits; the source answers it as
+    ``source.adaptive_code_length(sample)``. ``k`` is the source's alphabet
     size; for an unbounded alphabet it is the range ``max − min + 1`` of the
-    sample (the coder is assumed to know that range). For Markov sources one
-    estimator per context (the previous symbol), the first symbol costing
-    ``log₂ k``. The asymptotic form ``n·Ĥ + (k−1)/2·log₂ n`` is *not* used:
+    sample (the coder is assumed to know that range). Markov sources and
+    order-k empirical models: one estimator per context (the previous
+    symbol, the k previous symbols), the first symbols costing ``log₂ k``
+    each. The asymptotic form ``n·Ĥ + (k−1)/2·log₂ n`` is *not* used:
     its constant term is negative for ``k ≥ 4``, so it overshoots a correct
     KT coder.
+
+This module holds the arithmetic (KT lengths, Huffman expected lengths,
+histograms) and the dispatch by floor name; which distribution or which
+contexts a source has is the source's own answer. scipy is imported only
+when a KT length is computed.
 """
 
 from __future__ import annotations
@@ -54,7 +63,6 @@ from typing import TYPE_CHECKING, Literal
 
 import numpy as np
 from numpy.typing import ArrayLike
-from scipy.special import gammaln
 
 from pytest_ratefloor import validation
 
@@ -67,8 +75,10 @@ __all__ = [
     "Floor",
     "adaptive_bits",
     "check_floor",
+    "context_kt_bits",
     "empirical_bits",
     "floor_bits",
+    "huffman_expected_length",
     "huffman_rate",
     "kt_bits",
     "symbol_counts",
@@ -81,7 +91,7 @@ FLOORS: dict[Floor, str] = {
     "entropy": "n·H, the entropy of the source",
     "sample": "the self-information of the sample, −log2 P(x1…xn)",
     "empirical": "n·Ĥ of the sample's order-0 histogram",
-    "huffman": "the optimal symbol-by-symbol prefix code for the true pmf (Golomb for geometric)",
+    "huffman": "the optimal symbol-by-symbol prefix code for the source (one per context)",
     "adaptive": "the Krichevsky–Trofimov ideal code length of the sample",
 }
 
@@ -123,68 +133,73 @@ def kt_bits(counts: ArrayLike, k: int) -> float:
     and ignored), over an alphabet of ``k`` symbols.
     """
     c = np.asarray(counts, dtype=np.float64).ravel()
-    c = c[c > 0]
-    if k < max(1, len(c)):
-        raise ValueError(f"alphabet size k={k} is smaller than the {len(c)} distinct symbols")
-    n = float(c.sum())
-    if n == 0:
+    return context_kt_bits(c, np.zeros(c.size, dtype=np.int64), k)
+
+
+def context_kt_bits(counts: ArrayLike, contexts: ArrayLike, k: int) -> float:
+    """Total KT code length in bits with one estimator per context, each over ``k`` symbols.
+
+    ``counts[i]`` is how often one (context, symbol) pair occurs (zeros
+    allowed and ignored) and ``contexts[i]`` labels its context (any
+    integers); the result is the sum over contexts of :func:`kt_bits` of
+    that context's counts, computed in one vectorised pass.
+    """
+    from scipy.special import gammaln
+
+    c = np.asarray(counts, dtype=np.float64).ravel()
+    labels = np.asarray(contexts).ravel()
+    if labels.shape != c.shape:
+        raise ValueError(f"counts and contexts differ in length: {c.size} != {labels.size}")
+    live = c > 0
+    c, labels = c[live], labels[live]
+    _, ctx, distinct = np.unique(labels, return_inverse=True, return_counts=True)
+    widest = int(distinct.max()) if distinct.size else 0
+    if k < max(1, widest):
+        where = "" if distinct.size <= 1 else " of one context"
+        raise ValueError(
+            f"alphabet size k={k} is smaller than the {widest} distinct symbols{where}"
+        )
+    if c.size == 0:
         return 0.0
+    totals = np.bincount(ctx.ravel(), weights=c)
     half_k = k / 2.0
     nats = (
-        gammaln(n + half_k)
-        - gammaln(half_k)
-        - float(np.sum(gammaln(c + 0.5))) + len(c) * gammaln(0.5)
+        float(np.sum(gammaln(totals + half_k)))
+        - totals.size * gammaln(half_k)
+        - float(np.sum(gammaln(c + 0.5))) + c.size * gammaln(0.5)
     )
     return max(0.0, float(nats) / _LN2)
 
 
 def adaptive_bits(source: Source, sample: ArrayLike) -> float:
-    """The ``"adaptive"`` floor: KT code length of ``sample`` (per context for Markov sources)."""
-    arr = np.asarray(sample, dtype=np.int64).ravel()
-    if arr.size == 0:
-        return 0.0
-    transition = getattr(source, "transition", None)
-    if transition is not None:
-        states = int(np.asarray(transition).shape[0])
-        pairs = arr[:-1] * states + arr[1:]
-        table = np.bincount(pairs, minlength=states * states).reshape(states, states)
-        return math.log2(states) + sum(kt_bits(row, states) for row in table)
-    k = source.alphabet_size
-    if k is None:
-        k = int(arr.max()) - int(arr.min()) + 1
-    return kt_bits(symbol_counts(arr), int(k))
+    """The ``"adaptive"`` floor: ``source.adaptive_code_length(sample)`` (see the module doc)."""
+    return float(source.adaptive_code_length(sample))
 
 
-def _huffman_expected(probs: ArrayLike) -> float:
-    """Expected Huffman length (bits/symbol) of a pmf; 0 for a single possible symbol."""
-    from pytest_ratefloor import codes
+def huffman_expected_length(probs: ArrayLike) -> float:
+    """Expected Huffman length (bits/symbol) of a pmf; 0 when one symbol at most is possible.
 
+    ``probs`` are probabilities (a pmf, possibly missing a tiny tail); the
+    lengths come from :func:`pytest_ratefloor.codes.huffman_lengths`.
+    """
     p = np.asarray(probs, dtype=np.float64).ravel()
     p = p[p > 0]
     if len(p) <= 1:
         return 0.0
+    if len(p) == 2:
+        return float(p[0] + p[1])  # two codewords of one bit
+    from pytest_ratefloor import codes
+
     lengths = np.asarray(codes.huffman_lengths(p), dtype=np.float64)
     return float(np.dot(p, lengths))
 
 
 def huffman_rate(source: Source) -> float:
-    """The ``"huffman"`` floor in bits/symbol (see the module docstring); cached by spec."""
+    """The ``"huffman"`` floor in bits/symbol: ``source.optimal_code_rate()``, cached by spec."""
     cached = _huffman_cache.get(source.spec)
     if cached is not None:
         return cached
-    transition = getattr(source, "transition", None)
-    if source.family == "geometric" and hasattr(source, "p"):
-        from pytest_ratefloor import codes
-
-        p = float(source.p)
-        rate = float(codes.golomb_expected_length(p, codes.golomb_parameter(p)))
-    elif transition is not None:
-        t = np.asarray(transition, dtype=np.float64)
-        pi = np.asarray(getattr(source, "stationary"), dtype=np.float64)  # noqa: B009
-        rate = float(sum(pi[s] * _huffman_expected(t[s]) for s in range(t.shape[0])))
-    else:
-        _, probs = source.pmf_table(tail=HUFFMAN_TAIL)
-        rate = _huffman_expected(probs)
+    rate = float(source.optimal_code_rate())
     _huffman_cache[source.spec] = rate
     return rate
 

@@ -22,25 +22,22 @@ specs; it uses no markers.
 
 from __future__ import annotations
 
-import os
 from collections.abc import Callable, Iterable
 from typing import TYPE_CHECKING, Any
 
 import pytest
 
 from pytest_ratefloor import checks
+from pytest_ratefloor.checks import DEFAULT_N, CheckPlan, SaveDir
 from pytest_ratefloor.codecs import as_codec
-from pytest_ratefloor.floors import check_floor
+from pytest_ratefloor.floors import Floor
 from pytest_ratefloor.measurement import Measurement
 
 if TYPE_CHECKING:
+    from pytest_ratefloor.session import GateSession
     from pytest_ratefloor.sources import Source
 
 __all__ = ["RateFloorHarness", "gate", "junit_properties"]
-
-#: The sample size of the corruption check run by ``check(..., corruption=True)``
-#: (capped: each damaged stream is decoded in a worker process).
-CORRUPTION_N = 10_000
 
 
 def junit_properties(m: Measurement) -> list[tuple[str, str | int | float]]:
@@ -59,36 +56,38 @@ def junit_properties(m: Measurement) -> list[tuple[str, str | int | float]]:
     ]
 
 
-def _tmp_dir(node: Any) -> str | os.PathLike[str] | None:
-    """The test's ``tmp_path`` if it can be had, else ``None``."""
-    funcargs = getattr(node, "funcargs", None) or {}
-    if "tmp_path" in funcargs:
-        return funcargs["tmp_path"]
-    request = getattr(node, "_request", None)  # pytest's FixtureRequest of a Function item
-    if request is not None:
-        try:
-            return request.getfixturevalue("tmp_path")
-        except Exception:
-            return None
-    return None
-
-
 class RateFloorHarness:
     """Run the round-trip and rate checks inside a test and record every measurement.
 
-    Built by the plugin's ``ratefloor`` fixture as
-    ``RateFloorHarness(request.node, on_measurement=...)``; ``node`` may be
-    ``None`` outside pytest (then nothing is attached to a test).
+    The plugin's ``ratefloor`` fixture builds one per test
+    (:meth:`for_test`). Outside pytest, ``RateFloorHarness()`` works too:
+    ``node`` (anything with ``user_properties``) receives the JUnit
+    properties, ``on_measurement`` sees every measurement, and ``save_dir``
+    (called only when a damaged-stream check fails) says where the damaged
+    streams go.
     """
 
     def __init__(
         self,
         node: Any = None,
         on_measurement: Callable[[Measurement], None] | None = None,
+        save_dir: SaveDir | None = None,
     ) -> None:
         self.node = node
         self._on_measurement = on_measurement
+        self._save_dir = save_dir
         self.measurements: list[Measurement] = []
+
+    @classmethod
+    def for_test(cls, request: pytest.FixtureRequest, session: GateSession) -> RateFloorHarness:
+        """The harness of one test: gated on the run's ledger, damaged streams in ``tmp_path``."""
+        item = request.node
+
+        def on_measurement(m: Measurement) -> None:
+            __tracebackhide__ = True
+            session.gate_measurement(item, m)
+
+        return cls(item, on_measurement, save_dir=lambda: request.getfixturevalue("tmp_path"))
 
     def _record(self, m: Measurement) -> None:
         __tracebackhide__ = True  # a ledger regression raised below belongs to the user's test
@@ -99,13 +98,19 @@ class RateFloorHarness:
         if self._on_measurement is not None:
             self._on_measurement(m)
 
+    def run(self, codec: Any, source: Source, plan: CheckPlan) -> Measurement:
+        """:meth:`check` with its arguments already validated (what ``gate()`` calls)."""
+        __tracebackhide__ = True
+        return checks.run_check(codec, source, plan, on_measurement=self._record,
+                                save_dir=self._save_dir)
+
     def check(
         self,
         codec: Any,
         source: Source,
-        n: int = 100_000,
+        n: int = DEFAULT_N,
         seed: int = 0,
-        floor: str = "entropy",
+        floor: Floor = "entropy",
         rel: float | None = None,
         abs: float | None = None,
         edge_cases: bool = True,
@@ -114,41 +119,23 @@ class RateFloorHarness:
         """Round trip (sample and edge cases), rate within tolerance, recorded.
 
         With ``corruption=True`` the decoder must then also survive damaged
-        streams (:func:`pytest_ratefloor.corruption.assert_survives_corruption`
-        on ``min(n, 10 000)`` symbols; damaged streams of failures are saved
-        in the test's ``tmp_path``). Returns the measurement.
+        streams of the same encoding (on at most 10 000 symbols of the sample;
+        see :func:`pytest_ratefloor.corruption.assert_survives_corruption` for
+        what counts as surviving; damaged streams of failures are saved in the
+        test's ``tmp_path``). Returns the measurement.
         """
         __tracebackhide__ = True
-        m = checks.check(
-            codec,
-            source,
-            n=n,
-            seed=seed,
-            floor=floor,
-            rel=rel,
-            abs=abs,
-            edge_cases=edge_cases,
-            on_measurement=self._record,
-        )
-        if corruption:
-            from pytest_ratefloor.corruption import assert_survives_corruption
-
-            assert_survives_corruption(
-                as_codec(codec).for_source(source),
-                source,
-                n=min(n, CORRUPTION_N),
-                seed=seed,
-                save_dir=_tmp_dir(self.node),
-            )
-        return m
+        plan = CheckPlan(n=n, seed=seed, floor=floor, rel=rel, abs=abs, edge_cases=edge_cases,
+                         corruption=corruption)
+        return self.run(codec, source, plan)
 
     def measure(
         self,
         codec: Any,
         source: Source,
-        n: int = 100_000,
+        n: int = DEFAULT_N,
         seed: int = 0,
-        floor: str = "entropy",
+        floor: Floor = "entropy",
     ) -> Measurement:
         """Measure and record without a tolerance (the sample must still round-trip)."""
         __tracebackhide__ = True
@@ -160,9 +147,9 @@ class RateFloorHarness:
 def gate(
     codec: Any,
     sources: Iterable[Source] | None = None,
-    n: int = 100_000,
+    n: int = DEFAULT_N,
     seed: int = 0,
-    floor: str = "entropy",
+    floor: Floor = "entropy",
     rel: float | None = None,
     abs: float | None = None,
     edge_cases: bool = True,
@@ -176,8 +163,7 @@ def gate(
     The arguments are checked now, so a typo fails at collection.
     """
     as_codec(codec)
-    check_floor(floor)
-    checks.tolerance(rel, abs)
+    plan = CheckPlan(n=n, seed=seed, floor=floor, rel=rel, abs=abs, edge_cases=edge_cases)
     if sources is None:
         from pytest_ratefloor.sources import standard_suite
 
@@ -193,15 +179,6 @@ def gate(
     @pytest.mark.parametrize("ratefloor_source", suite, ids=[s.spec for s in suite])
     def test_ratefloor_gate(ratefloor: RateFloorHarness, ratefloor_source: Source) -> None:
         __tracebackhide__ = True
-        ratefloor.check(
-            codec,
-            ratefloor_source,
-            n=n,
-            seed=seed,
-            floor=floor,
-            rel=rel,
-            abs=abs,
-            edge_cases=edge_cases,
-        )
+        ratefloor.run(codec, ratefloor_source, plan)
 
     return test_ratefloor_gate

@@ -1,4 +1,4 @@
-"""The committed rate ledger: its JSON layout, loading, comparison and atomic writing.
+"""The committed rate ledger: its JSON layout, loading, validation and atomic writing.
 
 The ledger is one JSON file a team commits next to its code. Each *case* is keyed
 by codec name, source spec, sample size ``n`` and ``seed`` and holds the exact bit
@@ -27,35 +27,32 @@ newline so a release's diff shows one small block per changed case::
 
 Only the integer ``bits`` is compared; the floats are for readers and reports and
 are rounded to 12 significant digits so a recording on another machine does not
-produce last-digit diff noise. This module knows nothing of pytest: ``LedgerRun``
-holds one run's measurements and verdicts, and plugin.py wires it to hooks.
+produce last-digit diff noise. Each case is read back as the
+:class:`~pytest_ratefloor.measurement.Measurement` its recording wrote
+(:meth:`~pytest_ratefloor.measurement.Measurement.recorded`); comparing cases
+is :mod:`pytest_ratefloor.verdicts`' job. This module knows nothing of pytest.
 """
 
 from __future__ import annotations
 
 import contextlib
 import json
-import math
 import os
 import platform
-import shlex
 import shutil
 import stat
 import sys
 import tempfile
-from collections.abc import Iterable, Mapping
+from collections.abc import Iterable
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Literal, Protocol
+from typing import Any
 
 from pytest_ratefloor.errors import (
-    LedgerError,
     NewerLedgerError,
-    RegressionFailure,
-    SampleMismatchError,
     UnreadableLedgerError,
 )
-from pytest_ratefloor.measurement import Measurement
+from pytest_ratefloor.measurement import CaseKey, Measurement, figure
 
 #: Version of the ledger layout this plugin reads and writes.
 SCHEMA_VERSION = 1
@@ -71,114 +68,55 @@ _NOTE = (
     "re-record with: pytest --ratefloor-record"
 )
 
-Key = tuple[str, str, int, int]
-Status = Literal["unchanged", "improved", "within-slack", "regressed", "new", "resampled"]
-#: Display order of verdicts (worst first).
-STATUSES: tuple[Status, ...] = (
-    "regressed", "resampled", "within-slack", "improved", "new", "unchanged",
-)
+
+def entry_json(m: Measurement) -> dict[str, Any]:
+    """The JSON object of one case (its recorded form; see :meth:`Measurement.recorded`)."""
+    out: dict[str, Any] = {
+        "codec": m.codec, "source": m.source, "n": m.n, "seed": m.seed, "bits": m.bits,
+        "rate": figure(m.rate), "floor": m.floor, "floor_rate": figure(m.floor_rate),
+        "entropy": figure(m.entropy), "fingerprint": m.fingerprint,
+    }
+    if m.codec_version is not None:
+        out["codec_version"] = m.codec_version
+    return out
 
 
+def read_entry(label: str, obj: object, path: Path) -> Measurement:
+    """Validate one case of a loaded file; errors name the file and the case."""
+    where = f"{path}: case {label!r}"
+    if not isinstance(obj, dict):
+        raise UnreadableLedgerError(f"{where} is not a JSON object")
 
-
-
-def case_label(key: Key) -> str:
-    """The human-readable JSON key of a case: ``codec | source | n=.. | seed=..``."""
-    codec, source, n, seed = key
-    return f"{codec} | {source} | n={n} | seed={seed}"
-
-
-def _figure(value: float | None) -> float | None:
-    """A float rounded to 12 significant digits for the file; non-finite → None."""
-    if value is None or not math.isfinite(value):
-        return None
-    return float(f"{value:.12g}")
-
-
-@dataclass(frozen=True)
-class LedgerEntry:
-    """One recorded case."""
-
-    codec: str
-    source: str
-    n: int
-    seed: int
-    bits: int
-    rate: float | None = None
-    floor: str = ""
-    floor_rate: float | None = None
-    entropy: float | None = None
-    fingerprint: str = ""
-    codec_version: str | None = None
-
-    @property
-    def key(self) -> Key:
-        return (self.codec, self.source, self.n, self.seed)
-
-    @classmethod
-    def from_measurement(cls, m: Measurement) -> LedgerEntry:
-        """The entry a recording writes for measurement ``m``."""
-        return cls(
-            codec=str(m.codec), source=str(m.source), n=int(m.n), seed=int(m.seed),
-            bits=int(m.bits), rate=_figure(float(m.rate)), floor=str(m.floor),
-            floor_rate=_figure(float(m.floor_rate)), entropy=_figure(float(m.entropy)),
-            fingerprint=str(m.fingerprint),
-            codec_version=None if m.codec_version is None else str(m.codec_version),
-        )
-
-    def to_json(self) -> dict[str, Any]:
-        out: dict[str, Any] = {
-            "codec": self.codec, "source": self.source, "n": self.n, "seed": self.seed,
-            "bits": self.bits, "rate": self.rate, "floor": self.floor,
-            "floor_rate": self.floor_rate, "entropy": self.entropy,
-            "fingerprint": self.fingerprint,
-        }
-        if self.codec_version is not None:
-            out["codec_version"] = self.codec_version
-        return out
-
-    @classmethod
-    def from_json(cls, label: str, obj: object, path: Path) -> LedgerEntry:
-        """Validate one entry of a loaded file; errors name the file and the case."""
-        where = f"{path}: case {label!r}"
-        if not isinstance(obj, dict):
-            raise UnreadableLedgerError(f"{where} is not a JSON object")
-
-        def need(name: str, kind: type | tuple[type, ...], optional: bool = False) -> Any:
-            if name not in obj:
-                if optional:
-                    return None
-                raise UnreadableLedgerError(f"{where} lacks the field {name!r}")
-            value = obj[name]
-            if value is None and optional:
+    def need(name: str, kind: type | tuple[type, ...], optional: bool = False) -> Any:
+        if name not in obj:
+            if optional:
                 return None
-            # bool is an int subclass: a 'true' bit count is corruption, not a number
-            if isinstance(value, bool) or not isinstance(value, kind):
-                raise UnreadableLedgerError(f"{where} has a bad {name!r}: {value!r}")
-            return value
+            raise UnreadableLedgerError(f"{where} lacks the field {name!r}")
+        value = obj[name]
+        if value is None and optional:
+            return None
+        # bool is an int subclass: a 'true' bit count is corruption, not a number
+        if isinstance(value, bool) or not isinstance(value, kind):
+            raise UnreadableLedgerError(f"{where} has a bad {name!r}: {value!r}")
+        return value
 
-        entry = cls(
-            codec=need("codec", str), source=need("source", str), n=need("n", int),
-            seed=need("seed", int), bits=need("bits", int),
-            rate=_opt_float(need("rate", (int, float), optional=True)),
-            floor=need("floor", str, optional=True) or "",
-            floor_rate=_opt_float(need("floor_rate", (int, float), optional=True)),
-            entropy=_opt_float(need("entropy", (int, float), optional=True)),
-            fingerprint=need("fingerprint", str, optional=True) or "",
-            codec_version=need("codec_version", str, optional=True),
+    n, bits = need("n", int), need("bits", int)
+    if bits < 0 or n < 0:
+        raise UnreadableLedgerError(f"{where} has a negative bit count or size")
+    floor_rate = float(need("floor_rate", (int, float)))
+    entry = Measurement(
+        codec=need("codec", str), source=need("source", str), n=n, seed=need("seed", int),
+        bits=bits, entropy=float(need("entropy", (int, float))),
+        floor=need("floor", str), floor_bits=floor_rate * n,
+        fingerprint=need("fingerprint", str, optional=True) or "",
+        codec_version=need("codec_version", str, optional=True),
+    )
+    if entry.key.label != label:
+        raise UnreadableLedgerError(
+            f"{where} does not match its fields (expected key {entry.key.label!r}); "
+            "was the file edited by hand?"
         )
-        if entry.bits < 0 or entry.n < 0:
-            raise UnreadableLedgerError(f"{where} has a negative bit count or size")
-        if case_label(entry.key) != label:
-            raise UnreadableLedgerError(
-                f"{where} does not match its fields (expected key {case_label(entry.key)!r}); "
-                "was the file edited by hand?"
-            )
-        return entry
-
-
-def _opt_float(value: int | float | None) -> float | None:
-    return None if value is None else float(value)
+    return entry
 
 
 @dataclass(frozen=True)
@@ -216,7 +154,9 @@ class Environment:
         if not isinstance(obj, dict) or not all(
             isinstance(obj.get(k), str) for k in ("plugin", "numpy", "python", "platform")
         ):
-            raise UnreadableLedgerError(f"{path}: 'recorded_with' is not a well-formed block: {obj!r}")
+            raise UnreadableLedgerError(
+                f"{path}: 'recorded_with' is not a well-formed block: {obj!r}"
+            )
         return cls(plugin=obj["plugin"], numpy=obj["numpy"], python=obj["python"],
                    platform=obj["platform"])
 
@@ -226,7 +166,7 @@ class Ledger:
     """The cases of one ledger file (possibly not existing yet)."""
 
     path: Path
-    entries: dict[Key, LedgerEntry] = field(default_factory=dict)
+    entries: dict[CaseKey, Measurement] = field(default_factory=dict)
     environment: Environment | None = None
     exists: bool = False
 
@@ -245,7 +185,9 @@ class Ledger:
         except IsADirectoryError:
             raise UnreadableLedgerError(f"{path}: is a directory, not a ledger file") from None
         except UnicodeDecodeError as exc:
-            raise UnreadableLedgerError(f"{path}: not UTF-8 text ({exc.reason}); corrupt?") from None
+            raise UnreadableLedgerError(
+                f"{path}: not UTF-8 text ({exc.reason}); corrupt?"
+            ) from None
         except OSError as exc:
             raise UnreadableLedgerError(f"{path}: cannot be read ({exc.strerror})") from None
         return cls.parse(text, path)
@@ -277,9 +219,9 @@ class Ledger:
         cases = doc.get("cases")
         if not isinstance(cases, dict):
             raise UnreadableLedgerError(f"{path}: 'cases' is missing or not a JSON object")
-        entries: dict[Key, LedgerEntry] = {}
+        entries: dict[CaseKey, Measurement] = {}
         for label, obj in cases.items():
-            entry = LedgerEntry.from_json(label, obj, path)
+            entry = read_entry(label, obj, path)
             entries[entry.key] = entry
         env = doc.get("recorded_with")
         environment = None if env is None else Environment.from_json(env, path)
@@ -293,8 +235,7 @@ class Ledger:
         """
         entries = dict(self.entries)
         for m in measurements:
-            entry = LedgerEntry.from_measurement(m)
-            entries[entry.key] = entry
+            entries[m.key] = m.recorded()
         return Ledger(path=self.path, entries=entries,
                       environment=environment or Environment.current(), exists=self.exists)
 
@@ -306,7 +247,7 @@ class Ledger:
             "schema": SCHEMA_VERSION,
             "note": _NOTE,
             "recorded_with": env.to_json(),
-            "cases": {case_label(k): e.to_json() for k, e in self.entries.items()},
+            "cases": {k.label: entry_json(e) for k, e in self.entries.items()},
         }
         return json.dumps(doc, indent=2, sort_keys=True, ensure_ascii=False,
                           allow_nan=False) + "\n"
@@ -378,224 +319,3 @@ def keep_copy(path: Path) -> Path:
         number += 1
     shutil.copy2(path, target)
     return target
-
-
-@dataclass(frozen=True)
-class Verdict:
-    """How one measurement compares with its ledger entry."""
-
-    key: Key
-    status: Status
-    bits: int
-    ledger_bits: int | None
-    slack: float = 0.0
-
-    @property
-    def delta_bits(self) -> int | None:
-        return None if self.ledger_bits is None else self.bits - self.ledger_bits
-
-    @property
-    def delta_pct(self) -> float | None:
-        """Change relative to the ledger, percent (None for a new case)."""
-        if self.ledger_bits is None:
-            return None
-        if self.ledger_bits == 0:
-            return 0.0 if self.bits == 0 else math.inf
-        return 100.0 * (self.bits - self.ledger_bits) / self.ledger_bits
-
-
-class Case(Protocol):
-    """What :func:`compare` needs of a measurement (a LedgerEntry also qualifies)."""
-
-    @property
-    def key(self) -> Key: ...
-    @property
-    def bits(self) -> int: ...
-    @property
-    def fingerprint(self) -> str: ...
-
-
-def compare(m: Case, entry: LedgerEntry | None, slack: float) -> Verdict:
-    """Compare a measurement with its ledger entry (``None``: not in the ledger).
-
-    A case regresses when ``bits > ledger_bits * (1 + slack)``; more bits within
-    the slack is ``within-slack``. A fingerprint that differs (both non-empty)
-    gives ``resampled``: the sample changed, so the counts are not comparable.
-    """
-    bits = int(m.bits)
-    if entry is None:
-        return Verdict(m.key, "new", bits, None, slack)
-    status: Status
-    if entry.fingerprint and m.fingerprint and entry.fingerprint != m.fingerprint:
-        status = "resampled"
-    elif bits == entry.bits:
-        status = "unchanged"
-    elif bits < entry.bits:
-        status = "improved"
-    elif bits > entry.bits * (1.0 + slack):
-        status = "regressed"
-    else:
-        status = "within-slack"
-    return Verdict(m.key, status, bits, entry.bits, slack)
-
-
-def _describe_case(key: Key) -> str:
-    codec, source, n, seed = key
-    return f"codec {codec!r} on {source}, n={n}, seed={seed}"
-
-
-def regression_message(verdict: Verdict, ledger_path: Path, record_hint: str) -> str:
-    """The text of a RegressionFailure: both figures, the delta, the ledger and the fix."""
-    assert verdict.ledger_bits is not None
-    assert verdict.delta_pct is not None
-    return (
-        f"rate regression: {_describe_case(verdict.key)} needs {verdict.bits:,} bits; "
-        f"the ledger holds {verdict.ledger_bits:,} bits\n"
-        f"  delta: {verdict.delta_bits:+,} bits ({verdict.delta_pct:+.3f}%), "
-        f"allowed slack {100.0 * verdict.slack:g}%\n"
-        f"  ledger: {ledger_path}\n"
-        f"  if the increase is intended, record the new figure: {record_hint}"
-    )
-
-
-def resampled_message(entry: LedgerEntry, m: Measurement, ledger_path: Path,
-                      record_hint: str) -> str:
-    """The text of a SampleMismatchError."""
-    return (
-        f"ledger entry cannot be compared: {_describe_case(m.key)} was recorded on a "
-        f"different sample (fingerprint {entry.fingerprint} in the ledger, {m.fingerprint} now)\n"
-        f"  the source spec {m.source!r} now draws different symbols (a changed sampler or "
-        f"source definition), so {entry.bits:,} recorded bits and {m.bits:,} measured bits "
-        f"are not the same experiment\n"
-        f"  ledger: {ledger_path}\n"
-        f"  re-record the case: {record_hint}"
-    )
-
-
-def conflict_message(first: Measurement, second: Measurement) -> str:
-    """Two measurements of the same ledger key disagree within one run."""
-    return (
-        f"two measurements of {_describe_case(first.key)} disagree in one run: "
-        f"{first.bits:,} bits (fingerprint {first.fingerprint}) and "
-        f"{second.bits:,} bits (fingerprint {second.fingerprint}); give each codec "
-        "a distinct name and make sure its encoder is deterministic"
-    )
-
-
-@dataclass
-class LedgerRun:
-    """One test run's measurements against a baseline ledger.
-
-    In the process that runs a test, the ``ratefloor`` fixture calls
-    :meth:`observe` then :meth:`enforce` for every measurement. On the xdist
-    controller, :meth:`absorb` takes the workers' plain records without
-    enforcing (the workers already did).
-    """
-
-    baseline: Ledger
-    slack: float = 0.0
-    record: bool = False
-    record_hint: str = "pytest --ratefloor-record"
-    measurements: dict[Key, Measurement] = field(default_factory=dict)
-    #: per-case slack that overrides :attr:`slack` (from a test's marker)
-    slacks: dict[Key, float] = field(default_factory=dict)
-    conflicts: list[str] = field(default_factory=list)
-    #: why this run does not cover the whole suite (empty: a full run)
-    partial_reasons: list[str] = field(default_factory=list)
-
-    def slack_for(self, key: Key) -> float:
-        return self.slacks.get(key, self.slack)
-
-    def observe(self, m: Measurement, slack: float | None = None) -> Verdict:
-        """Store ``m`` and return its verdict.
-
-        :raises LedgerError: an earlier measurement of the same case in this run
-            had other bits or another sample (also kept in :attr:`conflicts`).
-        """
-        earlier = self.measurements.get(m.key)
-        if earlier is not None and (
-            earlier.bits != m.bits or earlier.fingerprint != m.fingerprint
-        ):
-            message = conflict_message(earlier, m)
-            self.conflicts.append(message)
-            raise LedgerError(message)
-        self.measurements[m.key] = m
-        if slack is not None:
-            self.slacks[m.key] = slack
-        return compare(m, self.baseline.entries.get(m.key), self.slack_for(m.key))
-
-    def enforce(self, m: Measurement, verdict: Verdict, nodeid: str | None = None) -> None:
-        """Raise for a regression or a resampled case, unless recording.
-
-        :raises RegressionFailure: more bits than the ledger allows.
-        :raises SampleMismatchError: the ledger entry was measured on another sample.
-        """
-        __tracebackhide__ = True
-        if self.record or verdict.status not in ("regressed", "resampled"):
-            return
-        hint = self.record_hint + ("" if nodeid is None else " " + shlex.quote(nodeid))
-        if verdict.status == "regressed":
-            raise RegressionFailure(regression_message(verdict, self.baseline.path, hint))
-        entry = self.baseline.entries[m.key]
-        raise SampleMismatchError(resampled_message(entry, m, self.baseline.path, hint))
-
-    def admit(self, m: Measurement, slack: float | None = None,
-              nodeid: str | None = None) -> Verdict:
-        """:meth:`observe` then :meth:`enforce`; returns the verdict."""
-        __tracebackhide__ = True
-        verdict = self.observe(m, slack)
-        self.enforce(m, verdict, nodeid)
-        return verdict
-
-    def payload(self) -> dict[str, Any]:
-        """What an xdist worker sends home: builtin types only (execnet rejects the rest)."""
-        return {
-            "measurements": [m.to_record() for m in self.measurements.values()],
-            "slacks": [[*key, float(value)] for key, value in self.slacks.items()],
-            "partial": [str(r) for r in self.partial_reasons],
-            "conflicts": [str(c) for c in self.conflicts],
-        }
-
-    def absorb(self, payload: Mapping[str, Any]) -> None:
-        """Merge a worker's :meth:`payload`; conflicts between workers are collected."""
-        for codec, source, n, seed, value in payload.get("slacks", []):
-            self.slacks[(codec, source, n, seed)] = float(value)
-        for record in payload.get("measurements", []):
-            m = Measurement.from_record(dict(record))
-            with contextlib.suppress(LedgerError):  # kept in self.conflicts
-                self.observe(m)
-        for message in payload.get("conflicts", []):
-            if message not in self.conflicts:
-                self.conflicts.append(message)
-        for reason in payload.get("partial", []):
-            if reason not in self.partial_reasons:
-                self.partial_reasons.append(reason)
-
-    def verdicts(self) -> list[tuple[Measurement, Verdict]]:
-        """Every measurement with its verdict, sorted by key."""
-        return [
-            (m, compare(m, self.baseline.entries.get(key), self.slack_for(key)))
-            for key, m in sorted(self.measurements.items())
-        ]
-
-    @property
-    def is_full(self) -> bool:
-        return not self.partial_reasons
-
-    def stale(self) -> list[LedgerEntry]:
-        """Ledger entries nobody measured; empty unless this was a full run."""
-        if not self.is_full:
-            return []
-        return [e for k, e in sorted(self.baseline.entries.items()) if k not in self.measurements]
-
-    def counts(self) -> dict[str, int]:
-        """Number of cases per verdict, plus ``stale``."""
-        out: dict[str, int] = dict.fromkeys(STATUSES, 0)
-        for _, v in self.verdicts():
-            out[v.status] += 1
-        out["stale"] = len(self.stale())
-        return out
-
-    def recorded(self) -> Ledger:
-        """The ledger a recording writes: the baseline merged with this run."""
-        return self.baseline.merged(self.measurements[k] for k in sorted(self.measurements))

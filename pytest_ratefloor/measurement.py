@@ -1,6 +1,14 @@
-"""The ``Measurement`` record: one codec run on one reference sample.
+"""The case record: one codec on one reference sample, and the key that names it.
 
-It is plain data on purpose. ``to_record()`` gives only builtin Python types
+A :class:`Measurement` is the one record of a case. A check builds it from a
+run; the ledger stores its recorded form (:meth:`Measurement.recorded`) and
+reads it back as a ``Measurement``; reports, the terminal summary and
+``ratefloor diff`` show it through a :class:`~pytest_ratefloor.verdicts.Comparison`.
+Its derived figures (rate, floor rate, excess, efficiency) are computed here
+and nowhere else, and :class:`CaseKey` is the one place that spells a case's
+name.
+
+It is plain data on purpose: ``to_record()`` gives only builtin Python types
 (``int``, ``float``, ``str``, ``None``, ``dict``) so it can cross the
 pytest-xdist channel (execnet rejects numpy scalars and dataclasses) and be
 written to JSON; ``from_record()`` reads it back.
@@ -9,8 +17,42 @@ written to JSON; ``from_record()`` reads it back.
 from __future__ import annotations
 
 import dataclasses
+import hashlib
+import math
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any, NamedTuple
+
+if TYPE_CHECKING:  # numpy is imported where a sample is hashed, not at pytest start-up
+    from numpy.typing import ArrayLike
+
+__all__ = ["CaseKey", "Measurement", "figure", "sample_fingerprint"]
+
+
+class CaseKey(NamedTuple):
+    """What identifies a case in the ledger: codec name, source spec, ``n`` and seed."""
+
+    codec: str
+    source: str
+    n: int
+    seed: int
+
+    @property
+    def label(self) -> str:
+        """The ledger's JSON key and the stale-entry line: ``codec | source | n=.. | seed=..``."""
+        return f"{self.codec} | {self.source} | n={self.n} | seed={self.seed}"
+
+    @property
+    def phrase(self) -> str:
+        """The case in a sentence: ``codec 'x' on bernoulli(p=0.1), n=100000, seed=0``."""
+        return f"codec {self.codec!r} on {self.source}, n={self.n}, seed={self.seed}"
+
+
+def figure(value: float) -> float:
+    """A float as the ledger keeps it: rounded to 12 significant digits.
+
+    A recording on another machine then produces no last-digit diff noise.
+    """
+    return float(f"{value:.12g}")
 
 
 @dataclass(frozen=True)
@@ -23,6 +65,10 @@ class Measurement:
     ``efficiency = floor_rate / rate`` (1.0 means the floor was met).
     ``fingerprint`` identifies the sample (a hash of its symbols) so that a
     ledger entry is only ever compared with a measurement of the same data.
+
+    The fields after ``fingerprint`` describe the run that produced the
+    figures; a case read back from a ledger does not have them
+    (``sample_information`` and ``spread`` are then ``None``).
     """
 
     codec: str
@@ -33,9 +79,9 @@ class Measurement:
     entropy: float
     floor: str
     floor_bits: float
-    sample_information: float
-    spread: float
     fingerprint: str
+    sample_information: float | None = None
+    spread: float | None = None
     codec_version: str | None = None
     encode_seconds: float = 0.0
     decode_seconds: float = 0.0
@@ -44,9 +90,9 @@ class Measurement:
     alphabet_size: int | None = None
 
     @property
-    def key(self) -> tuple[str, str, int, int]:
+    def key(self) -> CaseKey:
         """The ledger key: codec name, source spec, n and seed."""
-        return (self.codec, self.source, self.n, self.seed)
+        return CaseKey(self.codec, self.source, self.n, self.seed)
 
     @property
     def rate(self) -> float:
@@ -65,17 +111,28 @@ class Measurement:
 
     @property
     def efficiency(self) -> float:
-        """floor_rate / rate; 1.0 when both are zero."""
+        """floor_rate / rate; 1.0 when both are zero, ``inf`` for 0 bits above a floor."""
         if self.bits == 0:
-            return 1.0 if self.floor_bits <= 0 else float("inf")
+            return 1.0 if self.floor_bits <= 0 else math.inf
         return self.floor_rate / self.rate
+
+    def recorded(self) -> Measurement:
+        """The form a ledger keeps: figures rounded (see :func:`figure`), run details dropped.
+
+        Loading a ledger gives back exactly this record.
+        """
+        n = int(self.n)
+        floor_rate = figure(float(self.floor_rate)) if n else 0.0
+        return Measurement(
+            codec=str(self.codec), source=str(self.source), n=n, seed=int(self.seed),
+            bits=int(self.bits), entropy=figure(float(self.entropy)), floor=str(self.floor),
+            floor_bits=floor_rate * n, fingerprint=str(self.fingerprint),
+            codec_version=None if self.codec_version is None else str(self.codec_version),
+        )
 
     def to_record(self) -> dict[str, Any]:
         """A dict of builtin types only (safe for execnet and JSON)."""
-        out: dict[str, Any] = {}
-        for f in dataclasses.fields(self):
-            out[f.name] = _plain(getattr(self, f.name))
-        return out
+        return {f.name: _plain(getattr(self, f.name)) for f in dataclasses.fields(self)}
 
     @classmethod
     def from_record(cls, record: dict[str, Any]) -> Measurement:
@@ -85,6 +142,37 @@ class Measurement:
         if missing:
             raise ValueError(f"measurement record lacks fields {sorted(missing)}: {record!r}")
         return cls(**{k: v for k, v in record.items() if k in names})
+
+
+def sample_fingerprint(symbols: ArrayLike, bounds: tuple[int, int] | None = None) -> str:
+    """A short hex hash (16 hex digits of SHA-256) identifying a sample's symbols.
+
+    Defined on the values only, independent of dtype and platform: the
+    symbols are written in the narrowest of ``u1``, ``<u2``, ``<i4``, ``<i8``
+    that holds them, after the header ``b"ratefloor-sample-v1:<tag>:<n>:"``.
+    ``bounds`` — a guaranteed (min, max) of the symbols, e.g. a source's
+    declared range — only lets the range scan be skipped; the result is the same.
+    """
+    import numpy as np
+
+    arr = np.asarray(symbols).ravel()
+    if arr.dtype.kind not in "iub":
+        raise ValueError(f"sample_fingerprint needs integer symbols, got dtype {arr.dtype}")
+    if bounds is not None and bounds[0] >= 0 and bounds[1] <= 0xFF:
+        lo, hi = 0, 0xFF  # u1 holds them: the narrowest candidate, no scan needed
+    else:
+        lo, hi = (int(arr.min()), int(arr.max())) if arr.size else (0, 0)
+    fitting = [
+        dtype
+        for dtype in ("u1", "<u2", "<i4", "<i8")
+        if np.iinfo(np.dtype(dtype)).min <= lo and hi <= np.iinfo(np.dtype(dtype)).max
+    ]
+    if not fitting:
+        raise ValueError(f"sample_fingerprint: symbols {lo}..{hi} exceed the int64 range")
+    dtype = fitting[0]
+    digest = hashlib.sha256(f"ratefloor-sample-v1:{dtype.lstrip('<')}:{arr.size}:".encode())
+    digest.update(np.ascontiguousarray(arr, dtype=dtype).data.cast("B"))
+    return digest.hexdigest()[:16]
 
 
 def _plain(value: Any) -> Any:

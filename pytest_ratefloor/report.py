@@ -1,9 +1,11 @@
 """Efficiency reports: the terminal summary, Markdown and JSON files, the CI job summary, the plot.
 
-Everything here turns rows (:class:`CaseRow`, built from a measurement and its
-ledger verdict, or from a ledger entry) into text or an image; nothing here reads
-pytest state. The same Markdown table serves the ``--ratefloor-report`` file, the
-GitHub job summary and ``ratefloor show``.
+Everything here turns rows — :class:`~pytest_ratefloor.verdicts.Comparison`
+records, a case beside its ledger entry, or a case on its own for a plain
+listing — into text or an image; nothing here reads pytest state and nothing
+here recomputes a figure the case record or the comparison already holds.
+The same Markdown table serves the ``--ratefloor-report`` file, the GitHub job
+summary and ``ratefloor show``.
 """
 
 from __future__ import annotations
@@ -16,15 +18,9 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Literal
 
-from pytest_ratefloor.ledger import (
-    STATUSES,
-    Environment,
-    LedgerEntry,
-    Status,
-    Verdict,
-    write_atomic,
-)
+from pytest_ratefloor.ledger import Environment, entry_json, write_atomic
 from pytest_ratefloor.measurement import Measurement
+from pytest_ratefloor.verdicts import VERDICTS, Colour, Comparison
 
 #: Version of the JSON report layout.
 REPORT_SCHEMA_VERSION = 1
@@ -44,66 +40,6 @@ PLOT_SUFFIXES = (".png", ".svg", ".pdf")
 
 
 @dataclass(frozen=True)
-class CaseRow:
-    """One case as reports show it."""
-
-    codec: str
-    source: str
-    n: int
-    seed: int
-    bits: int
-    entropy: float | None
-    floor: str
-    floor_rate: float | None
-    codec_version: str | None = None
-    status: Status | None = None
-    ledger_bits: int | None = None
-    delta_bits: int | None = None
-    delta_pct: float | None = None
-    fingerprint: str = ""
-    source_family: str = ""
-    source_params: Mapping[str, float] = field(default_factory=dict)
-    encode_seconds: float | None = None
-    decode_seconds: float | None = None
-
-    @property
-    def rate(self) -> float:
-        return self.bits / self.n if self.n else 0.0
-
-    @property
-    def efficiency(self) -> float | None:
-        """floor_rate / rate (None when unknown)."""
-        if self.floor_rate is None:
-            return None
-        if self.bits == 0:
-            return 1.0 if self.floor_rate <= 0 else math.inf
-        return self.floor_rate / self.rate
-
-    @classmethod
-    def from_measurement(cls, m: Measurement, verdict: Verdict | None = None) -> CaseRow:
-        return cls(
-            codec=m.codec, source=m.source, n=int(m.n), seed=int(m.seed), bits=int(m.bits),
-            entropy=float(m.entropy), floor=m.floor, floor_rate=float(m.floor_rate),
-            codec_version=m.codec_version,
-            status=None if verdict is None else verdict.status,
-            ledger_bits=None if verdict is None else verdict.ledger_bits,
-            delta_bits=None if verdict is None else verdict.delta_bits,
-            delta_pct=None if verdict is None else verdict.delta_pct,
-            fingerprint=m.fingerprint, source_family=m.source_family,
-            source_params=dict(m.source_params),
-            encode_seconds=float(m.encode_seconds), decode_seconds=float(m.decode_seconds),
-        )
-
-    @classmethod
-    def from_entry(cls, e: LedgerEntry) -> CaseRow:
-        return cls(
-            codec=e.codec, source=e.source, n=e.n, seed=e.seed, bits=e.bits,
-            entropy=e.entropy, floor=e.floor, floor_rate=e.floor_rate,
-            codec_version=e.codec_version, fingerprint=e.fingerprint,
-        )
-
-
-@dataclass(frozen=True)
 class RunOutcome:
     """What a run adds to its rows: ledger counts, stale entries, problems."""
 
@@ -113,7 +49,7 @@ class RunOutcome:
     slack: float = 0.0
     recorded: bool = False
     counts: Mapping[str, int] = field(default_factory=dict)
-    stale: Sequence[LedgerEntry] = ()
+    stale: Sequence[Measurement] = ()
     partial_reasons: Sequence[str] = ()
     problems: Sequence[str] = ()
 
@@ -137,12 +73,12 @@ def _pct(value: float | None) -> str:
     return f"{100.0 * value:.2f}%"
 
 
-def _signed_pct(value: float) -> str:
-    return "+inf%" if math.isinf(value) else f"{value:+.3f}%"
+def signed_pct(value: float) -> str:
+    return f"{value:+.3f}%" if math.isfinite(value) else ("+inf%" if value > 0 else "-inf%")
 
 
-def delta_text(row: CaseRow) -> str:
-    """The ``vs. ledger`` cell: ``new``, ``=``, or ``+12 bits (+0.010%) regressed``."""
+def delta_text(row: Comparison) -> str:
+    """The ``vs. ledger`` cell: ``new``, ``= ledger``, or ``+12 bits (+0.010%) regressed``."""
     if row.status is None:
         return ""
     if row.status == "new":
@@ -151,30 +87,30 @@ def delta_text(row: CaseRow) -> str:
         return "resampled (not comparable: re-record)"
     if row.status == "unchanged":
         return "= ledger"
-    assert row.delta_bits is not None
-    assert row.delta_pct is not None
-    return f"{row.delta_bits:+,} bits ({_signed_pct(row.delta_pct)}) {row.status}"
+    if row.delta_bits is None or row.delta_pct is None:
+        return row.status
+    return f"{row.delta_bits:+,} bits ({signed_pct(row.delta_pct)}) {row.status}"
 
 
 def counts_text(counts: Mapping[str, int]) -> str:
     """``1 regressed, 2 improved, ...`` in a fixed order, zero counts of rare kinds omitted."""
     parts = []
-    for name in (*STATUSES, "stale"):
+    for name in (*VERDICTS, "stale"):
         value = counts.get(name, 0)
-        if value or name in ("regressed", "improved", "new", "unchanged"):
+        if value or (name in VERDICTS and VERDICTS[name].always_counted):
             parts.append(f"{value} {name}")
     return ", ".join(parts)
 
 
-def _floor_cell(row: CaseRow) -> str:
-    text = _num(row.floor_rate)
-    return text if row.floor in ("", "entropy") else f"{text} ({row.floor})"
+def _floor_cell(m: Measurement) -> str:
+    text = _num(m.floor_rate)
+    return text if m.floor in ("", "entropy") else f"{text} ({m.floor})"
 
 
 # -- terminal summary -------------------------------------------------------------
 
 
-def _align(table: list[list[str]], right: set[int]) -> list[str]:
+def align(table: list[list[str]], right: set[int]) -> list[str]:
     widths = [max(len(r[i]) for r in table) for i in range(len(table[0]))]
     lines = []
     for r in table:
@@ -184,16 +120,38 @@ def _align(table: list[list[str]], right: set[int]) -> list[str]:
     return lines
 
 
-def summary_lines(rows: Sequence[CaseRow], outcome: RunOutcome, verbose: bool = False,
-                  quiet: bool = False) -> list[str]:
+@dataclass(frozen=True)
+class Line:
+    """One line of the terminal summary and the colour its status gives it."""
+
+    text: str
+    colour: Colour = ""
+
+
+def _tally_colour(outcome: RunOutcome) -> Colour:
+    """Red when the run fails on the ledger, yellow for what deserves a look, else green."""
+    if outcome.problems or any(
+        outcome.counts.get(name, 0) for name, kind in VERDICTS.items() if kind.fails
+    ):
+        return "red"
+    if outcome.stale or any(
+        outcome.counts.get(name, 0) for name, kind in VERDICTS.items() if kind.colour == "yellow"
+    ):
+        return "yellow"
+    return "green"
+
+
+def summary_lines(rows: Sequence[Comparison], outcome: RunOutcome, verbose: bool = False,
+                  quiet: bool = False) -> list[Line]:
     """The terminal summary: one line per case, then the ledger tally and the caution.
 
     Compact: codec, source, entropy, floor, rate, efficiency, change against the
     ledger. ``verbose`` adds n, seed, bits, ledger bits, excess and timings, and
     lists every stale entry (compact lists at most five). ``quiet`` leaves out
-    the cases whose bits equal the ledger's.
+    the cases whose bits equal the ledger's. Each line's colour comes from the
+    verdict table (:data:`~pytest_ratefloor.verdicts.VERDICTS`), never from its text.
     """
-    lines: list[str] = []
+    lines: list[Line] = []
     all_rows = rows
     if quiet:
         rows = [r for r in rows if r.status != "unchanged"]
@@ -204,61 +162,66 @@ def summary_lines(rows: Sequence[CaseRow], outcome: RunOutcome, verbose: bool = 
         header.append("vs. ledger")
         table = [header]
         for r in rows:
-            name = r.codec if not (verbose and r.codec_version) else f"{r.codec} {r.codec_version}"
-            cells = [name, r.source, _num(r.entropy), _floor_cell(r), _num(r.rate),
-                     _pct(r.efficiency)]
+            m = r.case
+            name = m.codec if not (verbose and m.codec_version) else f"{m.codec} {m.codec_version}"
+            cells = [name, m.source, _num(m.entropy), _floor_cell(m), _num(m.rate),
+                     _pct(m.efficiency)]
             if verbose:
-                excess = None if r.floor_rate is None else r.rate - r.floor_rate
-                cells += [str(r.n), str(r.seed), f"{r.bits:,}",
+                cells += [str(m.n), str(m.seed), f"{m.bits:,}",
                           "–" if r.ledger_bits is None else f"{r.ledger_bits:,}",
-                          _num(excess), _num(r.encode_seconds, 3), _num(r.decode_seconds, 3)]
+                          _num(m.excess), _num(m.encode_seconds, 3), _num(m.decode_seconds, 3)]
             cells.append(delta_text(r))
             table.append(cells)
         right = {2, 3, 4, 5} | ({6, 7, 8, 9, 10, 11, 12} if verbose else set())
-        lines += _align(table, right)
+        texts = align(table, right)
+        lines.append(Line(texts[0]))
+        lines += [Line(t, "" if r.status is None else VERDICTS[r.status].colour)
+                  for t, r in zip(texts[1:], rows)]
     if outcome.ledger_path is not None and not outcome.ledger_exists and rows:
-        lines.append(f"no ledger at {outcome.ledger_path} yet: every case is new; "
-                     "create it with: pytest --ratefloor-record")
+        lines.append(Line(f"no ledger at {outcome.ledger_path} yet: every case is new; "
+                          "create it with: pytest --ratefloor-record", "yellow"))
     elif outcome.ledger_path is not None:
         verb = "recorded into" if outcome.recorded else "compared with"
         slack = f", slack {100.0 * outcome.slack:g}%" if outcome.slack else ""
-        lines.append(f"ledger {verb} {outcome.ledger_path}{slack}: {counts_text(outcome.counts)}")
+        lines.append(Line(
+            f"ledger {verb} {outcome.ledger_path}{slack}: {counts_text(outcome.counts)}",
+            _tally_colour(outcome),
+        ))
     if outcome.stale:
         shown = outcome.stale if verbose else outcome.stale[:5]
         count = len(outcome.stale)
-        lines.append(
+        lines.append(Line(
             f"stale: {count} ledger entr{'y' if count == 1 else 'ies'} not measured by this "
-            "full run (kept in the ledger; delete by hand if the case is gone):"
-        )
-        lines += [f"  {e.codec} | {e.source} | n={e.n} | seed={e.seed}" for e in shown]
+            "full run (kept in the ledger; delete by hand if the case is gone):", "yellow"))
+        lines += [Line(f"  {e.key.label}") for e in shown]
         if len(shown) < len(outcome.stale):
-            lines.append(f"  ... {len(outcome.stale) - len(shown)} more (-v lists all)")
+            lines.append(Line(f"  ... {len(outcome.stale) - len(shown)} more (-v lists all)"))
     elif outcome.partial_reasons:
         why = "; ".join(outcome.partial_reasons)
-        lines.append(f"stale entries not listed: partial run ({why})")
-    lines += [f"ERROR: {p}" for p in outcome.problems]
+        lines.append(Line(f"stale entries not listed: partial run ({why})"))
+    lines += [Line(f"ERROR: {p}", "red") for p in outcome.problems]
     if all_rows:
-        lines.append(CAUTION)
+        lines.append(Line(CAUTION))
     return lines
 
 
 # -- Markdown ------------------------------------------------------------------------
 
 
-def _md_cell(text: str) -> str:
+def md_cell(text: str) -> str:
     """Escape what would break a GitHub-flavoured Markdown table cell."""
     return text.replace("\\", "\\\\").replace("|", "\\|").replace("\n", " ")
 
 
 def _md_code(text: str) -> str:
-    return f"`{_md_cell(text)}`" if "`" not in text else _md_cell(text)
+    return f"`{md_cell(text)}`" if "`" not in text else md_cell(text)
 
 
-def markdown_tables(rows: Sequence[CaseRow], with_ledger: bool = True) -> str:
+def markdown_tables(rows: Sequence[Comparison], with_ledger: bool = True) -> str:
     """One table per codec (sorted), cases sorted by source, n, seed."""
-    by_codec: dict[tuple[str, str | None], list[CaseRow]] = {}
+    by_codec: dict[tuple[str, str | None], list[Comparison]] = {}
     for r in rows:
-        by_codec.setdefault((r.codec, r.codec_version), []).append(r)
+        by_codec.setdefault((r.case.codec, r.case.codec_version), []).append(r)
     header = ["source", "n", "seed", "entropy (bit/sym)", "floor (bit/sym)", "rate (bit/sym)",
               "efficiency"]
     align = ["---", "---:", "---:", "---:", "---:", "---:", "---:"]
@@ -270,19 +233,20 @@ def markdown_tables(rows: Sequence[CaseRow], with_ledger: bool = True) -> str:
                                           key=lambda kv: (kv[0][0], kv[0][1] or "")):
         title = f"### Codec {_md_code(codec)}"
         if version:
-            title += f" (version {_md_cell(version)})"
+            title += f" (version {md_cell(version)})"
         out += [title, "", "| " + " | ".join(header) + " |", "| " + " | ".join(align) + " |"]
-        for r in sorted(group, key=lambda r: (r.source, r.n, r.seed)):
-            cells = [_md_code(r.source), str(r.n), str(r.seed), _num(r.entropy),
-                     _md_cell(_floor_cell(r)), _num(r.rate), _pct(r.efficiency)]
+        for r in sorted(group, key=lambda r: r.key):
+            m = r.case
+            cells = [_md_code(m.source), str(m.n), str(m.seed), _num(m.entropy),
+                     md_cell(_floor_cell(m)), _num(m.rate), _pct(m.efficiency)]
             if with_ledger:
-                cells.append(_md_cell(delta_text(r)))
+                cells.append(md_cell(delta_text(r)))
             out.append("| " + " | ".join(cells) + " |")
         out.append("")
     return "\n".join(out)
 
 
-def markdown_report(rows: Sequence[CaseRow], outcome: RunOutcome, title: str = TITLE) -> str:
+def markdown_report(rows: Sequence[Comparison], outcome: RunOutcome, title: str = TITLE) -> str:
     """The release-notes report: title, caution, ledger tally, per-codec tables, stale list."""
     out = [f"## {title}", "", f"> {CAUTION}", ""]
     if outcome.ledger_path is not None and not outcome.ledger_exists:
@@ -300,7 +264,7 @@ def markdown_report(rows: Sequence[CaseRow], outcome: RunOutcome, title: str = T
                 for e in outcome.stale]
         out.append("")
     if outcome.problems:
-        out += [f"**Error:** {_md_cell(p)}" for p in outcome.problems]
+        out += [f"**Error:** {md_cell(p)}" for p in outcome.problems]
         out.append("")
     return "\n".join(out).rstrip("\n") + "\n"
 
@@ -312,14 +276,16 @@ def _finite(value: float | None) -> float | None:
     return None if value is None or not math.isfinite(value) else float(value)
 
 
-def row_json(r: CaseRow) -> dict[str, Any]:
+def row_json(r: Comparison) -> dict[str, Any]:
+    """One case of the JSON report (with its ledger comparison when there is one)."""
+    m = r.case
     out: dict[str, Any] = {
-        "codec": r.codec, "codec_version": r.codec_version, "source": r.source,
-        "source_family": r.source_family, "source_params": dict(r.source_params),
-        "n": r.n, "seed": r.seed, "bits": r.bits, "rate": _finite(r.rate),
-        "entropy": _finite(r.entropy), "floor": r.floor, "floor_rate": _finite(r.floor_rate),
-        "efficiency": _finite(r.efficiency), "fingerprint": r.fingerprint,
-        "encode_seconds": _finite(r.encode_seconds), "decode_seconds": _finite(r.decode_seconds),
+        "codec": m.codec, "codec_version": m.codec_version, "source": m.source,
+        "source_family": m.source_family, "source_params": dict(m.source_params),
+        "n": m.n, "seed": m.seed, "bits": m.bits, "rate": _finite(m.rate),
+        "entropy": _finite(m.entropy), "floor": m.floor, "floor_rate": _finite(m.floor_rate),
+        "efficiency": _finite(m.efficiency), "fingerprint": m.fingerprint,
+        "encode_seconds": _finite(m.encode_seconds), "decode_seconds": _finite(m.decode_seconds),
     }
     if r.status is not None:
         out["ledger"] = {"status": r.status, "bits": r.ledger_bits, "delta_bits": r.delta_bits,
@@ -327,7 +293,7 @@ def row_json(r: CaseRow) -> dict[str, Any]:
     return out
 
 
-def json_report(rows: Sequence[CaseRow], outcome: RunOutcome,
+def json_report(rows: Sequence[Comparison], outcome: RunOutcome,
                 environment: Environment | None = None) -> dict[str, Any]:
     """The versioned JSON report (builtin types only)."""
     env = environment or Environment.current()
@@ -344,7 +310,7 @@ def json_report(rows: Sequence[CaseRow], outcome: RunOutcome,
             "recorded": outcome.recorded, "counts": dict(outcome.counts),
             "full_run": not outcome.partial_reasons,
             "partial_reasons": list(outcome.partial_reasons),
-            "stale": [e.to_json() for e in outcome.stale],
+            "stale": [entry_json(e) for e in outcome.stale],
         }
     return doc
 
@@ -363,7 +329,7 @@ def report_format(path: Path) -> Literal["md", "json"]:
     return kind
 
 
-def write_report(path: Path, rows: Sequence[CaseRow], outcome: RunOutcome) -> None:
+def write_report(path: Path, rows: Sequence[Comparison], outcome: RunOutcome) -> None:
     """Write the Markdown or JSON report, chosen by suffix."""
     import json
 
@@ -401,14 +367,7 @@ def check_plot_path(path: Path) -> None:
         raise RuntimeError(PLOT_HINT)
 
 
-def _binary_entropy(p: float) -> float:
-    # h(p) = −p log2 p − (1−p) log2 (1−p), with 0·log 0 = 0 (Cover & Thomas eq. 2.5, from memory)
-    if p <= 0.0 or p >= 1.0:
-        return 0.0
-    return -p * math.log2(p) - (1.0 - p) * math.log2(1.0 - p)
-
-
-def write_plot(path: Path, rows: Iterable[CaseRow]) -> None:
+def write_plot(path: Path, rows: Iterable[Comparison]) -> None:
     """Plot measured rate against source entropy (and a Bernoulli panel if any).
 
     Left panel: every case at (H, rate) per codec, the line y = H (the entropy
@@ -420,23 +379,25 @@ def write_plot(path: Path, rows: Iterable[CaseRow]) -> None:
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
-    rows = [r for r in rows if r.entropy is not None and r.n > 0]
-    bern = [r for r in rows if r.source_family == "bernoulli" and "p" in r.source_params]
+    from pytest_ratefloor.sources import binary_entropy
+
+    cases = [r.case for r in rows if r.case.n > 0]
+    bern = [m for m in cases if m.source_family == "bernoulli" and "p" in m.source_params]
     fig = Figure(figsize=(11.0 if bern else 6.5, 5.2))
     FigureCanvasAgg(fig)
     axes = fig.subplots(1, 2 if bern else 1, squeeze=False)[0]
     markers = "os^DvP*Xh<>"
-    codecs = sorted({r.codec for r in rows})
+    codecs = sorted({m.codec for m in cases})
 
     ax = axes[0]
-    top = max([1.0] + [float(r.entropy or 0.0) for r in rows])
+    top = max([1.0] + [m.entropy for m in cases])
     xs = [0.0, top * 1.05]
     ax.plot(xs, xs, color="black", lw=1.2, label="entropy H (floor)")
     ax.plot(xs, [x + 1.0 for x in xs], color="grey", lw=1.0, ls="--",
             label="H + 1 (symbol-code ceiling)")
     for i, codec in enumerate(codecs):
-        mine = [r for r in rows if r.codec == codec]
-        ax.scatter([r.entropy for r in mine], [r.rate for r in mine], s=28, color=f"C{i % 10}",
+        mine = [m for m in cases if m.codec == codec]
+        ax.scatter([m.entropy for m in mine], [m.rate for m in mine], s=28, color=f"C{i % 10}",
                    marker=markers[i % len(markers)], label=codec, zorder=3)
     ax.set_xlabel("source entropy H (bits/symbol)")
     ax.set_ylabel("measured rate (bits/symbol)")
@@ -447,14 +408,14 @@ def write_plot(path: Path, rows: Iterable[CaseRow]) -> None:
     if bern:
         ax = axes[1]
         ps = [i / 400 for i in range(401)]
-        hs = [_binary_entropy(p) for p in ps]
+        hs = [binary_entropy(p) for p in ps]
         ax.plot(ps, hs, color="black", lw=1.2, label="h(p) (binary entropy)")
         ax.plot(ps, [h + 1.0 for h in hs], color="grey", lw=1.0, ls="--", label="h(p) + 1")
         for i, codec in enumerate(codecs):
-            mine = sorted((r for r in bern if r.codec == codec),
-                          key=lambda r: float(r.source_params["p"]))
+            mine = sorted((m for m in bern if m.codec == codec),
+                          key=lambda m: float(m.source_params["p"]))
             if mine:
-                ax.plot([float(r.source_params["p"]) for r in mine], [r.rate for r in mine],
+                ax.plot([float(m.source_params["p"]) for m in mine], [m.rate for m in mine],
                         color=f"C{i % 10}", marker=markers[i % len(markers)], ms=5, lw=0.8,
                         label=codec)
         ax.set_xlabel("Bernoulli parameter p = P(1)")

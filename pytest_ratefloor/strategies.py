@@ -38,7 +38,8 @@ from typing import Any
 
 import numpy as np
 
-from pytest_ratefloor.corruption import Corruption, corruption_schedule
+from pytest_ratefloor import validation
+from pytest_ratefloor.corruption import CORRUPTION_KINDS, Corruption, corruption_schedule
 
 __all__ = [
     "MAX_EVERY_SYMBOL",
@@ -68,10 +69,8 @@ def alphabet_of(source_or_alphabet: object) -> np.ndarray:
     if hasattr(obj, "pmf_table"):
         symbols, probs = obj.pmf_table()
         symbols = np.asarray(symbols, dtype=np.int64)[np.asarray(probs) > 0]
-    elif isinstance(obj, (int, np.integer)) and not isinstance(obj, bool):
-        if obj < 1:
-            raise ValueError(f"alphabet size must be >= 1, got {obj}")
-        symbols = np.arange(int(obj), dtype=np.int64)
+    elif isinstance(obj, (int, np.integer)) and not isinstance(obj, (bool, np.bool_)):
+        symbols = np.arange(validation.integer(obj, "alphabet size", minimum=1), dtype=np.int64)
     elif isinstance(obj, Iterable) and not isinstance(obj, (str, bytes)):
         try:
             symbols = np.asarray(list(obj), dtype=np.int64)
@@ -109,8 +108,8 @@ def symbol_sequences(
     the alphabet of length 2**16 - 1, 2**16 or 2**16 + 1. Examples shrink
     toward the empty sequence.
     """
-    if isinstance(max_length, bool) or not isinstance(max_length, int) or max_length < 1:
-        raise ValueError(f"max_length must be a positive int, got {max_length!r}")
+    max_length = validation.integer(max_length, "max_length", minimum=1)
+    large = validation.flag(large, "large")
     alphabet = alphabet_of(source_or_alphabet)
     symbols = [int(s) for s in alphabet]
     lo, hi = symbols[0], symbols[-1]
@@ -186,17 +185,19 @@ def _large(alphabet: np.ndarray, length: int, pattern: str, a: int, b: int) -> n
     return np.resize(alphabet, length).astype(np.int64)
 
 
-def _check_length(stream_length: object) -> int:
-    if (
-        isinstance(stream_length, bool)
-        or not isinstance(stream_length, (int, np.integer))
-        or stream_length < 0
-    ):
-        raise ValueError(f"stream_length must be a non-negative int, got {stream_length!r}")
-    return int(stream_length)
-
-
-_ALL_KINDS = ("truncate", "flip", "burst", "append", "random")
+def _kinds(kinds: Iterable[str] | None) -> tuple[str, ...]:
+    """The chosen damage kinds: a non-empty subset of ``CORRUPTION_KINDS``."""
+    rule = f"a non-empty subset of {CORRUPTION_KINDS}"
+    if kinds is None:
+        return CORRUPTION_KINDS
+    if isinstance(kinds, str) or not isinstance(kinds, Iterable):
+        raise TypeError(f"kinds must be {rule}, got {validation.show(kinds)}")
+    chosen = tuple(kinds)
+    if not all(isinstance(k, str) for k in chosen):
+        raise TypeError(f"kinds must be {rule}, got {validation.show(chosen)}")
+    if not chosen or not set(chosen) <= set(CORRUPTION_KINDS):
+        raise ValueError(f"kinds must be {rule}, got {validation.show(chosen)}")
+    return chosen
 
 
 def corruptions(
@@ -204,17 +205,15 @@ def corruptions(
 ) -> st.SearchStrategy[Corruption]:
     """Single corruptions of a stream of ``stream_length`` bytes.
 
-    ``kinds`` limits them to some of ``"truncate"``, ``"flip"``, ``"burst"``
-    (2..32 bits within a span of at most 32), ``"append"`` (1..64 garbage bytes)
-    and ``"random"`` (all bytes replaced). An empty stream only gets appends.
-    Shrinks toward truncation to nothing, then toward early bits and short
-    garbage.
+    ``kinds`` limits them to some of
+    :data:`~pytest_ratefloor.corruption.CORRUPTION_KINDS`: ``"truncate"``,
+    ``"flip"``, ``"burst"`` (2..32 bits within a span of at most 32),
+    ``"append"`` (1..64 garbage bytes) and ``"random"`` (all bytes replaced).
+    An empty stream only gets appends. Shrinks toward truncation to nothing,
+    then toward early bits and short garbage.
     """
-    length = _check_length(stream_length)
-    chosen = tuple(_ALL_KINDS if kinds is None else kinds)
-    unknown = [k for k in chosen if k not in _ALL_KINDS]
-    if unknown or not chosen:
-        raise ValueError(f"kinds must be a non-empty subset of {_ALL_KINDS}, got {chosen!r}")
+    length = validation.integer(stream_length, "stream_length", minimum=0)
+    chosen = _kinds(kinds)
     if length == 0:
         if "append" not in chosen:
             raise ValueError("an empty stream can only be damaged by 'append'")
@@ -241,7 +240,7 @@ def corruptions(
             .map(lambda t: _burst(length, *t))
         )
         options["random"] = key.map(lambda k: Corruption.randomize(length, k))
-    return st.one_of([options[k] for k in _ALL_KINDS if k in chosen])
+    return st.one_of([options[k] for k in CORRUPTION_KINDS if k in chosen])
 
 
 def _burst(length: int, start: int, width: int, inner: int) -> Corruption:
@@ -255,7 +254,6 @@ def corruption_schedules(
 ) -> st.SearchStrategy[list[Corruption]]:
     """Whole schedules as :func:`~pytest_ratefloor.corruption.corruption_schedule`
     makes them, for a drawn seed (shrinks toward seed 0)."""
-    length = _check_length(stream_length)
-    if isinstance(trials, bool) or not isinstance(trials, int) or trials < 1:
-        raise ValueError(f"trials must be a positive int, got {trials!r}")
+    length = validation.integer(stream_length, "stream_length", minimum=0)
+    trials = validation.integer(trials, "trials", minimum=1)
     return st.integers(0, 2**63 - 1).map(lambda seed: corruption_schedule(length, trials, seed))

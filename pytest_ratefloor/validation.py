@@ -7,7 +7,10 @@ Two rules hold for every public entry point:
 * a value of the right type but outside its range raises ``ValueError``
   (``n=0``, ``p=1.5``, ``rel=nan``).
 
-Every message has one form, ``"<name> must be <rule>, got <value>"``,
+Every message has one form, ``"<name> must be <rule>, got <value>"`` (see
+:func:`message`; a wrong type names the type wanted, ``"n must be an
+integer, got 1.5"``, a bad value the range, ``"n must be an integer >= 1,
+got 0"``),
 optionally preceded by ``"<where>: "`` when the argument belongs to a named
 thing (a source family, a ledger field). ``n``, ``seed``, ``trials``,
 tolerances and slacks are checked without a ``where``, so the same bad value
@@ -21,10 +24,11 @@ from __future__ import annotations
 import math
 import numbers
 from collections.abc import Collection
-from typing import Any, TypeVar
+from typing import TYPE_CHECKING, Any, TypeVar
 
-import numpy as np
-from numpy.typing import ArrayLike
+if TYPE_CHECKING:  # numpy is imported only where a vector is checked (not at pytest start-up)
+    import numpy as np
+    from numpy.typing import ArrayLike
 
 __all__ = [
     "PMF_SUM_TOLERANCE",
@@ -33,6 +37,7 @@ __all__ = [
     "flag",
     "function",
     "integer",
+    "message",
     "probability",
     "probability_vector",
     "real",
@@ -53,8 +58,8 @@ _T = TypeVar("_T")
 
 def show(value: object) -> str:
     """Render a user value for a message (numpy scalars as plain numbers)."""
-    if isinstance(value, np.generic):
-        value = value.item()
+    if type(value).__module__ == "numpy" and hasattr(value, "item"):
+        value = value.item()  # a numpy scalar
     text = repr(value)
     return text if len(text) <= 80 else text[:77] + "..."
 
@@ -63,18 +68,28 @@ class Described(str):
     """Text that a message shows as it is (``got a sum of 0.9``), not as a repr."""
 
 
-def _message(name: str, rule: str, value: object, where: str | None) -> str:
+def message(name: str, rule: str, value: object, where: str | None = None) -> str:
+    """The one message form: ``"[<where>: ]<name> must be <rule>, got <value>"``."""
     head = f"{where}: " if where else ""
     got = value if isinstance(value, Described) else show(value)
     return f"{head}{name} must be {rule}, got {got}"
 
 
+def _is_bool(value: object) -> bool:
+    return isinstance(value, bool) or type(value).__name__ == "bool_"  # numpy's bool too
+
+
 def _is_integer(value: object) -> bool:
-    return isinstance(value, (int, np.integer)) and not isinstance(value, (bool, np.bool_))
+    # numpy's integer types register as numbers.Integral
+    return isinstance(value, numbers.Integral) and not _is_bool(value)
 
 
 def _is_real(value: object) -> bool:
-    return isinstance(value, numbers.Real) and not isinstance(value, (bool, np.bool_))
+    return isinstance(value, numbers.Real) and not _is_bool(value)
+
+
+def _bound(x: float) -> str:
+    return str(x) if isinstance(x, int) else f"{x:g}"
 
 
 def _range_rule(kind: str, minimum: float | None, maximum: float | None,
@@ -82,11 +97,11 @@ def _range_rule(kind: str, minimum: float | None, maximum: float | None,
     if minimum is not None and maximum is not None:
         left = "(" if low_open else "["
         right = ")" if high_open else "]"
-        return f"{kind} in {left}{minimum:g}, {maximum:g}{right}"
+        return f"{kind} in {left}{_bound(minimum)}, {_bound(maximum)}{right}"
     if minimum is not None:
-        return f"{kind} {'>' if low_open else '>='} {minimum:g}"
+        return f"{kind} {'>' if low_open else '>='} {_bound(minimum)}"
     if maximum is not None:
-        return f"{kind} {'<' if high_open else '<='} {maximum:g}"
+        return f"{kind} {'<' if high_open else '<='} {_bound(maximum)}"
     return kind
 
 
@@ -97,12 +112,11 @@ def integer(value: object, name: str, *, minimum: int | None = None,
     :raises TypeError: not an integer (``bool`` and floats such as ``2.0`` included).
     :raises ValueError: outside the range.
     """
-    rule = _range_rule("an integer", minimum, maximum)
     if not _is_integer(value):
-        raise TypeError(_message(name, rule, value, where))
+        raise TypeError(message(name, "an integer", value, where))
     number = int(value)  # type: ignore[call-overload]
     if (minimum is not None and number < minimum) or (maximum is not None and number > maximum):
-        raise ValueError(_message(name, rule, value, where))
+        raise ValueError(message(name, _range_rule("an integer", minimum, maximum), value, where))
     return number
 
 
@@ -127,18 +141,18 @@ def real(value: object, name: str, *, minimum: float | None = None,
     kind = "a finite number" if finite else "a number"
     rule = _range_rule(kind, minimum, maximum, low_open, high_open)
     if not _is_real(value):
-        raise TypeError(_message(name, rule, value, where))
+        raise TypeError(message(name, "a number", value, where))
     try:
         number = float(value) + 0.0  # type: ignore[arg-type]
     except OverflowError:
-        raise ValueError(_message(name, rule, value, where)) from None
+        raise ValueError(message(name, rule, value, where)) from None
     bad = math.isnan(number) or (finite and math.isinf(number))
     if minimum is not None:
         bad = bad or number < minimum or (low_open and number == minimum)
     if maximum is not None:
         bad = bad or number > maximum or (high_open and number == maximum)
     if bad:
-        raise ValueError(_message(name, rule, value, where))
+        raise ValueError(message(name, rule, value, where))
     return number
 
 
@@ -165,67 +179,71 @@ def slack(value: object, name: str) -> float:
         try:
             number = float(value.strip())
         except ValueError:
-            raise ValueError(_message(name, rule, value, None)) from None
+            raise ValueError(message(name, rule, value, None)) from None
         if not (math.isfinite(number) and number >= 0.0):
-            raise ValueError(_message(name, rule, value, None))
+            raise ValueError(message(name, rule, value, None))
         return number + 0.0
     if not _is_real(value):
-        raise TypeError(_message(name, rule, value, None))
+        raise TypeError(message(name, "a number", value, None))
     number = float(value)  # type: ignore[arg-type]
     if not (math.isfinite(number) and number >= 0.0):
-        raise ValueError(_message(name, rule, value, None))
+        raise ValueError(message(name, rule, value, None))
     return number + 0.0
 
 
 def flag(value: object, name: str) -> bool:
     """A ``bool`` (not a truthy stand-in such as ``1`` or ``"yes"``)."""
-    if not isinstance(value, (bool, np.bool_)):
-        raise TypeError(_message(name, "True or False", value, None))
+    if not _is_bool(value):
+        raise TypeError(message(name, "True or False", value, None))
     return bool(value)
 
 
 def text(value: object, name: str, *, where: str | None = None) -> str:
     """A non-empty string."""
     if not isinstance(value, str):
-        raise TypeError(_message(name, "a non-empty string", value, where))
+        raise TypeError(message(name, "a non-empty string", value, where))
     if not value.strip():
-        raise ValueError(_message(name, "a non-empty string", value, where))
+        raise ValueError(message(name, "a non-empty string", value, where))
     return value
 
 
 def choice(value: object, name: str, choices: Collection[_T], *,
            where: str | None = None) -> _T:
     """One of ``choices`` (strings compared exactly)."""
-    listed = ", ".join(repr(c) for c in choices)
-    rule = f"one of {listed}"
+    if isinstance(value, str) and value in choices:
+        return value  # type: ignore[return-value]
+    rule = "one of " + ", ".join(repr(c) for c in choices)
     if not isinstance(value, str):
-        raise TypeError(_message(name, rule, value, where))
-    if value not in choices:
-        raise ValueError(_message(name, rule, value, where))
-    return value  # type: ignore[return-value]
+        raise TypeError(message(name, rule, value, where))
+    raise ValueError(message(name, rule, value, where))
 
 
 def function(value: object, name: str) -> Any:
     """A callable."""
     if not callable(value):
-        raise TypeError(_message(name, "callable", value, None))
+        raise TypeError(message(name, "callable", value, None))
     return value
 
 
 def _float_vector(values: object, name: str, what: str, where: str | None) -> np.ndarray:
+    import numpy as np
+
     if isinstance(values, (str, bytes)):
-        raise TypeError(_message(name, f"a sequence of {what}", values, where))
+        raise TypeError(message(name, f"a sequence of {what}", values, where))
     try:
-        arr = np.asarray(values, dtype=np.float64)
+        raw = np.asarray(values)
+        if raw.dtype.kind not in "iuf":  # None, strings, bools, objects: not numbers
+            raise TypeError
+        arr = raw.astype(np.float64)
     except (TypeError, ValueError):
-        raise TypeError(_message(name, f"a sequence of {what}", values, where)) from None
+        raise TypeError(message(name, f"a sequence of {what}", values, where)) from None
     if arr.ndim != 1 or arr.size == 0:
-        raise ValueError(_message(name, f"a non-empty 1-D sequence of {what}",
+        raise ValueError(message(name, f"a non-empty 1-D sequence of {what}",
                                   Described(f"shape {arr.shape}"), where))
     bad = np.flatnonzero(~np.isfinite(arr) | (arr < 0))
     if bad.size:
         i = int(bad[0])
-        raise ValueError(_message(f"{name}[{i}]", "finite and >= 0", float(arr[i]), where))
+        raise ValueError(message(f"{name}[{i}]", "finite and >= 0", float(arr[i]), where))
     return arr + 0.0
 
 
@@ -235,7 +253,7 @@ def probability_vector(values: ArrayLike, name: str = "probs", *,
     arr = _float_vector(values, name, "probabilities", where)
     total = math.fsum(arr.tolist())
     if abs(total - 1.0) > PMF_SUM_TOLERANCE:
-        raise ValueError(_message(name, f"a pmf summing to 1 within {PMF_SUM_TOLERANCE:g}",
+        raise ValueError(message(name, f"a pmf summing to 1 within {PMF_SUM_TOLERANCE:g}",
                                   Described(f"a sum of {total!r}"), where))
     return arr
 
@@ -244,5 +262,5 @@ def weights(values: ArrayLike, name: str = "probs", *, where: str | None = None)
     """Non-negative finite weights, not all zero (need not sum to 1)."""
     arr = _float_vector(values, name, "weights", where)
     if not bool((arr > 0).any()):
-        raise ValueError(_message(name, "weights not all zero", values, where))
+        raise ValueError(message(name, "weights not all zero", values, where))
     return arr

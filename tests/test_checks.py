@@ -124,18 +124,18 @@ def test_tolerance_defaults_and_validation() -> None:
     assert tolerance(0.05, None) == (0.05, 0.0)
     assert tolerance(None, 0.1) == (0.0, 0.1)
     assert tolerance(0, 0) == (0.0, 0.0)
-    with pytest.raises(ValueError, match=r"tolerance rel must be finite and >= 0, got -0\.1"):
+    with pytest.raises(ValueError, match=r"rel must be a finite number >= 0, got -0\.1"):
         tolerance(-0.1, None)
-    with pytest.raises(ValueError, match="tolerance abs must be a number, got '1'"):
+    with pytest.raises(TypeError, match="abs must be a number, got '1'"):
         tolerance(None, "1")  # type: ignore[arg-type]
-    with pytest.raises(ValueError, match="tolerance abs must be finite"):
+    with pytest.raises(ValueError, match="abs must be a finite number >= 0, got inf"):
         tolerance(None, math.inf)
 
 
 def test_arguments_are_checked() -> None:
-    with pytest.raises(ValueError, match="n must be >= 1, got 0"):
+    with pytest.raises(ValueError, match="n must be an integer >= 1, got 0"):
         measure(zlib_codec(), sources.uniform(4), n=0)
-    with pytest.raises(ValueError, match=r"seed must be an int, got 1\.5"):
+    with pytest.raises(TypeError, match=r"seed must be an integer, got 1\.5"):
         assert_roundtrip(zlib_codec(), sources.uniform(4), seed=1.5)  # type: ignore[arg-type]
     with pytest.raises(ValueError, match="floor must be one of 'entropy'.*got 'shanon'"):
         assert_rate(zlib_codec(), sources.uniform(4), floor="shanon")

@@ -82,7 +82,7 @@ def test_diff_counts_every_kind_and_exits_1_on_regression(
     assert main(["diff", str(old), str(new)]) == 1
     out = capsys.readouterr().out
     assert out.splitlines()[-1] == (
-        "cases: 1 regressed, 0 resampled, 0 within-slack, 1 improved, 1 unchanged, 1 new, "
+        "cases: 1 regressed, 0 resampled, 0 within-slack, 1 improved, 1 new, 1 unchanged, "
         "1 dropped"
     )
     line = next(x for x in out.splitlines() if "geometric(p=0.5)" in x)
@@ -116,8 +116,8 @@ def test_diff_of_identical_ledgers(two_ledgers: tuple[Path, Path],
     [
         (["show", "missing.json"], "missing.json: no such file"),
         (["diff", "{corrupt}", "{corrupt}"], "not valid JSON"),
-        (["diff", "{good}", "{good}", "--slack", "x"], "--slack: expected a relative slack"),
-        (["diff", "{good}", "{good}", "--slack", "-1"], "--slack: must be a finite number"),
+        (["diff", "{good}", "{good}", "--slack", "x"], "--slack must be a finite number >= 0"),
+        (["diff", "{good}", "{good}", "--slack", "-1"], "--slack must be a finite number"),
         (["entropy", "missing.bin"], "missing.bin: no such file"),
         (["entropy", "{odd}", "--symbol", "u16le"], "3 bytes is not a whole number of u16le"),
         (["entropy", "{odd}", "--order", "-1"], "--order: must be >= 0"),
@@ -180,7 +180,7 @@ def test_entropy_of_a_file(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -
     assert f"order-1 conditional entropy (estimate):  {h1:.4f} bits/symbol" in out
     assert f"zlib level 9:  {len(zlib.compress(data, 9)):,} bytes" in out
     assert f"lzma preset 9: {len(lzma.compress(data, preset=9)):,} bytes" in out
-    assert "1,024 bytes = 1,024 u8 symbols, 3 distinct" in out
+    assert "1,024 bytes = 1,024 symbols (layout u8), 3 distinct" in out
     assert "estimate" in out.splitlines()[-1].lower()
 
 
@@ -197,16 +197,16 @@ def test_entropy_of_bits_and_words(tmp_path: Path, capsys: pytest.CaptureFixture
     symbols = [int(w) for w in words]
     assert f"{_plugin_h0(Counter(symbols)):.4f} bits/symbol" in out
     assert f"{_conditional_entropy(symbols, 2):.4f} bits/symbol" in out
-    assert "3,000 u16le symbols" in out
+    assert "3,000 symbols (layout u16le)" in out
 
     bits_path = tmp_path / "flags.bin"
     bits_path.write_bytes(bytes([0b00000001]) * 100)  # one 1 in every 8 bits
-    assert main(["entropy", str(bits_path), "--symbol", "bit", "--order", "0"]) == 0
+    assert main(["entropy", str(bits_path), "--symbol", "bits", "--order", "0"]) == 0
     out = capsys.readouterr().out
     # h(1/8) from the closed form of the binary entropy
     h = -(1 / 8) * math.log2(1 / 8) - (7 / 8) * math.log2(7 / 8)
     assert f"order-0 entropy (estimate):  {h:.4f} bits/symbol" in out
-    assert "800 bit symbols" in out
+    assert "800 symbols (layout bits)" in out
     assert "conditional" not in out
 
 

@@ -12,10 +12,12 @@ from bitarray import bitarray
 
 from pytest_ratefloor import sources
 from pytest_ratefloor.codecs import (
+    PAYLOAD_KINDS,
     ByteCodec,
     CodebookCodec,
     CodecContractError,
     Encoded,
+    PayloadShape,
     StreamCodec,
     as_codec,
     encoded_from_stream,
@@ -194,8 +196,127 @@ def test_as_codec_shapes() -> None:
     enc = wrapped.encode(np.array([3, 4]))
     assert isinstance(enc, Encoded)
     assert wrapped.decode(enc, 2).tolist() == [3, 4]
-    with pytest.raises(TypeError, match="cannot use int as a codec"):
+    with pytest.raises(TypeError, match="cannot use int as a codec") as info:
         as_codec(42)
+    assert "an (encode, decode) pair of callables" in str(info.value)
+
+
+def u8_encode(symbols: np.ndarray) -> bytes:
+    return symbols.astype(np.uint8).tobytes()
+
+
+def u8_decode(data: bytes, n: int) -> np.ndarray:
+    return np.frombuffer(data, dtype=np.uint8)
+
+
+@pytest.mark.parametrize("container", [tuple, list])
+def test_as_codec_accepts_an_encode_decode_pair(container: type) -> None:
+    codec = as_codec(container([u8_encode, u8_decode]))
+    assert isinstance(codec, StreamCodec)
+    assert codec.name == "u8_decode"  # named after the decoder's qualname
+    assert codec.version is None
+    assert codec.for_source(sources.uniform(4)) is codec
+    encoded = codec.encode(np.array([3, 1, 4]))
+    assert encoded == Encoded(b"\x03\x01\x04", 24)
+    assert codec.decode(encoded, 3).tolist() == [3, 1, 4]
+    # a lambda keeps its qualname, as the corruption check has always named it
+    named = as_codec((u8_encode, lambda d, n: d)).name
+    assert named == "test_as_codec_accepts_an_encode_decode_pair.<locals>.<lambda>"
+
+
+def test_as_codec_pair_items_must_be_callable() -> None:
+    with pytest.raises(TypeError, match=r"^codec pair must be two callables \(encode, decode\)"):
+        as_codec((u8_encode, 3))
+    with pytest.raises(TypeError, match="cannot use tuple as a codec"):
+        as_codec((u8_encode, u8_decode, u8_decode))
+
+
+# ------------------------------------------------------------ payload shapes
+
+def test_encoded_stream_and_shape_of_each_payload_kind() -> None:
+    raw = encoded_from_stream(bytearray(b"\x01\x02"))
+    assert (raw.stream, raw.shape) == (b"\x01\x02", PayloadShape("bytes"))
+    bits = encoded_from_stream(bitarray("1011001110001", endian="little"))
+    # reference: bitarray's own byte conversion (zero padding at the end)
+    assert bits.stream == bitarray("1011001110001", endian="little").tobytes()
+    assert bits.shape == PayloadShape("bitarray", pad=3, endian="little")
+    pair = encoded_from_stream((b"\xab\xc0", 10))
+    assert (pair.stream, pair.shape) == (b"\xab\xc0", PayloadShape("pair", pad=6))
+    assert {raw.shape.kind, bits.shape.kind, pair.shape.kind} == set(PAYLOAD_KINDS)
+    with pytest.raises(TypeError, match="payload of type list has no stream shape"):
+        _ = Encoded([1, 2], 16).shape
+
+
+@pytest.mark.parametrize(
+    ("payload", "damaged", "expected"),
+    [
+        (b"abc", b"ab", (b"ab", 16)),
+        (b"abc", b"abcdef", (b"abcdef", 48)),
+        ((b"\xab\xc0", 10), b"\xab", ((b"\xab", 2), 2)),
+        ((b"\xab\xc0", 10), b"\xab\xc0\x01", ((b"\xab\xc0\x01", 18), 18)),
+        ((b"\xab\xc0", 10), b"", ((b"", 0), 0)),
+        (bitarray("1" * 13, endian="big"), b"\xff\x00", (bitarray("1" * 8 + "0" * 5), 13)),
+        (bitarray("1" * 13, endian="big"), b"", (bitarray(), 0)),
+        (bitarray("1" * 13, endian="big"), b"\xff\xff\x0f", (bitarray("1" * 16 + "00001"), 21)),
+    ],
+)
+def test_rebuild_keeps_the_shape_and_the_padding(
+    payload: object, damaged: bytes, expected: tuple[object, int]
+) -> None:
+    # length 8·len(damaged) − pad: unchanged length keeps the bit count, a cut
+    # removes whole bytes, appended bytes add 8 bits each
+    rebuilt = encoded_from_stream(payload).rebuild(damaged)
+    assert (rebuilt.payload, rebuilt.bits) == expected
+    assert type(rebuilt.payload) is type(encoded_from_stream(payload).payload)
+
+
+def test_rebuild_keeps_bit_order() -> None:
+    little = encoded_from_stream(bitarray("1", endian="little"))
+    rebuilt = little.rebuild(b"\x03")
+    assert rebuilt.payload.endian == "little"
+    assert rebuilt.payload == bitarray("1", endian="little")  # 7 padding bits dropped
+    assert little.rebuild(b"\x03\x80").payload == bitarray("110000000", endian="little")
+
+
+@pytest.mark.parametrize(
+    "payload", [b"xyz", (b"\xab\xc0", 10), bitarray("10110", endian="little"), (b"", 0)]
+)
+@pytest.mark.parametrize("size", [0, 1, 2, 5])
+def test_shape_records_round_trip(payload: object, size: int) -> None:
+    shape = encoded_from_stream(payload).shape
+    record = shape.to_record(size)
+    assert set(record) == {"shape", "nbits", "endian"}
+    data = bytes(range(size))
+    again = PayloadShape.from_record(record, size)
+    assert again.rebuild(data) == shape.rebuild(data)
+
+
+def test_shape_records_are_checked() -> None:
+    assert PayloadShape.from_record({}, 3) == PayloadShape("bytes")
+    with pytest.raises(ValueError, match=r"^pad must be an integer in \[0, 7\], got 9$"):
+        PayloadShape.from_record({"shape": "pair", "nbits": 7}, 2)
+    with pytest.raises(ValueError, match=r"^payload kind must be one of 'bytes', 'bitarray'"):
+        PayloadShape("text")  # type: ignore[arg-type]
+    with pytest.raises(ValueError, match=r"^endian must be one of 'big', 'little', got 'middle'$"):
+        PayloadShape("bitarray", endian="middle")  # type: ignore[arg-type]
+    with pytest.raises(ValueError, match=r"^pad must be an integer in \[0, 0\], got 2$"):
+        PayloadShape("bytes", pad=2)
+
+
+# ---------------------------------------------------------- replay statements
+
+def test_each_adapter_writes_its_own_replay_statement() -> None:
+    from pytest_ratefloor.codes import Codebook
+
+    stream = as_codec((u8_encode, u8_decode))
+    assert stream.replay_statement("P", 7) == f"import {__name__}; {__name__}.u8_decode(P, 7)"
+    local = StreamCodec(u8_encode, lambda d, n: d)
+    assert local.replay_statement("P", 7) == "decode(P, 7)"
+    zlib_codec = ByteCodec(zlib.compress, zlib.decompress, packing="u8")
+    assert zlib_codec.replay_statement("P", 7) == "import zlib; zlib.decompress(P)"
+    assert ByteCodec(zlib.compress, lambda b: b).replay_statement("P", 7) == "decompress(P)"
+    book = as_codec(Codebook({0: "0", 1: "1"}))
+    assert book.replay_statement("P", 7) == "codebook.decode(P, 7)"
 
 
 def test_codebook_as_codec_uses_the_codebook() -> None:

@@ -5,6 +5,8 @@ from __future__ import annotations
 
 import itertools
 import random
+import re
+from collections.abc import Callable, Iterator, Mapping
 from fractions import Fraction
 
 import numpy as np
@@ -75,28 +77,93 @@ def test_codewords_are_frozen_copies() -> None:
         cb.codewords[0].append(1)
 
 
+BINARY_TEXT = "must be a non-empty string of the characters '0' and '1'"
+
+
 @pytest.mark.parametrize(
     ("mapping", "needle"),
     [
-        ({3: ""}, "symbol 3 has an empty codeword"),
-        ({3: bitarray()}, "symbol 3 has an empty codeword"),
-        ({4: "01x1"}, "'x'"),
-        ({4: "0 1"}, "symbol 4"),
-        ({5: (1, -2)}, "negative length -2"),
-        ({5: (0, 0)}, "symbol 5 has an empty codeword"),
-        ({6: (8, 3)}, "value 8 does not fit in 3 bits"),
-        ({6: (-1, 3)}, "value -1 does not fit"),
-        ({"a": "0"}, "symbol 'a' is not an integer"),
-        ({1.0: "0"}, "symbol 1.0 is not an integer"),
-        ({7: 3.5}, "codeword of symbol 7 must be"),
-        ({2**70: "0"}, "does not fit in a signed 64-bit integer"),
-        ({}, "empty"),
+        ({3: ""}, f"codeword of symbol 3 {BINARY_TEXT}, got ''"),
+        ({3: bitarray()}, "codeword of symbol 3 must be a non-empty bitarray, got bitarray()"),
+        ({4: "01x1"}, f"codeword of symbol 4 {BINARY_TEXT}, got '01x1'"),
+        ({4: "0 1"}, f"codeword of symbol 4 {BINARY_TEXT}, got '0 1'"),
+        ({5: (1, -2)}, "length of codeword (1, -2) of symbol 5 must be an integer >= 1, got -2"),
+        ({5: (0, 0)}, "length of codeword (0, 0) of symbol 5 must be an integer >= 1, got 0"),
+        ({6: (8, 3)}, "value of codeword (8, 3) of symbol 6 must be an integer in [0, 2**3 - 1]"),
+        ({6: (8, 3)}, "(it must fit in 3 bits), got 8"),
+        ({6: (-1, 3)}, "value of codeword (-1, 3) of symbol 6 must be an integer in [0, 2**3 - 1]"),
+        ({6: [2, 1]}, "value of codeword [2, 1] of symbol 6 must be an integer in [0, 2**1 - 1]"),
+        ({2**70: "0"}, f"symbol must be an integer in the signed 64-bit range, got {2**70}"),
+        ({}, "mapping must hold at least one codeword, got {}"),
     ],
 )
-def test_bad_tables_are_value_errors_naming_the_symbol(mapping: dict, needle: str) -> None:
-    with pytest.raises(ValueError, match=r"codebook|symbol|codeword") as info:
+def test_bad_table_values_are_value_errors_naming_symbol_and_codeword(
+    mapping: dict, needle: str
+) -> None:
+    with pytest.raises(ValueError) as info:
         Codebook(mapping, name="gauge")
+    assert str(info.value).startswith("codebook 'gauge': ")
     assert needle in str(info.value)
+
+
+@pytest.mark.parametrize(
+    ("mapping", "needle"),
+    [
+        ({"a": "0"}, "symbol must be an integer, got 'a'"),
+        ({1.0: "0"}, "symbol must be an integer, got 1.0"),
+        ({True: "0"}, "symbol must be an integer, got True"),  # a bool is not a number
+        (
+            {7: 3.5},
+            "codeword of symbol 7 must be a '0'/'1' string, a bitarray or a (value, length) "
+            "pair, got 3.5",
+        ),
+        ({7: (1, 2, 3)}, "codeword of symbol 7 must be a '0'/'1' string"),
+        ({7: None}, "codeword of symbol 7 must be a '0'/'1' string"),
+        ({7: (1.0, 2)}, "value of codeword (1.0, 2) of symbol 7 must be an integer, got 1.0"),
+        ({7: (1, 2.0)}, "length of codeword (1, 2.0) of symbol 7 must be an integer, got 2.0"),
+        ({7: (1, True)}, "length of codeword (1, True) of symbol 7 must be an integer, got True"),
+    ],
+)
+def test_bad_table_types_are_type_errors_naming_symbol_and_codeword(
+    mapping: dict, needle: str
+) -> None:
+    with pytest.raises(TypeError) as info:
+        Codebook(mapping, name="gauge")
+    assert str(info.value).startswith("codebook 'gauge': ")
+    assert needle in str(info.value)
+
+
+def test_value_length_pairs_of_numpy_integers_are_accepted() -> None:
+    cb = Codebook({0: (np.int64(1), np.uint8(2)), 1: [np.int32(0), 1]})
+    assert [cb.word(0), cb.word(1)] == ["01", "0"]
+
+
+def test_codebook_needs_a_mapping_and_a_string_name() -> None:
+    with pytest.raises(TypeError, match=r"codebook 'gauge': mapping must be a \{symbol: code"):
+        Codebook([(0, "0")], name="gauge")  # type: ignore[arg-type]
+    with pytest.raises(TypeError, match="codebook name must be a string, got 5"):
+        Codebook({0: "0"}, name=5)  # type: ignore[arg-type]
+
+
+class RepeatedKeys(Mapping):
+    """A mapping whose items list one symbol twice (a dict cannot)."""
+
+    def __getitem__(self, key: object) -> str:
+        raise KeyError(key)
+
+    def __iter__(self) -> Iterator[int]:
+        return iter([])
+
+    def __len__(self) -> int:
+        return 2
+
+    def items(self):  # type: ignore[override]
+        return [(np.int64(3), "0"), (3, "1")]
+
+
+def test_a_symbol_listed_twice_is_a_value_error() -> None:
+    with pytest.raises(ValueError, match="codebook 'gauge': symbols must be distinct, got 3 twice"):
+        Codebook(RepeatedKeys(), name="gauge")
 
 
 def test_duplicate_codewords_are_accepted_at_construction() -> None:
@@ -148,8 +215,15 @@ def test_encode_unknown_symbol_names_symbol_and_index() -> None:
 
 
 def test_encode_rejects_non_integer_input() -> None:
-    with pytest.raises(ValueError, match="integers"):
-        Codebook({0: "0", 1: "1"}).encode(np.array([0.5, 1.0]))
+    cb = Codebook({0: "0", 1: "1"})
+    with pytest.raises(TypeError, match="symbols must be a 1-D array of integers, got dtype float"):
+        cb.encode(np.array([0.5, 1.0]))
+    with pytest.raises(TypeError, match="symbols must be a 1-D array of integers, got '01'"):
+        cb.encode("01")  # type: ignore[arg-type]
+    with pytest.raises(ValueError, match=r"symbols must be a 1-D array of integers, got shape"):
+        cb.encode(np.zeros((2, 2), dtype=np.int64))
+    with pytest.raises(ValueError, match="symbols must be integers in the signed 64-bit range"):
+        cb.encode(np.array([2**64 - 1], dtype=np.uint64))
 
 
 def test_encode_empty_and_decode_zero() -> None:
@@ -204,12 +278,16 @@ def test_decode_codewords_beyond_bitarrays_tree_limit() -> None:
         cb.decode(cb.encode(data), data.size + 1)
 
 
-def test_decode_rejects_bad_n() -> None:
-    cb = Codebook({0: "0", 1: "1"})
-    with pytest.raises(ValueError, match="n must be >= 0"):
+def test_decode_rejects_bad_n_and_bad_streams() -> None:
+    cb = Codebook({0: "0", 1: "1"}, name="tide")
+    with pytest.raises(ValueError, match="n must be an integer >= 0, got -1"):
         cb.decode(bitarray("0"), -1)
-    with pytest.raises(ValueError, match="n must be an integer"):
+    with pytest.raises(TypeError, match=r"n must be an integer, got 1\.5"):
         cb.decode(bitarray("0"), 1.5)  # type: ignore[arg-type]
+    with pytest.raises(TypeError, match="n must be an integer, got True"):
+        cb.decode(bitarray("0"), True)
+    with pytest.raises(TypeError, match="codebook 'tide': bits must be a bitarray or bytes, got"):
+        cb.decode("01", 2)  # type: ignore[arg-type]
 
 
 # ------------------------------------------------------------------ prefix-freeness
@@ -285,6 +363,14 @@ def test_assert_prefix_free_message_for_a_shared_codeword() -> None:
 def test_prefix_failure_is_an_assertion_error() -> None:
     with pytest.raises(AssertionError):
         codes.assert_prefix_free({0: "0", 1: "0"})
+
+
+@pytest.mark.parametrize(
+    "check", [codes.prefix_witness, codes.kraft_sum, codes.is_canonical, codes.assert_kraft]
+)
+def test_a_code_must_be_a_codebook_or_a_mapping(check: Callable[..., object]) -> None:
+    with pytest.raises(TypeError, match=r"code must be a Codebook or a \{symbol: codeword\} map"):
+        check(["0", "1"])
 
 
 # ------------------------------------------------------------------------------ Kraft
@@ -397,14 +483,33 @@ def test_canonical_codebook_skips_zero_lengths_and_accepts_arrays() -> None:
 
 
 def test_canonical_codebook_refuses_overfull_lengths() -> None:
-    with pytest.raises(ValueError, match=r"Kraft sum 5/4 > 1"):
+    with pytest.raises(ValueError, match=r"Kraft sum Σ2\^-ℓ <= 1 .*got a Kraft sum of 5/4"):
         codes.canonical_codebook({0: 1, 1: 1, 2: 2})
-    with pytest.raises(ValueError, match="negative length"):
+    with pytest.raises(ValueError, match="length of symbol 1 must be an integer >= 0, got -1"):
         codes.canonical_codebook({0: 1, 1: -1})
-    with pytest.raises(ValueError, match="empty"):
+    with pytest.raises(ValueError, match="length of symbol 1 must be an integer >= 0, got -1"):
+        codes.canonical_codebook((np.array([0, 1]), np.array([1, -1])))
+    with pytest.raises(ValueError, match="at least one symbol a positive length"):
         codes.canonical_codebook({0: 0})
-    with pytest.raises(ValueError, match="symbol 4 is listed twice"):
+    with pytest.raises(ValueError, match="symbols must be distinct, got 4 twice"):
         codes.canonical_codebook((np.array([4, 1, 4]), np.array([1, 2, 2])))
+    with pytest.raises(ValueError, match="symbols and lengths must be the same size, got 3 and 2"):
+        codes.canonical_codebook((np.array([4, 1, 5]), np.array([1, 1])))
+    with pytest.raises(ValueError, match=r"lengths must be a \{symbol: length\} mapping or a"):
+        codes.canonical_codebook(([0], [1], [2]))  # type: ignore[arg-type]
+
+
+def test_canonical_codebook_refuses_wrong_types() -> None:
+    with pytest.raises(TypeError, match=r"length of symbol 0 must be an integer, got 1\.5"):
+        codes.canonical_codebook({0: 1.5, 1: 1})  # type: ignore[dict-item]
+    with pytest.raises(TypeError, match="symbol must be an integer, got 'a'"):
+        codes.canonical_codebook({"a": 1, 1: 1})  # type: ignore[dict-item]
+    with pytest.raises(TypeError, match=r"lengths must be a 1-D array of integers, got dtype"):
+        codes.canonical_codebook((np.array([0, 1]), np.array([1.0, 1.0])))
+    with pytest.raises(TypeError, match=r"lengths must be a \{symbol: length\} mapping or a"):
+        codes.canonical_codebook(5)  # type: ignore[arg-type]
+    with pytest.raises(TypeError, match="codebook name must be a string, got 7"):
+        codes.canonical_codebook({0: 1, 1: 1}, name=7)  # type: ignore[arg-type]
 
 
 def test_canonical_with_long_codewords_uses_exact_integers() -> None:
@@ -469,6 +574,21 @@ def test_length_cap_failure_names_symbol_length_and_cap() -> None:
     assert "2 codewords over the cap" in msg
 
 
+@pytest.mark.parametrize("check", [codes.assert_prefix_free, codes.assert_kraft])
+def test_length_cap_must_be_a_positive_integer(check: Callable[..., object]) -> None:
+    words = {0: "0", 1: "10", 2: "11"}
+    for bad in (2.5, True, "4", 4.0):
+        expected = re.escape(f"max_length must be an integer, got {bad!r}")
+        with pytest.raises(TypeError, match=expected):
+            check(words, max_length=bad)
+    for bad in (0, -3):
+        with pytest.raises(ValueError, match=f"max_length must be an integer >= 1, got {bad}"):
+            check(words, max_length=bad)
+    # the argument is checked before the code: a bad cap is named even on a bad code
+    with pytest.raises(TypeError, match="max_length"):
+        check({0: "0", 1: "0", 2: "1"}, max_length=2.5)
+
+
 # ------------------------------------------------------------------ inside pytest
 
 
@@ -493,5 +613,5 @@ def test_failures_show_in_a_pytest_run(pytester: pytest.Pytester) -> None:
             "*KraftFailure: *Kraft sum*= 5/4 > 1*McMillan*",
         ]
     )
-    # __tracebackhide__: the traceback stops at the user's call, not inside codes.py
+    # __tracebackhide__: the traceback stops at the user's call, not inside the codes package
     assert "def assert_prefix_free" not in result.stdout.str()

@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import itertools
 import math
+import re
 from fractions import Fraction
 
 import mpmath
@@ -107,17 +108,33 @@ def test_degenerate_pmfs() -> None:
 @pytest.mark.parametrize(
     ("probs", "needle"),
     [
-        ([], "empty"),
-        ([0.0, 0.0], "all zero"),
-        ([0.5, float("nan")], r"probs\[1\] = nan"),
-        ([0.5, -0.1, 0.6], r"probs\[1\] = -0.1"),
-        ([[0.5, 0.5]], "1-D"),
-        (["a", "b"], "numbers"),
+        ([], r"probs must be a non-empty 1-D sequence of weights, got shape \(0,\)"),
+        ([0.0, 0.0], r"probs must be weights not all zero, got \[0.0, 0.0\]"),
+        ([0.5, float("nan")], r"probs\[1\] must be finite and >= 0, got nan"),
+        ([0.5, -0.1, 0.6], r"probs\[1\] must be finite and >= 0, got -0.1"),
+        ([[0.5, 0.5]], r"probs must be a non-empty 1-D sequence of weights, got shape \(1, 2\)"),
     ],
 )
 def test_huffman_rejects_bad_pmfs(probs: list, needle: str) -> None:
+    for floor in (codes.huffman_lengths, codes.entropy_bits):
+        with pytest.raises(ValueError, match=needle):
+            floor(probs)
     with pytest.raises(ValueError, match=needle):
-        codes.huffman_lengths(probs)
+        codes.length_limited_lengths(probs, 4)
+
+
+@pytest.mark.parametrize("probs", [["a", "b"], "ab", [0.5, "x"]])
+def test_huffman_rejects_pmfs_of_the_wrong_type(probs: object) -> None:
+    for floor in (codes.huffman_lengths, codes.entropy_bits):
+        with pytest.raises(TypeError, match="probs must be a sequence of weights, got"):
+            floor(probs)  # type: ignore[arg-type]
+
+
+def test_entropy_bits_matches_scipy() -> None:
+    # 0·log 0 = 0; weights that do not sum to 1 are taken as they are (not normalised).
+    probs = np.array([0.5, 0.25, 0.125, 0.125, 0.0])
+    assert codes.entropy_bits(probs) == pytest.approx(float(scipy_entropy(probs, base=2)))
+    assert codes.entropy_bits([1.0]) == 0.0
 
 
 def test_huffman_is_within_one_bit_of_entropy_and_kraft_complete() -> None:
@@ -216,10 +233,18 @@ def test_cap_equal_to_log2_alphabet_forces_fixed_length() -> None:
 
 
 def test_length_limit_errors() -> None:
-    with pytest.raises(ValueError, match="max_length=3 allows at most 8 codewords but 9"):
+    with pytest.raises(
+        ValueError,
+        match=r"max_length must be >= 4 to give each of the 9 symbols of nonzero probability "
+        r"a codeword \(2\*\*max_length >= 9\), got 3",
+    ):
         codes.length_limited_lengths(np.ones(9), 3)
-    with pytest.raises(ValueError, match="max_length must be >= 1"):
+    with pytest.raises(ValueError, match="max_length must be an integer >= 1, got 0"):
         codes.length_limited_lengths([0.5, 0.5], 0)
+    for bad in (2.5, True, "3", None):
+        expected = re.escape(f"max_length must be an integer, got {bad!r}")
+        with pytest.raises(TypeError, match=expected):
+            codes.length_limited_lengths([0.5, 0.5], bad)  # type: ignore[arg-type]
     assert codes.length_limited_lengths([0.0, 2.0], 1).tolist() == [0, 1]
 
 
@@ -326,15 +351,38 @@ def test_rice_parameter_is_the_best_power_of_two(p: float) -> None:
     assert lengths[k] == pytest.approx(min(lengths.values()), rel=1e-15)
 
 
-@pytest.mark.parametrize("bad", [0.0, -0.1, 1.5, float("nan"), "x"])
-def test_geometric_p_must_be_in_unit_interval(bad: object) -> None:
-    with pytest.raises(ValueError, match="p must be"):
-        codes.golomb_parameter(bad)  # type: ignore[arg-type]
+GEOMETRIC_P_RULE = r"p must be a finite number in \(0, 1\], got "
 
 
-def test_golomb_m_must_be_positive() -> None:
-    with pytest.raises(ValueError, match="m must be a positive integer"):
-        codes.golomb_expected_length(0.5, 0)
+@pytest.mark.parametrize("bad", [0.0, -0.1, 1.5, float("nan"), float("inf")])
+def test_geometric_p_must_be_in_unit_interval(bad: float) -> None:
+    for call in (
+        codes.golomb_parameter,
+        codes.rice_parameter,
+        lambda p: codes.golomb_expected_length(p, 2),
+    ):
+        with pytest.raises(ValueError, match=GEOMETRIC_P_RULE):
+            call(bad)
+
+
+@pytest.mark.parametrize("bad", ["x", "0.5", True, None, [0.5]])
+def test_geometric_p_must_be_a_number(bad: object) -> None:
+    for call in (
+        codes.golomb_parameter,
+        codes.rice_parameter,
+        lambda p: codes.golomb_expected_length(p, 2),
+    ):
+        with pytest.raises(TypeError, match=r"p must be a number, got "):
+            call(bad)
+
+
+def test_golomb_m_must_be_a_positive_integer() -> None:
+    for bad in (0, -2):
+        with pytest.raises(ValueError, match=f"m must be an integer >= 1, got {bad}"):
+            codes.golomb_expected_length(0.5, bad)
+    for wrong in (2.0, True, "2"):
+        with pytest.raises(TypeError, match=re.escape(f"m must be an integer, got {wrong!r}")):
+            codes.golomb_expected_length(0.5, wrong)  # type: ignore[arg-type]
 
 
 # ------------------------------------------------------- lengths against a pmf
@@ -369,10 +417,29 @@ def test_a_symbol_with_probability_needs_a_codeword() -> None:
 
 
 def test_pmf_must_sum_to_one_and_match_symbols() -> None:
-    with pytest.raises(ValueError, match="sum to 1"):
-        codes.expected_length({0: "0", 1: "1"}, [0, 1], [0.5, 0.6])
-    with pytest.raises(ValueError, match="differ in size"):
-        codes.expected_length({0: "0", 1: "1"}, [0, 1], [1.0])
+    words = {0: "0", 1: "1"}
+    for measure in (codes.expected_length, codes.redundancy, codes.excess_by_symbol):
+        with pytest.raises(ValueError, match=r"probs must be a pmf summing to 1 within 1e-09, got"):
+            measure(words, [0, 1], [0.5, 0.6])
+        with pytest.raises(ValueError, match="symbols and probs must be the same size, got 2 and"):
+            measure(words, [0, 1], [1.0])
+        with pytest.raises(ValueError, match=r"probs\[1\] must be finite and >= 0, got -0.5"):
+            measure(words, [0, 1], [1.5, -0.5])
+        with pytest.raises(TypeError, match="symbols must be a 1-D array of integers, got dtype"):
+            measure(words, [0.0, 1.0], [0.5, 0.5])
+        with pytest.raises(TypeError, match="probs must be a sequence of probabilities, got"):
+            measure(words, [0, 1], ["a", "b"])
+
+
+def test_excess_top_must_be_a_non_negative_integer() -> None:
+    words, symbols, probs = {0: "0", 1: "1"}, [0, 1], [0.5, 0.5]
+    assert codes.excess_by_symbol(words, symbols, probs, top=0) == []
+    with pytest.raises(ValueError, match="top must be an integer >= 0, got -1"):
+        codes.excess_by_symbol(words, symbols, probs, top=-1)
+    for wrong in (1.5, True):
+        expected = re.escape(f"top must be an integer, got {wrong!r}")
+        with pytest.raises(TypeError, match=expected):
+            codes.excess_by_symbol(words, symbols, probs, top=wrong)  # type: ignore[arg-type]
 
 
 def test_huffman_floor_of_a_pmf_through_a_codebook() -> None:

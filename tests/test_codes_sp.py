@@ -4,6 +4,7 @@ brute-force enumeration of codeword concatenations."""
 from __future__ import annotations
 
 import random
+import re
 from fractions import Fraction
 
 import numpy as np
@@ -147,8 +148,15 @@ def test_search_limit_is_named_when_exceeded() -> None:
     with pytest.raises(SearchLimitError, match=r"limit=1 dangling suffixes"):
         codes.assert_uniquely_decodable(Codebook({0: "0", 1: "01", 2: "011"}, name="x"), limit=1)
     assert codes.ambiguity({0: "0", 1: "01", 2: "011"}, limit=2) is None
-    with pytest.raises(ValueError, match="limit must be >= 1"):
-        codes.ambiguity({0: "0", 1: "01"}, limit=0)
+    for check in (codes.ambiguity, codes.assert_uniquely_decodable):
+        with pytest.raises(ValueError, match="limit must be an integer >= 1, got 0"):
+            check({0: "0", 1: "01"}, limit=0)
+        for wrong in (2.5, True, "10", None):
+            expected = re.escape(f"limit must be an integer, got {wrong!r}")
+            with pytest.raises(TypeError, match=expected):
+                check({0: "0", 1: "01"}, limit=wrong)  # type: ignore[arg-type]
+    with pytest.raises(TypeError, match="code must be a Codebook or a"):
+        codes.ambiguity(["0", "01"])  # type: ignore[arg-type]
 
 
 @pytest.mark.parametrize(

@@ -15,21 +15,28 @@ import sys
 import zlib
 from collections import Counter
 from pathlib import Path
+from typing import get_args
 
 import numpy as np
 import pytest
 from bitarray import bitarray
 
-from pytest_ratefloor.codecs import ByteCodec
+from pytest_ratefloor.codecs import ByteCodec, Encoded, as_codec, encoded_from_stream
 from pytest_ratefloor.corruption import (
+    CORRUPTION_KINDS,
     DEFAULT_MEMORY_LIMIT,
     Corruption,
+    CorruptionKind,
     CorruptionSetupError,
+    TrialStatus,
     assert_survives_corruption,
     corruption_schedule,
     load_damaged,
     run_corruption_trials,
+    survive_damage,
 )
+from pytest_ratefloor.corruption.replay import save_damaged
+from pytest_ratefloor.corruption.worker import FAILING_STATUSES, TRIAL_STATUSES
 from pytest_ratefloor.errors import CodecMisbehaviour, CorruptionFailure
 
 linux_only = pytest.mark.skipif(
@@ -177,10 +184,37 @@ def test_corruption_rejects_bad_arguments_by_name() -> None:
         Corruption.burst(4, [3, 3])
     with pytest.raises(ValueError, match="made for a stream of 4 bytes; data has 5"):
         Corruption.flip(4, 0).apply(b"12345")
-    with pytest.raises(ValueError, match="kind must be one of"):
+    with pytest.raises(ValueError, match=r"kind must be one of 'truncate', .*, got 'smudge'"):
         Corruption("smudge", 4, 0, 0)  # type: ignore[arg-type]
-    with pytest.raises(TypeError, match="count must be an integer"):
+    with pytest.raises(TypeError, match=r"kind must be one of .*, got 3"):
+        Corruption(3, 4, 0, 0)  # type: ignore[arg-type]
+    with pytest.raises(TypeError, match=r"count must be an integer, got 1\.5"):
         Corruption.append(4, 1.5, 0)  # type: ignore[arg-type]
+    with pytest.raises(ValueError, match="count must be an integer >= 1, got 0"):
+        Corruption.append(4, 0, 0)
+    with pytest.raises(TypeError, match="bit must be an integer, got True"):
+        Corruption.flip(4, True)
+    with pytest.raises(
+        ValueError, match=r"bit position must be below 32 \(8 \* stream_length\), got 40"
+    ):
+        Corruption("flip", 4, 5, 1, (40,))
+    with pytest.raises(ValueError, match=r"bits must be strictly increasing, got \(3, 1\)"):
+        Corruption("burst", 4, 0, 1, (3, 1))
+
+
+def test_damage_kinds_are_one_table() -> None:
+    assert get_args(CorruptionKind) == CORRUPTION_KINDS
+    assert CORRUPTION_KINDS == ("truncate", "flip", "burst", "append", "random")
+    # every kind is drawn by the schedule of a long enough stream
+    assert {c.kind for c in corruption_schedule(100, 40)} == set(CORRUPTION_KINDS)
+
+
+def test_trial_statuses_are_one_table() -> None:
+    assert tuple(TRIAL_STATUSES) == get_args(TrialStatus)
+    assert {"hang", "crash", "memory", "exit", "silent"} == FAILING_STATUSES
+    assert all(TRIAL_STATUSES[s].fails == (s in FAILING_STATUSES) for s in TRIAL_STATUSES)
+    assert TRIAL_STATUSES["memory"].title == "memory growth past the limit"
+    assert TRIAL_STATUSES["hang"].counted == "hung"
 
 
 # ---------------------------------------------------------------------------
@@ -238,12 +272,14 @@ def test_schedule_for_tiny_and_empty_streams() -> None:
 
 
 def test_schedule_rejects_bad_arguments() -> None:
-    with pytest.raises(ValueError, match="trials must be >= 1, got 0"):
+    with pytest.raises(ValueError, match=r"^trials must be an integer >= 1, got 0$"):
         corruption_schedule(10, 0)
-    with pytest.raises(ValueError, match="stream_length must be >= 0, got -1"):
+    with pytest.raises(ValueError, match=r"^stream_length must be an integer >= 0, got -1$"):
         corruption_schedule(-1, 5)
-    with pytest.raises(TypeError, match="seed must be an integer"):
+    with pytest.raises(TypeError, match=r"^seed must be an integer, got 'x'$"):
         corruption_schedule(10, 5, seed="x")  # type: ignore[arg-type]
+    with pytest.raises(TypeError, match=r"^trials must be an integer, got 2\.0$"):
+        corruption_schedule(10, 2.0)  # type: ignore[arg-type]
 
 
 # ---------------------------------------------------------------------------
@@ -502,40 +538,77 @@ def test_bitarray_payload_comes_back_as_bitarray_of_the_right_length(tmp_path: P
 
 
 def test_damaged_bitarray_round_trips_through_load_damaged(tmp_path: Path) -> None:
-    from pytest_ratefloor.corruption import _save_damaged, _Stream
-
     original = bitarray("1011001110001", endian="little")  # 13 bits, 3 pad bits
-    stream = _Stream.from_payload(original, "encoder")
-    assert (stream.nbits, stream.pad) == (13, 3)
+    encoded = encoded_from_stream(original)
+    shape = encoded.shape
+    assert (shape.kind, shape.pad, shape.endian) == ("bitarray", 3, "little")
     flip = Corruption.flip(2, 15)
-    rebuilt = stream.rebuild(flip.apply(stream.data))
-    assert isinstance(rebuilt, bitarray)
-    assert len(rebuilt) == 13
-    assert rebuilt.endian == "little"
+    damaged = flip.apply(encoded.stream)
+    rebuilt = encoded.rebuild(damaged)
+    assert isinstance(rebuilt.payload, bitarray)
+    assert rebuilt.bits == len(rebuilt.payload) == 13
+    assert rebuilt.payload.endian == "little"
     # byte 1, mask 0x01: in a little-endian bitarray that is index 8
     expected = original.copy()
     expected.invert(8)
-    assert rebuilt == expected
-    assert len(stream.rebuild(b"")) == 0
-    assert len(stream.rebuild(stream.data + b"\xff\xff")) == 29
-    path = _save_damaged(tmp_path, "x", flip.apply(stream.data), stream, {})
+    assert rebuilt.payload == expected
+    assert len(shape.rebuild(b"").payload) == 0
+    assert len(shape.rebuild(encoded.stream + b"\xff\xff").payload) == 29
+    path = save_damaged(tmp_path, "x", damaged, shape, {})
     again = load_damaged(path)
-    assert again == rebuilt
+    assert again == rebuilt.payload
     assert again.endian == "little"
+    assert json.loads(path.with_suffix(".json").read_text()) == {
+        "shape": "bitarray", "nbits": 13, "endian": "little",
+    }
     # nothing is overwritten: the same stem gets a new name
-    second = _save_damaged(tmp_path, "x", b"\x00", stream, {})
+    second = save_damaged(tmp_path, "x", b"\x00", shape, {})
     assert second.name == "x-1.bin"
-    assert path.read_bytes() == flip.apply(stream.data)
+    assert path.read_bytes() == damaged
 
 
 def test_pair_payload_is_handed_back_as_a_pair() -> None:
-    from pytest_ratefloor.corruption import _Stream
-
-    stream = _Stream.from_payload((b"\xab\xc0", 10), "encoder")
-    assert stream.rebuild(b"\xab") == (b"\xab", 2)
-    assert stream.rebuild(b"\xab\xc0\x01") == (b"\xab\xc0\x01", 18)
+    shape = encoded_from_stream((b"\xab\xc0", 10)).shape
+    assert shape.rebuild(b"\xab") == Encoded((b"\xab", 2), 2)
+    assert shape.rebuild(b"\xab\xc0\x01") == Encoded((b"\xab\xc0\x01", 18), 18)
+    # the one validation of an encoder's output is encoded_from_stream's
     with pytest.raises(CodecMisbehaviour, match=r"nbits=3"):
-        _Stream.from_payload((b"\xab\xc0", 3), "encoder")
+        run_corruption_trials(toy_decode_checked, (b"\xab\xc0", 3), 1, [])
+
+
+_PAYLOADS = {
+    "bytes": b"tide gauge frame 7",
+    "bitarray-big": bitarray("1011001110001010111", endian="big"),
+    "bitarray-little": bitarray("10110011100010101", endian="little"),
+    "bitarray-whole-bytes": bitarray("1011001110001010", endian="big"),
+    "pair": (b"\xab\xc0\x17", 21),
+}
+
+
+@pytest.mark.parametrize("name", list(_PAYLOADS))
+def test_rebuild_and_load_damaged_give_equal_payloads(name: str, tmp_path: Path) -> None:
+    encoded = encoded_from_stream(_PAYLOADS[name])
+    stream = encoded.stream
+    # unchanged bytes give back the payload itself
+    assert encoded.rebuild(stream) == encoded
+    for i, c in enumerate(corruption_schedule(len(stream), 40, seed=5)):
+        damaged = c.apply(stream)
+        rebuilt = encoded.rebuild(damaged)
+        path = save_damaged(tmp_path, f"{name}-{i}", damaged, encoded.shape, {"trial": i})
+        loaded = load_damaged(path)
+        assert type(loaded) is type(rebuilt.payload), c
+        assert loaded == rebuilt.payload, c
+        if isinstance(loaded, bitarray):
+            assert loaded.endian == rebuilt.payload.endian
+        # the bit count: 8 per byte, less the original padding (never below 0)
+        pad = 8 * len(stream) - encoded.bits
+        assert rebuilt.bits == max(0, 8 * len(damaged) - pad), c
+
+
+def test_load_damaged_without_a_sidecar_gives_bytes(tmp_path: Path) -> None:
+    path = tmp_path / "bare.bin"
+    path.write_bytes(b"\x01\x02")
+    assert load_damaged(path) == b"\x01\x02"
 
 
 # ---------------------------------------------------------------------------
@@ -546,22 +619,149 @@ def test_default_memory_limit_is_one_gibibyte() -> None:
     assert DEFAULT_MEMORY_LIMIT == 2**30
 
 
-def test_bad_arguments_are_named() -> None:
-    with pytest.raises(ValueError, match="timeout must be a positive number of seconds, got 0"):
-        assert_survives_corruption((toy_encode, toy_decode_checked), SYMBOLS, timeout=0)
-    with pytest.raises(ValueError, match="trials must be >= 1, got 0"):
-        assert_survives_corruption((toy_encode, toy_decode_checked), SYMBOLS, trials=0)
-    with pytest.raises(ValueError, match="memory_limit must be >= 1, got 0"):
-        assert_survives_corruption((toy_encode, toy_decode_checked), SYMBOLS, memory_limit=0)
-    with pytest.raises(TypeError, match="codec must be a codec"):
+TOY = (toy_encode, toy_decode_checked)
+
+
+@pytest.mark.parametrize(
+    ("kwargs", "error", "message"),
+    [
+        ({"timeout": 0}, ValueError, "timeout must be a finite number > 0, got 0"),
+        ({"timeout": "2"}, TypeError, "timeout must be a number, got '2'"),
+        ({"timeout": float("inf")}, ValueError, "timeout must be a finite number > 0, got inf"),
+        ({"trials": 0}, ValueError, "trials must be an integer >= 1, got 0"),
+        ({"trials": 1.5}, TypeError, r"trials must be an integer, got 1\.5"),
+        ({"memory_limit": 0}, ValueError, "memory_limit must be an integer >= 1, got 0"),
+        ({"memory_limit": 1.5}, TypeError, r"memory_limit must be an integer, got 1\.5"),
+        ({"n": 1.5}, TypeError, r"n must be an integer, got 1\.5"),
+        ({"n": -1}, ValueError, "n must be an integer >= 0, got -1"),
+        ({"seed": -1}, ValueError, "seed must be an integer >= 0, got -1"),
+        ({"seed": True}, TypeError, "seed must be an integer, got True"),
+        ({"must_detect": 1}, TypeError, "must_detect must be True or False, got 1"),
+    ],
+)
+def test_bad_arguments_are_named(kwargs: dict[str, object], error: type, message: str) -> None:
+    # n, seed and trials without a prefix: the same answer as every other entry point
+    with pytest.raises(error, match=f"^{message}$"):
+        assert_survives_corruption(TOY, SYMBOLS, **kwargs)  # type: ignore[arg-type]
+
+
+def test_bad_codecs_and_runner_arguments_are_named() -> None:
+    with pytest.raises(TypeError, match="cannot use int as a codec"):
         assert_survives_corruption(42, SYMBOLS)
-    with pytest.raises(ValueError, match="start_method 'teleport' is not available"):
+    with pytest.raises(TypeError, match="codec pair must be two callables"):
+        assert_survives_corruption((toy_encode, 3), SYMBOLS)
+    with pytest.raises(TypeError, match="source must be a reference source"):
+        assert_survives_corruption(TOY, object())
+    with pytest.raises(ValueError, match=r"start_method must be one of .*, got 'teleport'"):
         run_corruption_trials(toy_decode_checked, b"x", 1, [], start_method="teleport")
+    with pytest.raises(TypeError, match=r"^decode must be callable, got 3$"):
+        run_corruption_trials(3, b"x", 1, [])  # type: ignore[arg-type]
+    with pytest.raises(TypeError, match=r"^n must be an integer, got 1\.0$"):
+        run_corruption_trials(toy_decode_checked, b"x", 1.0, [])  # type: ignore[arg-type]
+    with pytest.raises(ValueError, match=r"^max_failures must be an integer >= 1, got 0$"):
+        run_corruption_trials(toy_decode_checked, b"x", 1, [], max_failures=0)
+    with pytest.raises(ValueError, match="schedule was made for a 3-byte stream"):
+        run_corruption_trials(toy_decode_checked, b"x", 1, corruption_schedule(3, 1))
+    with pytest.raises(ValueError, match=r"^trials must be an integer >= 1, got 0$"):
+        survive_damage(as_codec(TOY), SYMBOLS, Encoded(b"x", 8), source="s", seed=0, trials=0)
 
 
 def test_encoder_returning_text_is_codec_misbehaviour() -> None:
     with pytest.raises(CodecMisbehaviour, match="encoder of 'toy_decode_checked' on the clean"):
         assert_survives_corruption((lambda s: "text", toy_decode_checked), SYMBOLS)
+    with pytest.raises(
+        CodecMisbehaviour, match="encoder of 'toy_decode_checked' raised ZeroDivisionError"
+    ):
+        assert_survives_corruption((lambda s: 1 // 0, toy_decode_checked), SYMBOLS)
+
+
+# ---------------------------------------------------------------------------
+# one binding, one draw, one encoding
+
+
+class _CountingEncoder:
+    """The toy encoder, counting its calls (in this process: encodes never run in
+    the worker)."""
+
+    def __init__(self) -> None:
+        self.calls = 0
+
+    def __call__(self, symbols: np.ndarray) -> bytes:
+        self.calls += 1
+        return toy_encode(symbols)
+
+
+class _CountingSource:
+    """A stand-in source that counts its draws."""
+
+    spec = "counting(k=16)"
+    min_symbol, max_symbol = 0, 15
+
+    def __init__(self) -> None:
+        self.draws = 0
+
+    def sample(self, n: int, seed: int = 0) -> np.ndarray:
+        self.draws += 1
+        return SYMBOLS[:n].copy()
+
+
+@linux_only
+def test_the_public_check_draws_and_encodes_once() -> None:
+    encoder, source = _CountingEncoder(), _CountingSource()
+    run = assert_survives_corruption(
+        (encoder, toy_decode_checked), source, n=500, trials=10, must_detect=True
+    )
+    assert not run.failures
+    assert (encoder.calls, source.draws) == (1, 1)
+
+
+@linux_only
+def test_survive_damage_uses_the_encoding_it_is_given(tmp_path: Path) -> None:
+    encoder = _CountingEncoder()
+    codec = as_codec((encoder, toy_decode_checked))
+    symbols = SYMBOLS[:500]
+    encoded = codec.encode(symbols)
+    assert encoder.calls == 1
+    run = survive_damage(codec, symbols, encoded, source="given(k=16)", seed=3, trials=10,
+                         must_detect=True)
+    assert not run.failures
+    assert run.schedule == corruption_schedule(len(encoded.stream), 10, seed=3)
+    assert encoder.calls == 1  # not re-encoded
+    # on failure the message names the label and seed; save_dir may be a function,
+    # called only then
+    asked: list[int] = []
+
+    def where() -> Path:
+        asked.append(1)
+        return tmp_path
+
+    with pytest.raises(CorruptionFailure) as info:
+        survive_damage(as_codec((encoder, toy_decode_hangs_when_short)), symbols, encoded,
+                       source="given(k=16)", seed=3, trials=2, timeout=0.3, save_dir=where)
+    assert encoder.calls == 1
+    assert asked == [1]
+    message = str(info.value)
+    assert "on given(k=16), n=500, seed=3; clean stream 508 bytes" in message
+    assert _replay_path(message, 0).parent == tmp_path
+
+
+@linux_only
+def test_an_empty_sample_is_damaged_by_appends_only() -> None:
+    # n = 0 is allowed here (unlike the rate checks): a decoder told n=0 must
+    # still survive garbage
+    def raw_encode(symbols: np.ndarray) -> bytes:
+        return symbols.astype(np.uint8).tobytes()
+
+    def raw_decode(data: bytes, n: int) -> np.ndarray:
+        if len(data) != n:
+            raise ValueError(f"{len(data)} bytes for {n} symbols")
+        return np.frombuffer(data, dtype=np.uint8)
+
+    run = assert_survives_corruption(
+        (raw_encode, raw_decode), _CountingSource(), n=0, trials=4, must_detect=True
+    )
+    assert [c.kind for c in run.schedule] == ["append"] * 4
+    assert [o.status for o in run.outcomes] == ["raised"] * 4
 
 
 @linux_only

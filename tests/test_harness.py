@@ -86,26 +86,59 @@ def test_several_checks_append_one_property_group_each() -> None:
     assert len(node.user_properties) == 2 * len(junit_properties(harness.measurements[0]))
 
 
-def test_corruption_option_calls_the_corruption_check(monkeypatch: pytest.MonkeyPatch,
-                                                      tmp_path: Path) -> None:
+def test_corruption_option_reuses_the_round_trip(monkeypatch: pytest.MonkeyPatch,
+                                                 tmp_path: Path) -> None:
     import pytest_ratefloor.corruption as corruption
 
     calls: list[tuple[Any, ...]] = []
 
-    def fake(codec: Any, source: Any, **kw: Any) -> None:
-        calls.append((codec, source, kw))
+    def fake(codec: Any, sample: Any, encoded: Any, **kw: Any) -> None:
+        calls.append((codec, sample, encoded, kw))
 
-    monkeypatch.setattr(corruption, "assert_survives_corruption", fake)
+    encodes: list[int] = []
+
+    def counting_compress(data: bytes) -> bytes:
+        encodes.append(len(data))
+        return zlib.compress(data, 9)
+
+    codec = ByteCodec(counting_compress, zlib.decompress, name="zlib-9")
+    monkeypatch.setattr(corruption, "survive_damage", fake)
     source = sources.uniform(256)
-    harness = RateFloorHarness(_node(tmp_path=tmp_path))
-    harness.check(ZLIB, source, n=50_000, seed=7, rel=0.05, edge_cases=False, corruption=True)
-    codec, src, kw = calls[0]
-    assert src is source
-    assert codec.name == "zlib-9"
-    assert codec.packing == "u8"  # bound to the source: "auto" resolved
-    assert kw == {"n": 10_000, "seed": 7, "save_dir": tmp_path}
-    harness.check(ZLIB, source, n=N, rel=0.05, edge_cases=False)
+    harness = RateFloorHarness(_node(), save_dir=lambda: tmp_path)
+    harness.check(codec, source, n=50_000, seed=7, rel=0.05, edge_cases=False, corruption=True)
+    bound, sample, encoded, kw = calls[0]
+    assert bound.name == "zlib-9"
+    assert bound.symbol == "u8"  # bound to the source: "auto" resolved
+    # the first 10 000 symbols of the one sample drawn (a prefix, not a re-draw) ...
+    assert np.array_equal(sample, source.sample(10_000, seed=7))
+    # ... encoded once more (a different input); the 50 000-symbol sample was encoded once,
+    # the codec contract slice twice
+    assert encodes == [50_000, 4096, 4096, 10_000]
+    assert encoded.bits == 8 * len(zlib.compress(sample.astype(np.uint8).tobytes(), 9))
+    assert kw["seed"] == 7
+    assert kw["source"] == "uniform(k=256)"
+    assert kw["save_dir"]() == tmp_path
+    harness.check(codec, source, n=N, rel=0.05, edge_cases=False)
     assert len(calls) == 1  # off by default
+
+
+def test_corruption_on_a_short_sample_reuses_its_encoding(monkeypatch: pytest.MonkeyPatch) -> None:
+    import pytest_ratefloor.corruption as corruption
+
+    seen: list[Any] = []
+    monkeypatch.setattr(corruption, "survive_damage",
+                        lambda codec, sample, encoded, **kw: seen.append(encoded))
+    encodes: list[int] = []
+
+    def counting_compress(data: bytes) -> bytes:
+        encodes.append(len(data))
+        return zlib.compress(data, 9)
+
+    codec = ByteCodec(counting_compress, zlib.decompress, name="zlib-9")
+    m = RateFloorHarness().check(codec, sources.uniform(256), n=N, rel=0.05, edge_cases=False,
+                                 corruption=True)
+    assert encodes == [N, N, N]  # the sample once, the contract slice (the whole sample) twice
+    assert seen[0].bits == m.bits  # the very encoding that was measured
 
 
 def test_corruption_check_runs_for_real() -> None:
@@ -129,7 +162,7 @@ def test_gate_builds_a_parametrized_test() -> None:
 def test_gate_checks_its_arguments_at_collection() -> None:
     with pytest.raises(ValueError, match="floor must be one of .*got 'entropie'"):
         gate(ZLIB, floor="entropie")
-    with pytest.raises(ValueError, match="tolerance rel must be finite and >= 0"):
+    with pytest.raises(ValueError, match=r"rel must be a finite number >= 0, got -1"):
         gate(ZLIB, rel=-1)
     with pytest.raises(ValueError, match="needs at least one source"):
         gate(ZLIB, sources=[])

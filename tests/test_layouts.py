@@ -115,7 +115,7 @@ def test_auto_packing_rule(lo: int | None, hi: int | None, table: tuple[int, int
 def test_auto_packing_needs_a_source_and_unknown_packing_is_named() -> None:
     with pytest.raises(LayoutError, match="resolved from the source"):
         resolve_layout("auto")
-    with pytest.raises(LayoutError, match="symbol must be one of .*got 'u12'"):
+    with pytest.raises(LayoutError, match=r"symbol must be one of .*got 'u12'"):
         ByteCodec(zlib.compress, zlib.decompress, packing="u12")
     with pytest.raises(LayoutError, match=r"no symbol layout holds the symbol range 0\.\.42949"):
         resolve_layout("auto", _alphabet(0, 2**32))  # type: ignore[arg-type]

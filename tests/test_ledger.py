@@ -13,23 +13,24 @@ import numpy as np
 import pytest
 
 from pytest_ratefloor import __version__
-from pytest_ratefloor.errors import LedgerError, RegressionFailure
+from pytest_ratefloor.errors import (
+    LedgerError,
+    NewerLedgerError,
+    RegressionFailure,
+    SampleMismatchError,
+    UnreadableLedgerError,
+)
 from pytest_ratefloor.ledger import (
     LEDGER_KIND,
     SCHEMA_VERSION,
     Environment,
     Ledger,
-    LedgerEntry,
-    LedgerRun,
-    NewerLedgerError,
-    SampleMismatchError,
-    UnreadableLedgerError,
-    case_label,
-    compare,
+    entry_json,
     keep_copy,
     write_atomic,
 )
-from pytest_ratefloor.measurement import Measurement
+from pytest_ratefloor.measurement import CaseKey, Measurement
+from pytest_ratefloor.verdicts import LedgerRun, compare
 
 # h(0.1) = 0.4689955935892812 bits (binary entropy; cross-checked with scipy below)
 H_01 = 0.4689955935892812
@@ -86,8 +87,12 @@ def test_dump_is_independent_of_insertion_order(tmp_path: Path) -> None:
 
 
 def test_figures_are_rounded_to_12_significant_digits(tmp_path: Path) -> None:
-    entry = LedgerEntry.from_measurement(meas(bits=1, n=3))
-    assert entry.rate == float("0.333333333333")  # 1/3 to 12 significant digits
+    entry = entry_json(meas(bits=1, n=3))
+    assert entry["rate"] == float("0.333333333333")  # 1/3 to 12 significant digits
+    # the recorded form is what loading gives back: rounding it again changes nothing
+    recorded = meas(bits=1, n=3).recorded()
+    assert entry_json(recorded) == entry
+    assert recorded.recorded() == recorded
 
 
 def test_environment_names_versions_and_platform() -> None:
@@ -177,8 +182,8 @@ def test_merge_keeps_unmeasured_entries(tmp_path: Path) -> None:
 # -- comparison ---------------------------------------------------------------------
 
 
-def entry(bits: int, fingerprint: str = "f00d") -> LedgerEntry:
-    return LedgerEntry.from_measurement(meas(bits=bits, fingerprint=fingerprint))
+def entry(bits: int, fingerprint: str = "f00d") -> Measurement:
+    return meas(bits=bits, fingerprint=fingerprint).recorded()
 
 
 @pytest.mark.parametrize(
@@ -245,7 +250,7 @@ def test_per_case_slack_overrides_the_run_slack(tmp_path: Path) -> None:
     base = Ledger(tmp_path / "l.json").merged([meas(bits=1000)])
     run = LedgerRun(baseline=base, slack=0.0)
     assert run.admit(meas(bits=1050), slack=0.05).status == "within-slack"
-    assert run.verdicts()[0][1].status == "within-slack"
+    assert run.sorted_comparisons()[0].status == "within-slack"
 
 
 def test_conflicting_duplicates_are_an_error(tmp_path: Path) -> None:
@@ -281,7 +286,7 @@ def test_payload_is_plain_data_for_execnet_and_absorbs_to_the_same_run(tmp_path:
     controller = LedgerRun(baseline=base)
     controller.absorb(shipped)
     assert controller.recorded().dumps() == worker.recorded().dumps()
-    assert [v.status for _, v in controller.verdicts()] == ["improved", "new"]
+    assert [c.status for c in controller.sorted_comparisons()] == ["improved", "new"]
     assert controller.slack_for(meas(codec="a").key) == 0.1
     assert controller.partial_reasons == ["-k"]
 
@@ -348,4 +353,7 @@ def test_keep_copy_numbers_existing_copies(tmp_path: Path) -> None:
 
 
 def test_case_label() -> None:
-    assert case_label(("c", "uniform(k=4)", 10, 2)) == "c | uniform(k=4) | n=10 | seed=2"
+    key = CaseKey("c", "uniform(k=4)", 10, 2)
+    assert key.label == "c | uniform(k=4) | n=10 | seed=2"
+    assert key.phrase == "codec 'c' on uniform(k=4), n=10, seed=2"
+    assert meas(codec="c", source="uniform(k=4)", n=10, seed=2).key == key

@@ -5,6 +5,7 @@ from __future__ import annotations
 import json
 import re
 import subprocess
+import sys
 from pathlib import Path
 
 import numpy as np
@@ -15,15 +16,25 @@ from pytest_ratefloor.measurement import Measurement
 
 ROOT = Path(__file__).resolve().parents[1]
 
-# The public names of DESIGN.md ("Public API": everything importable from pytest_ratefloor).
-DESIGN_NAMES = [
+# The public API the README documents: everything importable from pytest_ratefloor.
+PUBLIC_NAMES = [
     "sources", "codes", "StreamCodec", "ByteCodec", "Codebook", "measure",
     "assert_roundtrip", "assert_rate", "assert_prefix_free", "assert_kraft",
-    "assert_uniquely_decodable", "Measurement", "gate",
+    "assert_uniquely_decodable", "assert_survives_corruption", "Measurement", "gate",
+    "RateFloorHarness", "Floor", "RateFloorFailure", "RegressionFailure", "LedgerError",
 ]
 
 
-@pytest.mark.parametrize("name", DESIGN_NAMES)
+def test_loading_the_plugin_imports_nothing_heavy() -> None:
+    # pytest imports the plugin module in every run of every project that installs it
+    code = ("import sys, pytest_ratefloor.plugin; "
+            "print(sorted(m for m in ('numpy', 'scipy', 'bitarray') if m in sys.modules))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                         check=True).stdout
+    assert out.strip() == "[]"
+
+
+@pytest.mark.parametrize("name", PUBLIC_NAMES)
 def test_public_name_resolves(name: str) -> None:
     assert getattr(pytest_ratefloor, name) is not None
     assert name in dir(pytest_ratefloor)

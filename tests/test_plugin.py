@@ -241,7 +241,9 @@ def test_marker_slack(pytester: pytest.Pytester) -> None:
     make_project(pytester, TESTS.replace(
         "def test_alpha", "import pytest\n\n@pytest.mark.ratefloor(slack='lots')\ndef test_alpha"))
     result = run(pytester)
-    result.stdout.fnmatch_lines(["*test_alpha: ratefloor(slack=...): expected a relative slack*"])
+    result.stdout.fnmatch_lines(
+        ["*test_alpha: ratefloor(slack=...) must be a finite number >= 0*got 'lots'*"]
+    )
 
 
 # -- bad ledgers --------------------------------------------------------------------------
@@ -366,9 +368,10 @@ def test_ini_keys_and_cli_precedence(pytester: pytest.Pytester) -> None:
     ("args", "ini", "message"),
     [
         (("--ratefloor-slack", "wide"), "",
-         "*--ratefloor-slack: expected a relative slack such as 0.01, got 'wide'"),
-        (("--ratefloor-slack", "-0.1"), "", "*--ratefloor-slack: the slack must be a finite*"),
-        ((), 'ratefloor_slack = "nan"', "*ini key ratefloor_slack: the slack must be*"),
+         "*--ratefloor-slack must be a finite number >= 0 (a relative slack such as 0.01), "
+         "got 'wide'"),
+        (("--ratefloor-slack", "-0.1"), "", "*--ratefloor-slack must be a finite number*"),
+        ((), 'ratefloor_slack = "nan"', "*ini key ratefloor_slack must be a finite number*"),
         (("--ratefloor-report", "r.txt"), "", "*--ratefloor-report *r.txt: unknown suffix '.txt'*"),
         ((), 'ratefloor_plot = "p.gif"', "*--ratefloor-plot *p.gif: unknown suffix '.gif'*"),
     ],

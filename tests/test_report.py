@@ -9,10 +9,11 @@ from pathlib import Path
 
 import pytest
 
-from pytest_ratefloor import report
-from pytest_ratefloor.ledger import Ledger, LedgerEntry, LedgerRun
+from pytest_ratefloor import report, sources
+from pytest_ratefloor.ledger import Ledger
 from pytest_ratefloor.measurement import Measurement
-from pytest_ratefloor.report import CAUTION, CaseRow, RunOutcome
+from pytest_ratefloor.report import CAUTION, RunOutcome
+from pytest_ratefloor.verdicts import Comparison, LedgerRun, compare, listed
 
 
 def _h(p: float) -> float:
@@ -30,7 +31,11 @@ def meas(codec: str, source: str, bits: int, entropy: float, n: int = 10_000,
     )
 
 
-def sample_rows(tmp_path: Path) -> tuple[list[CaseRow], RunOutcome]:
+def texts(lines: list[report.Line]) -> list[str]:
+    return [line.text for line in lines]
+
+
+def sample_rows(tmp_path: Path) -> tuple[list[Comparison], RunOutcome]:
     ms = [
         meas("pair|coder", "bernoulli(p=0.1)", 5_000, _h(0.1), family="bernoulli",
              params={"p": 0.1}, version="1.2"),
@@ -47,7 +52,7 @@ def sample_rows(tmp_path: Path) -> tuple[list[CaseRow], RunOutcome]:
     run = LedgerRun(baseline=base, slack=0.01)
     for m in ms:
         run.observe(m)
-    rows = [CaseRow.from_measurement(m, v) for m, v in run.verdicts()]
+    rows = run.sorted_comparisons()
     outcome = RunOutcome(ledger_path=base.path, slack=0.01, counts=run.counts(),
                          stale=run.stale())
     return rows, outcome
@@ -58,18 +63,18 @@ def test_binary_entropy_helper_matches_scipy() -> None:
 
     for p in (0.1, 0.3):
         assert _h(p) == pytest.approx(entropy([p, 1 - p], base=2), rel=1e-14)
-        assert report._binary_entropy(p) == pytest.approx(entropy([p, 1 - p], base=2), rel=1e-14)
+        assert sources.binary_entropy(p) == pytest.approx(entropy([p, 1 - p], base=2), rel=1e-14)
 
 
 def test_efficiency_and_deltas(tmp_path: Path) -> None:
     rows, outcome = sample_rows(tmp_path)
-    by = {(r.codec, r.source): r for r in rows}
+    by = {(r.case.codec, r.case.source): r for r in rows}
     u256 = by[("bytes", "uniform(k=256)")]
-    assert u256.efficiency == pytest.approx(1.0)  # 8 bits/symbol on an 8-bit uniform source
+    assert u256.case.efficiency == pytest.approx(1.0)  # 8 bits/symbol on an 8-bit uniform source
     assert u256.status == "improved"
     assert u256.delta_bits == -100
     b1 = by[("pair|coder", "bernoulli(p=0.1)")]
-    assert b1.efficiency == pytest.approx(_h(0.1) / 0.5)
+    assert b1.case.efficiency == pytest.approx(_h(0.1) / 0.5)
     assert b1.status == "within-slack"  # +10 bits on 4 990 is 0.2 % < 1 %
     assert report.delta_text(b1) == "+10 bits (+0.200%) within-slack"
     assert outcome.counts["new"] == 2
@@ -149,8 +154,8 @@ def test_step_summary_appends(tmp_path: Path) -> None:
 
 def test_summary_lines_compact_and_verbose(tmp_path: Path) -> None:
     rows, outcome = sample_rows(tmp_path)
-    compact = report.summary_lines(rows, outcome)
-    verbose = report.summary_lines(rows, outcome, verbose=True)
+    compact = texts(report.summary_lines(rows, outcome))
+    verbose = texts(report.summary_lines(rows, outcome, verbose=True))
     assert compact[0].split()[:6] == ["codec", "source", "H", "b/sym", "floor", "b/sym"]
     assert len(compact) == len(verbose)
     assert "ledger bits" in verbose[0]
@@ -167,23 +172,45 @@ def test_summary_lines_compact_and_verbose(tmp_path: Path) -> None:
 
 def test_quiet_summary_leaves_out_unchanged_cases(tmp_path: Path) -> None:
     rows, outcome = sample_rows(tmp_path)
-    same = CaseRow(**{**rows[0].__dict__, "status": "unchanged", "delta_bits": 0})
-    quiet = report.summary_lines([same, rows[1]], outcome, quiet=True)
-    assert not any(line.startswith(same.codec + " ") and same.source in line for line in quiet)
-    assert any(rows[1].source in line for line in quiet)
+    first = rows[0].case
+    same = compare(first, first.recorded())
+    assert same.status == "unchanged"
+    quiet = texts(report.summary_lines([same, rows[1]], outcome, quiet=True))
+    assert not any(line.startswith(first.codec + " ") and first.source in line for line in quiet)
+    assert any(rows[1].case.source in line for line in quiet)
     assert quiet[-1] == CAUTION
 
 
 def test_partial_run_says_why_stale_is_not_listed() -> None:
     outcome = RunOutcome(partial_reasons=("-k",))
-    assert report.summary_lines([], outcome) == ["stale entries not listed: partial run (-k)"]
+    assert texts(report.summary_lines([], outcome)) == [
+        "stale entries not listed: partial run (-k)"
+    ]
+
+
+def test_colour_comes_from_the_verdict_not_the_text(tmp_path: Path) -> None:
+    rows, outcome = sample_rows(tmp_path)
+    lines = report.summary_lines(rows, outcome)
+    tally = next(line for line in lines if line.text.startswith("ledger compared with"))
+    assert "0 regressed" in tally.text
+    assert tally.colour == "yellow"  # a within-slack case and a stale entry deserve a look
+    clean = RunOutcome(ledger_path=outcome.ledger_path, counts={"regressed": 0, "unchanged": 3})
+    (clean_tally,) = report.summary_lines([], clean)
+    assert clean_tally.colour == "green"
+    regressed = compare(rows[0].case, Measurement(**{**rows[0].case.__dict__, "bits": 1}))
+    assert regressed.status == "regressed"
+    failing = RunOutcome(ledger_path=outcome.ledger_path, counts={"regressed": 1})
+    colours = {line.text.split()[0]: line.colour
+               for line in report.summary_lines([regressed], failing)}
+    assert colours["ledger"] == "red"
+    assert colours[rows[0].case.codec] == "red"
 
 
 def test_show_rows_from_entries() -> None:
-    e = LedgerEntry(codec="c", source="s", n=4, seed=0, bits=6, rate=1.5, floor="entropy",
-                    floor_rate=1.0, entropy=1.0)
-    row = CaseRow.from_entry(e)
-    assert row.efficiency == pytest.approx(1.0 / 1.5)
+    e = Measurement(codec="c", source="s", n=4, seed=0, bits=6, floor="entropy",
+                    floor_bits=4.0, entropy=1.0, fingerprint="")
+    row = listed(e)
+    assert row.case.efficiency == pytest.approx(1.0 / 1.5)
     assert "vs. ledger" not in report.markdown_tables([row], with_ledger=False)
 
 
@@ -210,7 +237,7 @@ def test_plot_svg_without_bernoulli(tmp_path: Path) -> None:
 
     rows, _ = sample_rows(tmp_path)
     path = tmp_path / "plot.svg"
-    report.write_plot(path, [r for r in rows if r.source_family != "bernoulli"])
+    report.write_plot(path, [r for r in rows if r.case.source_family != "bernoulli"])
     root = ET.parse(path).getroot()  # stdlib XML parser is the reference
     assert root.tag.endswith("svg")
     assert "symbol-code ceiling" in path.read_text()

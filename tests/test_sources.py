@@ -424,10 +424,17 @@ def test_pmf_table_of_finite_sources_is_the_exact_support():
 
 
 def test_pmf_table_errors():
-    with pytest.raises(ValueError, match=r"tail must be in \(0, 1\), got 0\.0"):
+    with pytest.raises(
+        ValueError, match=r"geometric\(p=0\.5\)\.pmf_table: tail must be .*\(0, 1\), got 0\.0"
+    ):
         sources.geometric(0.5).pmf_table(0.0)
-    with pytest.raises(ValueError, match=r"tail must be in \[0, 1\), got 1\.5"):
+    with pytest.raises(ValueError, match=r"tail must be a finite number in \[0, 1\), got 1\.5"):
         sources.uniform(4).pmf_table(1.5)
+    with pytest.raises(ValueError, match=r"tail must be .*got nan"):
+        sources.poisson(4.0).pmf_table(float("nan"))
+    with pytest.raises(TypeError, match=r"uniform\(k=4\)\.pmf_table: tail must be .*got '0'"):
+        sources.uniform(4).pmf_table("0")
+    assert sources.uniform(4).pmf_table(0.0)[0].tolist() == [0, 1, 2, 3]  # finite: tail 0 is fine
     with pytest.raises(ValueError, match=r"geometric\(p=1e-09\)\.pmf_table: .* symbols"):
         sources.geometric(1e-9).pmf_table()
 
@@ -503,67 +510,120 @@ def test_standard_suite_shape():
 # bad parameters
 
 
+# A wrong type raises TypeError, a right type with a bad value ValueError; every
+# message reads "<family>: <name> must be <rule>, got <value>".
 @pytest.mark.parametrize(
-    ("make", "match"),
+    ("make", "error", "match"),
     [
-        (lambda: sources.bernoulli(1.5), r"bernoulli: p must be in \[0, 1\], got 1\.5"),
-        (lambda: sources.bernoulli(-0.1), r"bernoulli: p must be in \[0, 1\], got -0\.1"),
-        (lambda: sources.bernoulli(float("nan")), r"bernoulli: p must be in \[0, 1\], got nan"),
-        (lambda: sources.bernoulli("0.5"), r"bernoulli: p must be a real number, got '0\.5'"),
-        (lambda: sources.bernoulli(True), r"bernoulli: p must be a real number, got True"),
-        (lambda: sources.geometric(0.0), r"geometric: p must be in \(0, 1\], got 0\.0"),
-        (lambda: sources.geometric(1.2), r"geometric: p must be in \(0, 1\], got 1\.2"),
-        (lambda: sources.geometric(float("inf")), r"geometric: p must be in \(0, 1\], got inf"),
-        (lambda: sources.geometric(1e-13), r"geometric: p must be >= 1e-12 .*got 1e-13"),
-        (lambda: sources.two_sided_geometric(1.0), r"theta must be in \[0, 1\), got 1\.0"),
-        (lambda: sources.two_sided_geometric(-0.5), r"theta must be in \[0, 1\), got -0\.5"),
-        (lambda: sources.two_sided_geometric(1 - 1e-14), r"theta must be <= 1 - 1e-12"),
-        (lambda: sources.uniform(0), r"uniform: k must be an integer >= 1 .*got 0"),
-        (lambda: sources.uniform(2.5), r"uniform: k must be an integer >= 1 .*got 2\.5"),
-        (lambda: sources.uniform(True), r"uniform: k must be an integer >= 1 .*got True"),
+        (
+            lambda: sources.bernoulli(1.5),
+            ValueError,
+            r"^bernoulli: p must be a finite number in \[0, 1\], got 1\.5$",
+        ),
+        (lambda: sources.bernoulli(-0.1), ValueError, r"bernoulli: p .*\[0, 1\], got -0\.1"),
+        (lambda: sources.bernoulli(float("nan")), ValueError, r"bernoulli: p must be .*got nan"),
+        (lambda: sources.bernoulli("0.5"), TypeError, r"bernoulli: p must be .*got '0\.5'"),
+        (lambda: sources.bernoulli(True), TypeError, r"bernoulli: p must be .*got True"),
+        (lambda: sources.bernoulli(None), TypeError, r"bernoulli: p must be .*got None"),
+        (lambda: sources.geometric(0.0), ValueError, r"geometric: p must be .*\(0, 1\], got 0\.0"),
+        (lambda: sources.geometric(1.2), ValueError, r"geometric: p must be .*\(0, 1\], got 1\.2"),
+        (lambda: sources.geometric(float("inf")), ValueError, r"geometric: p must be .*got inf"),
+        (lambda: sources.geometric("0.2"), TypeError, r"geometric: p must be .*got '0\.2'"),
+        (lambda: sources.geometric(1e-13), ValueError, r"geometric: p must be >= 1e-12 .*1e-13"),
+        (
+            lambda: sources.two_sided_geometric(1.0),
+            ValueError,
+            r"two_sided_geometric: theta must be .*\[0, 1\), got 1\.0",
+        ),
+        (lambda: sources.two_sided_geometric(-0.5), ValueError, r"theta must be .*got -0\.5"),
+        (lambda: sources.two_sided_geometric(True), TypeError, r"theta must be .*got True"),
+        (
+            lambda: sources.two_sided_geometric(1 - 1e-14),
+            ValueError,
+            r"two_sided_geometric: theta must be <= 1 - 1e-12",
+        ),
+        (
+            lambda: sources.uniform(0),
+            ValueError,
+            r"^uniform: k must be an integer in \[1, .*\], got 0$",
+        ),
+        (lambda: sources.uniform(2.5), TypeError, r"uniform: k must be an integer.*got 2\.5"),
+        (lambda: sources.uniform(True), TypeError, r"uniform: k must be an integer.*got True"),
         (
             lambda: sources.uniform(2**63),
-            r"uniform: k must be an integer >= 1 and <= 4611686018427387904, "
-            r"got 9223372036854775808",
+            ValueError,
+            r"uniform: k must be an integer in \[1, .*\], got 9223372036854775808",
         ),
-        (lambda: sources.zipf(0, 1.0), r"zipf: k must be an integer >= 1 .*got 0"),
-        (lambda: sources.zipf(10, -1.0), r"zipf: s must be finite and >= 0, got -1\.0"),
-        (lambda: sources.zipf(10, float("nan")), r"zipf: s must be finite and >= 0, got nan"),
-        (lambda: sources.poisson(-1.0), r"poisson: lam must be in \[0, 100000\], got -1\.0"),
-        (lambda: sources.poisson(float("nan")), r"poisson: lam must be .*got nan"),
-        (lambda: sources.poisson(1e6), r"poisson: lam must be in \[0, 100000\], got 1000000\.0"),
-        (lambda: sources.categorical([]), r"categorical: probs must be a non-empty 1-D sequence"),
+        (lambda: sources.zipf(0, 1.0), ValueError, r"zipf: k must be an integer.*got 0"),
+        (lambda: sources.zipf(2**20 + 1, 1.0), ValueError, r"zipf: k must be .*got 1048577"),
+        (lambda: sources.zipf(10.0, 1.0), TypeError, r"zipf: k must be an integer.*got 10\.0"),
+        (
+            lambda: sources.zipf(10, -1.0),
+            ValueError,
+            r"^zipf: s must be a finite number >= 0, got -1\.0$",
+        ),
+        (lambda: sources.zipf(10, float("nan")), ValueError, r"zipf: s must be .*got nan"),
+        (lambda: sources.zipf(10, float("inf")), ValueError, r"zipf: s must be .*got inf"),
+        (lambda: sources.zipf(10, "1"), TypeError, r"zipf: s must be .*got '1'"),
+        (
+            lambda: sources.poisson(-1.0),
+            ValueError,
+            r"poisson: lam must be a finite number in \[0, 100000\], got -1\.0",
+        ),
+        (lambda: sources.poisson(float("nan")), ValueError, r"poisson: lam must be .*got nan"),
+        (lambda: sources.poisson(1e6), ValueError, r"poisson: lam must be .*got 1000000\.0"),
+        (lambda: sources.poisson(False), TypeError, r"poisson: lam must be .*got False"),
+        (
+            lambda: sources.categorical([]),
+            ValueError,
+            r"categorical: probs must be a non-empty 1-D sequence",
+        ),
         (
             lambda: sources.categorical([0.5, -0.1, 0.6]),
+            ValueError,
             r"categorical: probs\[1\] must be finite and >= 0, got -0\.1",
         ),
-        (lambda: sources.categorical([0.5, float("nan")]), r"categorical: probs\[1\] .*got nan"),
-        (lambda: sources.categorical([0.5, float("inf")]), r"categorical: probs\[1\] .*got inf"),
+        (lambda: sources.categorical([0.5, float("nan")]), ValueError, r"probs\[1\] .*got nan"),
+        (lambda: sources.categorical([0.5, float("inf")]), ValueError, r"probs\[1\] .*got inf"),
         (
             lambda: sources.categorical([0.5, 0.4]),
-            r"categorical: probs must sum to 1 within 1e-09, got 0\.9",
+            ValueError,
+            r"categorical: probs must be a pmf summing to 1 within 1e-09, got a sum of 0\.9",
         ),
         (
             lambda: sources.categorical([0.5, 0.5 + 2e-9]),
-            r"probs must sum to 1 within 1e-09, got 1\.000000002",
+            ValueError,
+            r"probs must be a pmf summing to 1 within 1e-09, got a sum of 1\.000000002",
         ),
         (
             lambda: sources.categorical([0.5, 0.5], symbols=[1, 1]),
-            r"symbols must be distinct, got 1 more",
+            ValueError,
+            r"categorical: symbols must be 2 distinct integers .*got 1 more than once",
         ),
-        (lambda: sources.categorical([0.5, 0.5], symbols=[1]), r"symbols must be 2 integers"),
+        (
+            lambda: sources.categorical([0.5, 0.5], symbols=[1]),
+            ValueError,
+            r"symbols must be 2 distinct integers",
+        ),
         (
             lambda: sources.categorical([0.5, 0.5], symbols=[0.5, 1.5]),
-            r"symbols must be 2 integers",
+            TypeError,
+            r"symbols must be 2 distinct integers .*got \[0\.5, 1\.5\]",
+        ),
+        (
+            lambda: sources.categorical([0.5, 0.5], symbols=[True, False]),
+            TypeError,
+            r"symbols must be 2 distinct integers",
         ),
         (
             lambda: sources.categorical("ab"),
-            r"categorical: probs must be a sequence of probabilities",
+            TypeError,
+            r"categorical: probs must be a sequence of probabilities, got 'ab'",
         ),
     ],
 )
-def test_bad_parameters_are_named(make, match):
-    with pytest.raises(ValueError, match=match):
+def test_bad_parameters_are_named(make, error, match):
+    with pytest.raises(error, match=match):
         make()
 
 

@@ -4,6 +4,7 @@ distributions, plug-in estimates, sampling and errors."""
 from __future__ import annotations
 
 import math
+import struct
 from collections import Counter
 
 import mpmath
@@ -12,7 +13,8 @@ import pytest
 import scipy.linalg
 import scipy.stats
 
-from pytest_ratefloor import sources
+from pytest_ratefloor import layouts, sources
+from pytest_ratefloor.errors import LayoutError
 
 
 def h2(p):
@@ -191,43 +193,87 @@ def test_markov_specs_and_attributes():
 
 
 @pytest.mark.parametrize(
-    ("transition", "initial", "match"),
+    ("transition", "initial", "error", "match"),
     [
         (
             [[0.5, 0.5]],
             None,
-            r"markov: transition must be a non-empty square matrix, got shape \(1, 2\)",
+            ValueError,
+            r"markov: transition must be a non-empty square matrix of probabilities, "
+            r"got shape \(1, 2\)",
         ),
-        ([0.5, 0.5], None, r"must be a non-empty square matrix, got shape \(2,\)"),
+        ([0.5, 0.5], None, ValueError, r"must be a non-empty square matrix.*got shape \(2,\)"),
+        ([], None, ValueError, r"must be a non-empty square matrix.*got shape \(0,\)"),
         (
             [[1.1, -0.1], [0.5, 0.5]],
             None,
+            ValueError,
             r"markov: transition\[0\]\[1\] must be finite and >= 0, got -0\.1",
         ),
-        ([[0.5, 0.5], [float("nan"), 1.0]], None, r"transition\[1\]\[0\] must be finite .*got nan"),
+        (
+            [[0.5, 0.5], [float("nan"), 1.0]],
+            None,
+            ValueError,
+            r"transition\[1\]\[0\] must be finite .*got nan",
+        ),
         (
             [[0.5, 0.4], [0.5, 0.5]],
             None,
-            r"markov: transition row 0 must sum to 1 within 1e-09, got 0\.9",
+            ValueError,
+            r"markov: transition\[0\] must be a pmf summing to 1 within 1e-09, got a sum of 0\.9",
         ),
-        ([[1.0, 0.0], [0.5, 0.5]], None, r"reducible: state 1 cannot be reached from state 0"),
-        ([[0.5, 0.5], [0.0, 1.0]], None, r"reducible: state 0 cannot be reached from state 1"),
-        ([[0.5, 0.5], [0.5, 0.5]], [1.0], r"markov: initial must have 2 entries"),
+        (
+            [[1.0, 0.0], [0.5, 0.5]],
+            None,
+            ValueError,
+            r"markov: transition must be irreducible .*got state 1 unreachable from state 0",
+        ),
+        (
+            [[0.5, 0.5], [0.0, 1.0]],
+            None,
+            ValueError,
+            r"markov: transition must be irreducible .*got state 0 unreachable from state 1",
+        ),
+        (
+            [[0.5, 0.5], [0.5, 0.5]],
+            [1.0],
+            ValueError,
+            r"markov: initial must have 2 entries \(one per state\), got 1",
+        ),
         (
             [[0.5, 0.5], [0.5, 0.5]],
             [0.6, 0.6],
-            r"markov: initial must sum to 1 within 1e-09, got 1\.2",
+            ValueError,
+            r"markov: initial must be a pmf summing to 1 within 1e-09, got a sum of 1\.2",
         ),
-        ([[0.5, 0.5], [0.5, 0.5]], [1.5, -0.5], r"markov: initial\[1\] must be finite and >= 0"),
+        (
+            [[0.5, 0.5], [0.5, 0.5]],
+            [1.5, -0.5],
+            ValueError,
+            r"markov: initial\[1\] must be finite and >= 0",
+        ),
+        (
+            [[0.5, 0.5], [0.5, 0.5]],
+            "ab",
+            TypeError,
+            r"markov: initial must be a sequence of probabilities, got 'ab'",
+        ),
         (
             [[0.5, "x"], [0.5, 0.5]],
             None,
-            r"markov: transition must be a square matrix of probabilities",
+            TypeError,
+            r"markov: transition must be a non-empty square matrix of probabilities, got \[\[",
+        ),
+        (
+            "0.5",
+            None,
+            TypeError,
+            r"markov: transition must be a non-empty square matrix of probabilities, got '0\.5'",
         ),
     ],
 )
-def test_bad_markov_parameters(transition, initial, match):
-    with pytest.raises(ValueError, match=match):
+def test_bad_markov_parameters(transition, initial, error, match):
+    with pytest.raises(error, match=match):
         sources.markov(transition, initial)
 
 
@@ -352,19 +398,31 @@ def test_empirical_specs():
 
 
 @pytest.mark.parametrize(
-    ("data", "order", "match"),
+    ("data", "order", "error", "match"),
     [
-        ([], 0, r"empirical: data is empty; an entropy estimate needs at least one symbol"),
-        (b"", 0, r"empirical: data is empty"),
-        ([1, 2, 3], -1, r"empirical: order must be an integer >= 0, got -1"),
-        ([1, 2, 3], 1.5, r"empirical: order must be an integer >= 0, got 1\.5"),
-        ([1, 2, 3], 3, r"empirical: order must be less than the data length 3, got 3"),
-        ([0.5, 1.5], 0, r"empirical: data must be integer symbols, got dtype float64"),
-        ([[1, 2]], 0, r"empirical: data must be a 1-D sequence"),
+        (
+            [],
+            0,
+            ValueError,
+            r"empirical: data is empty; an entropy estimate needs at least one symbol",
+        ),
+        (b"", 0, ValueError, r"empirical: data is empty"),
+        ([1, 2, 3], -1, ValueError, r"^empirical: order must be an integer >= 0, got -1$"),
+        ([1, 2, 3], 1.5, TypeError, r"^empirical: order must be an integer, got 1\.5$"),
+        ([1, 2, 3], True, TypeError, r"^empirical: order must be an integer, got True$"),
+        (
+            [1, 2, 3],
+            3,
+            ValueError,
+            r"empirical: order must be less than the data length 3, got 3",
+        ),
+        ([0.5, 1.5], 0, TypeError, r"empirical: data must be integer symbols, got dtype float64"),
+        ("abc", 0, TypeError, r"empirical: data must be a 1-D sequence of integer symbols"),
+        ([[1, 2]], 0, ValueError, r"empirical: data must be a 1-D sequence"),
     ],
 )
-def test_bad_empirical_parameters(data, order, match):
-    with pytest.raises(ValueError, match=match):
+def test_bad_empirical_parameters(data, order, error, match):
+    with pytest.raises(error, match=match):
         sources.empirical(data, order=order)
 
 
@@ -380,14 +438,47 @@ def test_from_file_formats(tmp_path):
     assert u8.data.tolist() == list(content)
     assert u8.entropy == pytest.approx(sources.empirical(content).entropy, rel=1e-15)
     assert u8.path == str(path)
-    bits = sources.from_file(path, symbol="bit")
+    bits = sources.from_file(path, symbol="bits")
     assert bits.data[:16].tolist() == [1, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 1]  # MSB first
     assert bits.data.size == 64
+    assert ",symbol=bits," in bits.spec
     u16 = sources.from_file(path, symbol="u16le")
     assert u16.data.tolist() == [0x0180, 0x00FF, 0x3412, 0x7856]
     u32 = sources.from_file(path, symbol="u32le", order=1)
     assert u32.data.tolist() == [0x00FF0180, 0x78563412]
     assert u32.order == 1
+
+
+def _zigzag_decode(n):
+    """Zig-zag back to a signed integer: (n >> 1) XOR -(n AND 1) (common practice, from memory)."""
+    return (n >> 1) ^ -(n & 1)
+
+
+# Reference decoding of each layout with the struct module (little-endian words).
+LAYOUT_REFERENCE = {
+    "u8": lambda b: list(struct.unpack(f"<{len(b)}B", b)),
+    "u16le": lambda b: list(struct.unpack(f"<{len(b) // 2}H", b)),
+    "u32le": lambda b: list(struct.unpack(f"<{len(b) // 4}I", b)),
+    "i32le": lambda b: list(struct.unpack(f"<{len(b) // 4}i", b)),
+    "zigzag-u8": lambda b: [_zigzag_decode(v) for v in struct.unpack(f"<{len(b)}B", b)],
+    "zigzag-u16le": lambda b: [_zigzag_decode(v) for v in struct.unpack(f"<{len(b) // 2}H", b)],
+    "zigzag-u32le": lambda b: [_zigzag_decode(v) for v in struct.unpack(f"<{len(b) // 4}I", b)],
+    "bits": lambda b: [(byte >> (7 - i)) & 1 for byte in b for i in range(8)],
+}
+
+
+@pytest.mark.parametrize("symbol", sorted(layouts.LAYOUTS))
+def test_from_file_reads_every_layout(tmp_path, symbol):
+    content = bytes([0x80, 0x01, 0xFF, 0x00, 0x12, 0x34, 0x56, 0xF8])
+    path = tmp_path / "words.bin"
+    path.write_bytes(content)
+    src = sources.from_file(path, symbol=symbol)
+    assert src.data.tolist() == LAYOUT_REFERENCE[symbol](content)
+    assert src.spec.startswith(f"from_file(name=words.bin,symbol={symbol},order=0,sha=")
+
+
+def test_from_file_layouts_are_the_project_table():
+    assert set(LAYOUT_REFERENCE) == set(layouts.LAYOUTS)
 
 
 def test_from_file_spec_carries_name_and_content_hash(tmp_path):
@@ -408,12 +499,22 @@ def test_from_file_errors(tmp_path):
     odd = tmp_path / "odd.bin"
     odd.write_bytes(b"abc")
     with pytest.raises(
-        ValueError, match=r"odd\.bin has 3 bytes, not a multiple of 2 as symbol='u16le'"
+        LayoutError,
+        match=r"from_file: .*odd\.bin: 3 bytes are not a whole number of 'u16le' symbols",
     ):
         sources.from_file(odd, symbol="u16le")
-    with pytest.raises(ValueError, match=r"from_file: symbol must be one of .*got 'u12'"):
+    assert issubclass(LayoutError, ValueError)
+    with pytest.raises(
+        ValueError, match=r"^from_file: symbol must be one of 'bits', 'u8', .*got 'u12'$"
+    ):
         sources.from_file(odd, symbol="u12")
-    with pytest.raises(ValueError, match=r"from_file: order must be an integer >= 0, got -2"):
+    with pytest.raises(ValueError, match=r"from_file: symbol must be one of .*got 'bit'$"):
+        sources.from_file(odd, symbol="bit")  # the layout is called "bits"
+    with pytest.raises(TypeError, match=r"from_file: symbol must be one of .*got 8$"):
+        sources.from_file(odd, symbol=8)
+    with pytest.raises(ValueError, match=r"^from_file: order must be an integer >= 0, got -2$"):
         sources.from_file(odd, order=-2)
+    with pytest.raises(TypeError, match=r"^from_file: order must be an integer, got 1\.0$"):
+        sources.from_file(odd, order=1.0)
     with pytest.raises(FileNotFoundError):
         sources.from_file(tmp_path / "missing.bin")

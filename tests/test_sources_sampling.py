@@ -15,7 +15,7 @@ import pytest
 import scipy.stats
 
 from pytest_ratefloor import sources
-from pytest_ratefloor.sources import (
+from pytest_ratefloor.sources.sampling import (
     _geometric_table,
     _GeometricCounter,
     _InverseCdf,
@@ -78,26 +78,34 @@ def test_seeds_give_different_samples():
     assert np.array_equal(src.sample(100, seed=np.int64(3)), src.sample(100, seed=3))
 
 
+# the same bad n or seed gives the same answer as every other entry point (no "where")
 @pytest.mark.parametrize(
-    ("n", "match"),
+    ("n", "error", "match"),
     [
-        (-1, r"sample: n must be a non-negative integer, got -1"),
-        (2.5, r"sample: n must be a non-negative integer, got 2\.5"),
-        (True, r"sample: n must be a non-negative integer, got True"),
-        ("10", r"sample: n must be a non-negative integer, got '10'"),
-        (None, r"sample: n must be a non-negative integer, got None"),
+        (-1, ValueError, r"^n must be an integer >= 0, got -1$"),
+        (2.5, TypeError, r"^n must be an integer, got 2\.5$"),
+        (True, TypeError, r"^n must be an integer, got True$"),
+        ("10", TypeError, r"^n must be an integer, got '10'$"),
+        (None, TypeError, r"^n must be an integer, got None$"),
     ],
 )
-def test_bad_sample_sizes(n, match):
-    with pytest.raises(ValueError, match=match):
+def test_bad_sample_sizes(n, error, match):
+    with pytest.raises(error, match=match):
         sources.bernoulli(0.5).sample(n)
 
 
-def test_bad_seeds():
-    with pytest.raises(ValueError, match=r"sample: seed must be a non-negative integer, got -3"):
-        sources.bernoulli(0.5).sample(10, seed=-3)
-    with pytest.raises(ValueError, match=r"sample: seed must be a non-negative integer, got None"):
-        sources.bernoulli(0.5).sample(10, seed=None)
+@pytest.mark.parametrize(
+    ("seed", "error", "match"),
+    [
+        (-3, ValueError, r"^seed must be an integer >= 0, got -3$"),
+        (None, TypeError, r"^seed must be an integer, got None$"),
+        (True, TypeError, r"^seed must be an integer, got True$"),
+        (1.0, TypeError, r"^seed must be an integer, got 1\.0$"),
+    ],
+)
+def test_bad_seeds(seed, error, match):
+    with pytest.raises(error, match=match):
+        sources.bernoulli(0.5).sample(10, seed=seed)
 
 
 # --------------------------------------------------------------------------

@@ -16,7 +16,7 @@ hypothesis = pytest.importorskip("hypothesis")
 from hypothesis import HealthCheck, given, settings  # noqa: E402
 from hypothesis import strategies as st  # noqa: E402
 
-from pytest_ratefloor.corruption import Corruption  # noqa: E402
+from pytest_ratefloor.corruption import CORRUPTION_KINDS, Corruption  # noqa: E402
 from pytest_ratefloor.strategies import (  # noqa: E402
     LARGE_LENGTHS,
     MAX_EVERY_SYMBOL,
@@ -81,14 +81,18 @@ def test_alphabet_of_its_three_forms() -> None:
 
 
 def test_alphabet_of_rejects_bad_input_by_name() -> None:
-    with pytest.raises(ValueError, match="alphabet size must be >= 1, got 0"):
+    with pytest.raises(ValueError, match=r"^alphabet size must be an integer >= 1, got 0$"):
         alphabet_of(0)
     with pytest.raises(ValueError, match="the alphabet is empty"):
         alphabet_of([])
     with pytest.raises(TypeError, match="expected a reference source"):
         alphabet_of("abc")
-    with pytest.raises(ValueError, match="max_length must be a positive int, got 0"):
+    with pytest.raises(ValueError, match=r"^max_length must be an integer >= 1, got 0$"):
         symbol_sequences(4, max_length=0)
+    with pytest.raises(TypeError, match=r"^max_length must be an integer, got 8\.0$"):
+        symbol_sequences(4, max_length=8.0)  # type: ignore[arg-type]
+    with pytest.raises(TypeError, match=r"^large must be True or False, got 1$"):
+        symbol_sequences(4, large=1)  # type: ignore[arg-type]
 
 
 # ---------------------------------------------------------------------------
@@ -230,8 +234,33 @@ def test_corruptions_of_an_empty_stream_are_appends() -> None:
 def test_corruption_kinds_are_checked() -> None:
     with pytest.raises(ValueError, match="kinds must be a non-empty subset"):
         corruptions(10, kinds=["smudge"])
-    with pytest.raises(ValueError, match="stream_length must be a non-negative int, got -1"):
+    with pytest.raises(ValueError, match="kinds must be a non-empty subset"):
+        corruptions(10, kinds=[])
+    with pytest.raises(TypeError, match="kinds must be a non-empty subset"):
+        corruptions(10, kinds="flip")
+    with pytest.raises(TypeError, match="kinds must be a non-empty subset"):
+        corruptions(10, kinds=[3])  # type: ignore[list-item]
+    with pytest.raises(ValueError, match=r"^stream_length must be an integer >= 0, got -1$"):
         corruptions(-1)
+    with pytest.raises(TypeError, match=r"^stream_length must be an integer, got 1\.5$"):
+        corruptions(1.5)  # type: ignore[arg-type]
+    with pytest.raises(ValueError, match=r"^trials must be an integer >= 1, got 0$"):
+        corruption_schedules(10, trials=0)
+    with pytest.raises(TypeError, match=r"^trials must be an integer, got True$"):
+        corruption_schedules(10, trials=True)
+
+
+def test_every_damage_kind_is_drawn() -> None:
+    # the strategy's kinds are the corruption package's one table
+    kinds: set[str] = set()
+
+    @settings(max_examples=60, deadline=None, database=None, derandomize=True)
+    @given(corruptions(40))
+    def record(c: Corruption) -> None:
+        kinds.add(c.kind)
+
+    record()
+    assert kinds == set(CORRUPTION_KINDS)
 
 
 @settings(

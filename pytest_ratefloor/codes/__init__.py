@@ -1,0 +1,101 @@
+"""Symbol-code analysis: codebooks, prefix-freeness, Kraft, unique decodability and
+optimal-length floors.
+
+One concern per module; this package re-exports their public names, so that
+``from pytest_ratefloor import codes; codes.huffman_lengths(...)`` and
+``from pytest_ratefloor.codes import Codebook, assert_kraft`` read as before.
+
+===================  =========================================================
+module               holds
+===================  =========================================================
+``codebook``         :class:`Codebook` (a table ``{symbol: codeword}`` that is
+                     also a working codec) and the parsing of tables
+``properties``       prefix-freeness with a witness, exact Kraft sums, canonical
+                     order and :func:`canonical_codebook`, the length cap, and
+                     :func:`assert_prefix_free` / :func:`assert_kraft`
+``decodability``     Sardinas–Patterson: :func:`ambiguity`,
+                     :func:`assert_uniquely_decodable`
+``optimal``          Huffman and package-merge lengths, Golomb/Rice parameters
+                     and expected lengths, :func:`entropy_bits`,
+                     :func:`expected_length`, :func:`redundancy`,
+                     :func:`excess_by_symbol`
+===================  =========================================================
+
+Conventions
+-----------
+* Codewords are bit strings written most-significant bit first: ``"0110"``, a
+  ``bitarray`` (its logical bit order, whatever its endianness) or ``(value, length)``
+  meaning the low ``length`` bits of ``value``, MSB first. Witnesses in results and
+  messages are given as ``"0110"`` text.
+* A zero probability gets no codeword (length 0 in length vectors): a symbol that
+  never occurs needs no room in the code space.
+* A source with a single possible symbol gets one 1-bit codeword. A zero-length
+  codeword would make the stream carry no bits at all, so the symbol count could not
+  be recovered from the stream; every real symbol-code format spends at least one bit.
+  Such a code has Kraft sum 1/2 and is the one incomplete code ``assert_kraft(...,
+  complete=True)`` accepts.
+* Kraft sums are exact :class:`fractions.Fraction` values (integer arithmetic only).
+* Arguments are checked by :mod:`pytest_ratefloor.validation`: a wrong type raises
+  ``TypeError``, a right type with a bad value ``ValueError``.
+"""
+
+from __future__ import annotations
+
+from pytest_ratefloor.codes.codebook import Codebook
+from pytest_ratefloor.codes.codebook import CodeLike as CodeLike
+from pytest_ratefloor.codes.codebook import IntArray as IntArray
+from pytest_ratefloor.codes.decodability import (
+    SP_SUFFIX_LIMIT,
+    ambiguity,
+    assert_uniquely_decodable,
+)
+from pytest_ratefloor.codes.optimal import (
+    _package_merge as _package_merge,
+)
+from pytest_ratefloor.codes.optimal import (
+    entropy_bits,
+    excess_by_symbol,
+    expected_length,
+    golomb_expected_length,
+    golomb_parameter,
+    huffman_lengths,
+    length_limited_lengths,
+    redundancy,
+    rice_parameter,
+)
+from pytest_ratefloor.codes.properties import (
+    Witness as Witness,
+)
+from pytest_ratefloor.codes.properties import (
+    _check_shape as _check_shape,
+)
+from pytest_ratefloor.codes.properties import (
+    assert_kraft,
+    assert_prefix_free,
+    canonical_codebook,
+    is_canonical,
+    kraft_sum,
+    prefix_witness,
+)
+
+__all__ = [
+    "SP_SUFFIX_LIMIT",
+    "Codebook",
+    "ambiguity",
+    "assert_kraft",
+    "assert_prefix_free",
+    "assert_uniquely_decodable",
+    "canonical_codebook",
+    "entropy_bits",
+    "excess_by_symbol",
+    "expected_length",
+    "golomb_expected_length",
+    "golomb_parameter",
+    "huffman_lengths",
+    "is_canonical",
+    "kraft_sum",
+    "length_limited_lengths",
+    "prefix_witness",
+    "redundancy",
+    "rice_parameter",
+]

@@ -1,0 +1,156 @@
+"""Unique decodability: the Sardinas–Patterson test with a shortest witness.
+
+Sardinas & Patterson (1953): a code is uniquely decodable iff no dangling suffix is a
+codeword. :func:`ambiguity` explores the dangling suffixes shortest-total-length first
+and rebuilds the two parses of a shortest ambiguous bit string;
+:func:`assert_uniquely_decodable` fails with them
+(:class:`~pytest_ratefloor.errors.AmbiguousCode`). Prefix-free codes pass at once. The
+search is bounded by :data:`SP_SUFFIX_LIMIT` dangling suffixes
+(:class:`~pytest_ratefloor.errors.SearchLimitError` past it).
+"""
+
+from __future__ import annotations
+
+import heapq
+import itertools
+from bisect import bisect_left
+from typing import Any
+
+from pytest_ratefloor.codes.codebook import CodeLike, _as_codebook
+from pytest_ratefloor.codes.properties import prefix_witness
+from pytest_ratefloor.errors import AmbiguousCode, SearchLimitError
+from pytest_ratefloor.validation import integer
+
+#: Default bound of the Sardinas–Patterson search: the number of distinct dangling
+#: suffixes it may settle before giving up with :class:`SearchLimitError`. The
+#: dangling suffixes of a code are suffixes of its codewords, so the search always
+#: ends by itself after at most Σℓ of them; the bound only keeps a huge table from
+#: running for minutes. Each settled suffix costs O(ℓmax + matches) dictionary work.
+SP_SUFFIX_LIMIT = 200_000
+
+_DONE, _STATE = 0, 1
+
+
+def ambiguity(
+    code: CodeLike, limit: int = SP_SUFFIX_LIMIT
+) -> tuple[str, list[int], list[int]] | None:
+    """A shortest ambiguous bit string and its two parses, or None if uniquely decodable.
+
+    Sardinas & Patterson (1953): a code is uniquely decodable iff no dangling suffix
+    is a codeword. Dangling suffixes are explored shortest-total-length first
+    (Dijkstra on the length of the longer parse), recording how each arose, so both
+    parses of the shortest ambiguous string can be rebuilt. A prefix-free code
+    returns None at once. Raises :class:`SearchLimitError` after ``limit``
+    distinct dangling suffixes.
+    """
+    cb = _as_codebook(code)
+    limit = integer(limit, "limit", minimum=1)
+    if prefix_witness(cb) is None:
+        return None
+    texts = cb._texts()
+    syms = cb._symbols.tolist()
+    text_of = dict(zip(syms, texts))
+    first_symbol: dict[str, int] = {}
+    heap: list[tuple[Any, ...]] = []
+    seq = itertools.count()
+    for sym, w in zip(syms, texts):
+        if w in first_symbol:  # two symbols, one codeword: ambiguous at once
+            heapq.heappush(heap, (len(w), _DONE, next(seq), None, ([first_symbol[w]], [sym])))
+        else:
+            first_symbol[w] = sym
+    words = sorted(first_symbol)
+    # Start: u a proper prefix of v, so [v] is ahead of [u] by the dangling suffix.
+    for v in words:
+        for k in range(1, len(v)):
+            u = first_symbol.get(v[:k])
+            if u is not None:
+                item = (len(v), _STATE, next(seq), v[k:], ("start", first_symbol[v], u))
+                heapq.heappush(heap, item)
+    settled: dict[str, tuple[Any, ...]] = {}
+    while heap:
+        cost, kind, _, suffix, how = heapq.heappop(heap)
+        if kind == _DONE:
+            return _rebuild(how, settled, text_of)
+        if suffix in settled:
+            continue
+        settled[suffix] = how
+        if len(settled) > limit:
+            raise SearchLimitError(
+                f"Sardinas–Patterson search on codebook {cb.name!r} passed limit={limit} "
+                f"dangling suffixes without a verdict; raise limit= to search further"
+            )
+        exact = first_symbol.get(suffix)
+        if exact is not None:  # the lagging parse catches up exactly
+            heapq.heappush(heap, (cost, _DONE, next(seq), None, ("end", suffix, exact)))
+        for k in range(1, len(suffix)):  # a codeword inside the dangling suffix
+            c = first_symbol.get(suffix[:k])
+            if c is not None and suffix[k:] not in settled:
+                heapq.heappush(
+                    heap, (cost, _STATE, next(seq), suffix[k:], ("step", suffix, c, False))
+                )
+        i = bisect_left(words, suffix)  # a codeword reaching past the dangling suffix
+        while i < len(words) and words[i].startswith(suffix):
+            w = words[i]
+            i += 1
+            rest = w[len(suffix) :]
+            if rest and rest not in settled:
+                heapq.heappush(
+                    heap,
+                    (
+                        cost + len(rest),
+                        _STATE,
+                        next(seq),
+                        rest,
+                        ("step", suffix, first_symbol[w], True),
+                    ),
+                )
+    return None
+
+
+def _rebuild(
+    how: tuple[Any, ...], settled: dict[str, tuple[Any, ...]], text_of: dict[int, str]
+) -> tuple[str, list[int], list[int]]:
+    """Replay the recorded derivation into two parses of one bit string."""
+    if how[0] != "end":  # duplicate codeword
+        a, b = how
+        return text_of[a[0]], list(a), list(b)
+    _, suffix, last = how
+    steps: list[tuple[int, bool]] = []
+    rec = settled[suffix]
+    while rec[0] == "step":
+        _, prev, sym, swapped = rec
+        steps.append((sym, swapped))
+        rec = settled[prev]
+    _, long_first, short_first = rec
+    ahead, behind = [long_first], [short_first]
+    for sym, swapped in reversed(steps):
+        behind.append(sym)
+        if swapped:
+            ahead, behind = behind, ahead
+    behind.append(last)
+    bits = "".join(text_of[s] for s in ahead)
+    if bits != "".join(text_of[s] for s in behind):  # an internal invariant
+        raise RuntimeError(f"Sardinas–Patterson rebuild gave unequal parses {ahead} {behind}")
+    first, second = (ahead, behind) if ahead[0] == short_first else (behind, ahead)
+    return bits, first, second
+
+
+def assert_uniquely_decodable(code: CodeLike, limit: int = SP_SUFFIX_LIMIT) -> None:
+    """Fail (:class:`AmbiguousCode`) with a shortest ambiguous bit string and its two
+    parses. Prefix-free codes pass at once; otherwise Sardinas–Patterson, bounded by
+    ``limit`` dangling suffixes (:class:`SearchLimitError` past it)."""
+    __tracebackhide__ = True
+    cb = _as_codebook(code)
+    found = ambiguity(cb, limit=limit)
+    if found is None:
+        return
+    bits, parse_a, parse_b = found
+    text_of = {s: cb.word(s) for s in set(parse_a) | set(parse_b)}
+
+    def shown(parse: list[int]) -> str:
+        return f"{parse} = " + "·".join(repr(text_of[s]) for s in parse)
+
+    raise AmbiguousCode(
+        f"codebook {cb.name!r} is not uniquely decodable: the bit string {bits!r} "
+        f"({len(bits)} bits) has two parses: {shown(parse_a)} and {shown(parse_b)}"
+    )

@@ -1,0 +1,381 @@
+"""Properties of a code table: prefix-freeness, Kraft sums, canonical order, caps.
+
+* Prefix-freeness with a witness: :func:`prefix_witness` finds the first pair of
+  codewords where one is a prefix of (or equal to) the other; :func:`assert_prefix_free`
+  fails with it (:class:`~pytest_ratefloor.errors.PrefixFailure`).
+* Exact Kraft sums Σ2^-ℓ as :class:`fractions.Fraction` values (integer arithmetic
+  only): :func:`kraft_sum`, :func:`assert_kraft`
+  (:class:`~pytest_ratefloor.errors.KraftFailure`). Kraft's inequality (Kraft 1949)
+  bounds the lengths of every prefix code and McMillan's theorem (McMillan 1956) those
+  of every uniquely decodable code (years from memory): a sum above 1 means some bit
+  string has two parses.
+* Canonical order (RFC 1951 §3.2.2): :func:`is_canonical`, :func:`canonical_codebook`
+  (the canonical prefix code of given lengths), and the length cap of a format; both
+  shape checks fail with :class:`~pytest_ratefloor.errors.CodeShapeFailure`.
+
+The one-symbol code with a 1-bit codeword has Kraft sum 1/2 and is the one incomplete
+code ``assert_kraft(..., complete=True)`` accepts: a zero-length codeword would make
+the stream carry no bits, so every real symbol-code format spends at least one bit.
+"""
+
+from __future__ import annotations
+
+import itertools
+from collections.abc import Mapping
+from fractions import Fraction
+
+import numpy as np
+import numpy.typing as npt
+
+from pytest_ratefloor.codes.codebook import (
+    Codebook,
+    CodeLike,
+    IntArray,
+    _as_codebook,
+    _symbol_array,
+    _symbol_of,
+    _word_text,
+)
+from pytest_ratefloor.errors import CodeShapeFailure, KraftFailure, PrefixFailure
+from pytest_ratefloor.validation import integer, show
+
+Witness = tuple[tuple[int, str], tuple[int, str]]
+
+
+def prefix_witness(code: CodeLike) -> Witness | None:
+    """The first pair of codewords where one is a prefix of (or equal to) the other.
+
+    Returns ``((symbol_a, word_a), (symbol_b, word_b))`` with ``word_a`` a prefix of
+    ``word_b`` (possibly equal), or ``None`` for a prefix-free code. "First" means
+    first in lexicographic order of the codewords (ties by symbol).
+
+    O(N log N): sort the codewords lexicographically (as left-aligned integers, ties
+    by length); a word is then followed by its extensions, so if ``u`` is a prefix of
+    any word it is a prefix of the word right after it, and adjacent pairs suffice.
+    """
+    cb = _as_codebook(code)
+    n = len(cb)
+    if n < 2:
+        return None
+    values = cb._values_u64()
+    if values is None:  # codewords beyond 64 bits: compare as text
+        return _prefix_witness_text(cb)
+    lengths = cb._lengths
+    top = cb.max_length
+    keys = values << (top - lengths).astype(np.uint64)
+    if top <= 57:  # key and length fit one uint64 sort key (stable: ties by symbol)
+        order = np.argsort((keys << np.uint64(7)) | lengths.astype(np.uint64), kind="stable")
+    else:
+        order = np.lexsort((cb._symbols, lengths, keys))
+    a, b = order[:-1], order[1:]
+    diff = lengths[b] - lengths[a]
+    shift = np.where(diff > 0, diff, 0).astype(np.uint64)
+    hit = (diff >= 0) & ((values[b] >> shift) == values[a])
+    if not bool(hit.any()):
+        return None
+    k = int(np.argmax(hit))
+    ia, ib = int(a[k]), int(b[k])
+    return (
+        (int(cb._symbols[ia]), _word_text(cb._pyvalues[ia], int(lengths[ia]))),
+        (int(cb._symbols[ib]), _word_text(cb._pyvalues[ib], int(lengths[ib]))),
+    )
+
+
+def _prefix_witness_text(cb: Codebook) -> Witness | None:
+    """:func:`prefix_witness` on '0'/'1' text, for codewords longer than 64 bits."""
+    texts = cb._texts()
+    syms = cb._symbols.tolist()
+    ranked = sorted(range(len(texts)), key=lambda i: (texts[i], syms[i]))
+    for i, j in itertools.pairwise(ranked):
+        if texts[j].startswith(texts[i]):
+            return (syms[i], texts[i]), (syms[j], texts[j])
+    return None
+
+
+def _prefix_phrase(witness: Witness) -> str:
+    (sa, wa), (sb, wb) = witness
+    if wa == wb:
+        return f"symbols {sa} and {sb} share the codeword {wa!r}"
+    return (
+        f"the codeword of symbol {sa} ({wa!r}) is a prefix of the codeword of symbol {sb} ({wb!r})"
+    )
+
+
+def assert_prefix_free(
+    code: CodeLike, max_length: int | None = None, canonical: bool = False
+) -> None:
+    """Fail (:class:`PrefixFailure`) if a codeword is a prefix of another or two are equal.
+
+    ``max_length`` (an integer >= 1) also checks the format's length cap and
+    ``canonical=True`` the canonical assignment (both :class:`CodeShapeFailure`).
+    """
+    __tracebackhide__ = True
+    cb = _as_codebook(code)
+    cap = _length_cap(max_length)
+    witness = prefix_witness(cb)
+    if witness is not None:
+        (sa, wa), _ = witness
+        raise PrefixFailure(
+            f"codebook {cb.name!r} is not prefix-free: {_prefix_phrase(witness)}; "
+            f"a decoder that has read {wa!r} cannot tell whether symbol {sa} has ended"
+        )
+    _check_shape(cb, cap, canonical)
+
+
+def _length_cap(max_length: object) -> int | None:
+    """The ``max_length=`` of the assert functions: None, or an integer >= 1."""
+    return None if max_length is None else integer(max_length, "max_length", minimum=1)
+
+
+# ------------------------------------------------------------------------------ Kraft
+
+
+def _length_counts(cb: Codebook) -> dict[int, int]:
+    counts = np.bincount(cb._lengths)
+    return {int(ln): int(c) for ln, c in enumerate(counts.tolist()) if c}
+
+
+def kraft_sum(code: CodeLike) -> Fraction:
+    """Σ 2^−ℓ over the codewords, exactly: Σ 2^(ℓmax−ℓ) / 2^ℓmax in integers."""
+    cb = _as_codebook(code)
+    top = cb.max_length
+    total = sum(c << (top - ln) for ln, c in _length_counts(cb).items())
+    return Fraction(total, 1 << top)
+
+
+def _histogram_text(cb: Codebook, limit: int = 12) -> str:
+    items = sorted(_length_counts(cb).items())
+    parts = [f"{c}×{ln}" for ln, c in items[:limit]]
+    if len(items) > limit:
+        parts.append(f"... ({len(items) - limit} more lengths)")
+    return "codewords×bits: " + ", ".join(parts)
+
+
+def _unused_prefix(cb: Codebook) -> str | None:
+    """A bit string that no codeword starts with or is a prefix of (from the first
+    gap in the code space), or None when there is no gap or codewords are too long."""
+    values = cb._values_u64()
+    top = cb.max_length
+    if values is None or top > 62:
+        return None
+    lengths = cb._lengths
+    span = np.left_shift(np.int64(1), top - lengths)
+    keys = (values << (top - lengths).astype(np.uint64)).astype(np.int64)
+    order = np.argsort(keys, kind="stable")
+    keys, span = keys[order], span[order]
+    ends = np.maximum.accumulate(keys + span)
+    starts = np.concatenate(([0], ends))
+    stops = np.concatenate((keys, [1 << top]))
+    gaps = np.flatnonzero(stops > starts)
+    if gaps.size == 0:
+        return None
+    g, e = int(starts[gaps[0]]), int(stops[gaps[0]])
+    t = top
+    while t > 0 and (g % (1 << t) or g + (1 << t) > e):
+        t -= 1
+    return _word_text(g >> t, top - t) if top > t else ""
+
+
+def assert_kraft(
+    code: CodeLike,
+    complete: bool = False,
+    max_length: int | None = None,
+    canonical: bool = False,
+) -> None:
+    """Fail (:class:`KraftFailure`) if the Kraft sum exceeds 1.
+
+    ``complete=True`` also fails a code whose sum is below 1, with the unused share
+    of the code space (except the one-symbol code with a 1-bit codeword, the only
+    code a one-symbol alphabet can have). ``max_length`` and ``canonical`` as in
+    :func:`assert_prefix_free`.
+    """
+    __tracebackhide__ = True
+    cb = _as_codebook(code)
+    cap = _length_cap(max_length)
+    total = kraft_sum(cb)
+    if total > 1:
+        raise KraftFailure(
+            f"codebook {cb.name!r} is over-full: Kraft sum Σ2^-ℓ = {total} > 1 "
+            f"(over by {total - 1}); by McMillan's theorem no uniquely decodable code "
+            f"can have a Kraft sum above 1, so some bit strings have two parses "
+            f"({len(cb)} codewords; {_histogram_text(cb)})"
+        )
+    single = len(cb) == 1 and cb.max_length == 1
+    if complete and total < 1 and not single:
+        unused = 1 - total
+        hole = _unused_prefix(cb)
+        example = f"; e.g. no codeword starts with {hole!r}" if hole else ""
+        raise KraftFailure(
+            f"codebook {cb.name!r} is incomplete: Kraft sum Σ2^-ℓ = {total} < 1, so "
+            f"{unused} of the code space ({float(unused) * 100:.6g}%) is unused{example} "
+            f"({len(cb)} codewords; {_histogram_text(cb)})"
+        )
+    _check_shape(cb, cap, canonical)
+
+
+# ------------------------------------------------------------------ canonical & shape
+
+
+def _canonical_values(lengths: list[int]) -> list[int]:
+    """Canonical codeword values for lengths given in (length, symbol) order.
+
+    code_0 = 0 and code_i = (code_{i-1} + 1) << (ℓ_i − ℓ_{i-1}) (RFC 1951 §3.2.2),
+    i.e. code_i = Σ_{j<i} 2^(ℓ_i−ℓ_j). Values may overflow their length when the
+    Kraft sum exceeds 1.
+    """
+    out: list[int] = []
+    code = -1
+    prev = lengths[0] if lengths else 0
+    for ln in lengths:
+        code = (code + 1) << (ln - prev)
+        out.append(code)
+        prev = ln
+    return out
+
+
+def _canonical_values_np(lengths: IntArray) -> IntArray | None:
+    """Vectorised :func:`_canonical_values` (lengths ascending) as the left-aligned
+    partial Kraft sums shifted down; None when int64 could overflow."""
+    top = int(lengths.max())
+    if top > 62 or lengths.size >= (1 << (63 - top)):
+        return None
+    steps = np.left_shift(np.int64(1), top - lengths)
+    left = np.concatenate(([0], np.cumsum(steps)[:-1]))
+    return np.right_shift(left, top - lengths)
+
+
+def _canonical_mismatch(cb: Codebook) -> tuple[int, str, str | None] | None:
+    """(symbol, its codeword, the canonical one or None if none exists) of the first
+    symbol in (length, symbol) order whose codeword is not the canonical one."""
+    order = np.lexsort((cb._symbols, cb._lengths))
+    lens = cb._lengths[order]
+    canon = _canonical_values_np(lens)
+    values = cb._values_u64()
+    if canon is not None and values is not None:
+        differ = np.flatnonzero(values[order].astype(np.int64) != canon)
+        if differ.size == 0:
+            return None
+        k = int(differ[0])
+        want, ln = int(canon[k]), int(lens[k])
+        i = int(order[k])
+    else:
+        exact = _canonical_values(lens.tolist())
+        actual = [cb._pyvalues[i] for i in order.tolist()]
+        first = next((k for k, (a, b) in enumerate(zip(exact, actual)) if a != b), None)
+        if first is None:
+            return None
+        want, ln, i = exact[first], int(lens[first]), int(order[first])
+    expected = _word_text(want, ln) if want < (1 << ln) else None
+    return int(cb._symbols[i]), _word_text(cb._pyvalues[i], ln), expected
+
+
+def is_canonical(code: CodeLike) -> bool:
+    """True if the codewords are the canonical code of their lengths: assigned in
+    order of (length, symbol), consecutive within a length, each length starting at
+    (previous codeword + 1) shifted left by the length difference (RFC 1951 §3.2.2)."""
+    return _canonical_mismatch(_as_codebook(code)) is None
+
+
+def _check_shape(cb: Codebook, cap: int | None, canonical: bool) -> None:
+    """The length cap (``cap``, already validated) and the canonical assignment."""
+    __tracebackhide__ = True
+    if cap is not None:
+        over = np.flatnonzero(cb._lengths > cap)
+        if over.size:
+            i = int(over[0])
+            j = int(np.argmax(cb._lengths))
+            raise CodeShapeFailure(
+                f"codebook {cb.name!r} breaks the length cap: symbol {int(cb._symbols[i])} "
+                f"has a {int(cb._lengths[i])}-bit codeword but max_length={cap} "
+                f"({over.size} codeword{'s' if over.size != 1 else ''} over the cap; longest "
+                f"{int(cb._lengths[j])} bits, symbol {int(cb._symbols[j])})"
+            )
+    if canonical:
+        bad = _canonical_mismatch(cb)
+        if bad is not None:
+            sym, got, want = bad
+            if want is None:
+                raise CodeShapeFailure(
+                    f"codebook {cb.name!r} is not canonical: its lengths admit no canonical "
+                    f"code (Kraft sum {kraft_sum(cb)} > 1); assignment overflows at symbol {sym}"
+                )
+            raise CodeShapeFailure(
+                f"codebook {cb.name!r} is not canonical: symbol {sym} has codeword {got!r} "
+                f"but the canonical code (order of (length, symbol), consecutive values) "
+                f"gives it {want!r}"
+            )
+
+
+def canonical_codebook(
+    lengths: Mapping[int, int] | tuple[npt.ArrayLike, npt.ArrayLike],
+    name: str = "canonical",
+) -> Codebook:
+    """The canonical prefix code with the given lengths.
+
+    ``lengths`` is ``{symbol: length}`` or ``(symbols, lengths)`` arrays; length 0
+    means "no codeword" (as :func:`huffman_lengths` returns for zero probabilities).
+    ``TypeError`` for arguments of the wrong type; ``ValueError`` for a negative
+    length, a symbol listed twice, no positive length at all, or lengths whose Kraft
+    sum exceeds 1 (no prefix code exists).
+    """
+    if not isinstance(name, str):
+        raise TypeError(f"codebook name must be a string, got {show(name)}")
+    if isinstance(lengths, Mapping):
+        syms = np.array([_symbol_of(s) for s in lengths], dtype=np.int64)
+        given = list(lengths.values())
+        if not all(type(v) is int for v in given):  # check types; signs are checked below
+            given = [integer(v, f"length of symbol {s}", minimum=0) for s, v in lengths.items()]
+        lens = np.array(given, dtype=np.int64)
+    else:
+        rule = "a {symbol: length} mapping or a (symbols, lengths) pair"
+        try:
+            pair = len(lengths) == 2
+        except TypeError:
+            raise TypeError(f"lengths must be {rule}, got {show(lengths)}") from None
+        if not pair:
+            raise ValueError(f"lengths must be {rule}, got {show(lengths)}")
+        syms = _symbol_array(lengths[0], "symbols")
+        lens = _symbol_array(lengths[1], "lengths")
+        if syms.shape != lens.shape:
+            raise ValueError(
+                f"symbols and lengths must be the same size, got {syms.size} and {lens.size}"
+            )
+    if lens.size and int(lens.min()) < 0:
+        i = int(np.argmin(lens))
+        raise ValueError(
+            f"length of symbol {int(syms[i])} must be an integer >= 0, got {int(lens[i])}"
+        )
+    keep = lens > 0
+    syms, lens = syms[keep], lens[keep]
+    if syms.size == 0:
+        raise ValueError(
+            f"lengths must give at least one symbol a positive length (a code needs a "
+            f"codeword), got {show(lengths)}"
+        )
+    top = int(lens.max())
+    counts = np.bincount(lens)
+    total = sum(int(c) << (top - ln) for ln, c in enumerate(counts.tolist()) if c)
+    if total > (1 << top):
+        raise ValueError(
+            f"lengths must have a Kraft sum Σ2^-ℓ <= 1 (else no prefix code exists), "
+            f"got a Kraft sum of {Fraction(total, 1 << top)}"
+        )
+    order = np.lexsort((syms, lens))
+    lens_o = lens[order]
+    by_symbol = np.argsort(syms[order], kind="stable")
+    sorted_syms = syms[order][by_symbol]
+    twice = np.flatnonzero(sorted_syms[1:] == sorted_syms[:-1])
+    if twice.size:
+        raise ValueError(f"symbols must be distinct, got {int(sorted_syms[twice[0]])} twice")
+    sorted_lens = lens_o[by_symbol]
+    fast = _canonical_values_np(lens_o)
+    if fast is not None:
+        values = fast[by_symbol]
+        return Codebook._from_arrays(
+            sorted_syms, values.tolist(), sorted_lens, name, values.astype(np.uint64)
+        )
+    exact = _canonical_values(lens_o.tolist())
+    return Codebook._from_arrays(
+        sorted_syms, [exact[i] for i in by_symbol.tolist()], sorted_lens, name
+    )
+

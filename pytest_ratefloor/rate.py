@@ -1,0 +1,224 @@
+"""The rate verdict: a measured length against its floor and the tolerance.
+
+Tolerance (``rel``/``abs``, as in ``pytest.approx``): the measured rate may
+exceed the floor rate by ``rel·floor_rate`` or by ``abs`` bits/symbol,
+whichever is larger. When both are ``None`` the default is ``rel=0.01,
+abs=0`` (1 % over the floor); when only one is given the other is 0. A
+relative slack of 10⁻⁹ (floating-point noise in the floor) is always added.
+
+Below the floor there is a hard limit: a length that falls further below
+the sample's self-information than any decodable code can (see
+:func:`impossible_margin`) is reported as :class:`ImpossibleRate`.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import TYPE_CHECKING, cast
+
+import numpy as np
+
+from pytest_ratefloor import validation
+from pytest_ratefloor.errors import ImpossibleRate, RateFailure, RateFloorFailure
+from pytest_ratefloor.floors import FLOORS, Floor, floor_bits
+from pytest_ratefloor.measurement import Measurement, sample_fingerprint
+
+if TYPE_CHECKING:
+    from pytest_ratefloor.codecs import Codec, Encoded
+    from pytest_ratefloor.sources import Source
+
+__all__ = [
+    "DEFAULT_ABS",
+    "DEFAULT_REL",
+    "IMPOSSIBLE_CONFIDENCE_BITS",
+    "elias_delta_length",
+    "impossible_margin",
+    "measurement_of",
+    "rate_verdict",
+    "sample_information",
+    "tolerance",
+]
+
+DEFAULT_REL = 0.01
+DEFAULT_ABS = 0.0
+#: ``c`` of the impossible-rate rule: a false alarm has probability ≤ 2⁻ᶜ.
+IMPOSSIBLE_CONFIDENCE_BITS = 32
+_FLOAT_SLACK = 1e-9
+
+
+def elias_delta_length(m: int) -> int:
+    """Length in bits of the Elias delta codeword of the integer ``m ≥ 1``.
+
+    Elias 1975 (from memory): ``⌊log₂ m⌋ + 2·⌊log₂(⌊log₂ m⌋ + 1)⌋ + 1``.
+    """
+    if m < 1:
+        raise ValueError(f"Elias delta codes integers m >= 1, got m={m}")
+    n_bits = m.bit_length() - 1  # ⌊log₂ m⌋
+    return n_bits + 2 * ((n_bits + 1).bit_length() - 1) + 1
+
+
+def impossible_margin(bits: int, c: int = IMPOSSIBLE_CONFIDENCE_BITS) -> float:
+    """How far below the sample's self-information a length of ``bits`` may fall.
+
+    Derivation. Let ``ℓ(x)`` be the codec's length on a sample ``x`` of
+    ``n`` symbols. The decoder is told ``n`` and sees where the stream ends,
+    so the code only has to be one-to-one on length-``n`` inputs, not
+    prefix-free. Prefixing each codeword with a prefix-free description of
+    its length — the Elias delta codeword of ``ℓ + 1``, ``δ(ℓ)`` bits, about
+    ``log₂(ℓ + 1) + 2·log₂log₂(ℓ + 1)`` — gives a prefix code of length
+    ``ℓ + δ(ℓ)``, which satisfies the Kraft inequality (Kraft 1949; McMillan
+    1956 for uniquely decodable codes, from memory). For any prefix code and
+    any ``c``, ``P(ℓ'(X) ≤ −log₂P(X) − c) ≤ 2⁻ᶜ`` (Markov's inequality on
+    ``2^−ℓ'(X)/P(X)``, whose mean is the Kraft sum ≤ 1; Barron 1985, from
+    memory). Hence a correct codec falls below
+    ``sample information − c − δ(ℓ)`` with probability at most ``2⁻ᶜ``; with
+    ``c = 32`` a report is a false alarm less than once in four billion runs.
+    This is the one-to-one-code bound ``c + log₂(max bits + 1)`` with the
+    unknown maximum replaced by a universal length code (slightly more
+    lenient, and valid without knowing the codec's longest output).
+    """
+    return float(c + elias_delta_length(int(bits) + 1))
+
+
+def tolerance(rel: float | None, abs: float | None) -> tuple[float, float]:
+    """Resolve ``rel``/``abs`` as documented in the module docstring (each >= 0, finite)."""
+    if rel is None and abs is None:
+        return DEFAULT_REL, DEFAULT_ABS
+    return (
+        0.0 if rel is None else validation.real(rel, "rel", minimum=0.0),
+        0.0 if abs is None else validation.real(abs, "abs", minimum=0.0),
+    )
+
+
+#: Declared alphabets up to this size get their sample information from a histogram.
+_HISTOGRAM_LIMIT = 1 << 16
+
+
+def sample_information(source: Source, sample: np.ndarray) -> float:
+    """``source.information(sample)``, from the histogram where that is cheaper.
+
+    For a memoryless source with a declared alphabet ``0..max ≤ 2¹⁶`` the sum
+    ``Σᵢ −log₂ P(xᵢ)`` equals ``Σₐ nₐ·(−log₂ P(a))`` over the distinct symbols
+    (``source.self_information`` of those, which also rejects symbols outside
+    the support); one counting pass replaces a float array of ``n`` entries.
+    """
+    lo, hi = source.min_symbol, source.max_symbol
+    if (
+        not source.memoryless
+        or lo is None
+        or hi is None
+        or lo != 0
+        or hi >= _HISTOGRAM_LIMIT
+        or len(sample) < 4 * _HISTOGRAM_LIMIT
+    ):
+        return float(source.information(sample))
+    try:
+        counts = np.bincount(sample)
+    except ValueError:  # a negative symbol: let the source name it
+        return float(source.information(sample))
+    present = np.flatnonzero(counts)
+    per_symbol = np.asarray(source.self_information(present), dtype=np.float64)
+    return float(np.dot(counts[present].astype(np.float64), per_symbol))
+
+
+def measurement_of(codec: Codec, source: Source, sample: np.ndarray, seed: int,
+                   encoded: Encoded, floor: Floor, encode_seconds: float = 0.0,
+                   decode_seconds: float = 0.0) -> Measurement:
+    """The case record of one encoded sample: bits, floor, information, fingerprint."""
+    information = sample_information(source, sample)
+    bits = floor_bits(floor, source, sample, sample_information=information)
+    params: dict[str, float] = {
+        str(k): (int(v) if isinstance(v, (int, np.integer)) else float(v))
+        for k, v in dict(source.params).items()
+    }
+    n = len(sample)
+    return Measurement(
+        codec=codec.name,
+        source=source.spec,
+        n=n,
+        seed=seed,
+        bits=int(encoded.bits),
+        entropy=float(source.entropy),
+        floor=floor,
+        floor_bits=float(bits),
+        fingerprint=sample_fingerprint(sample, bounds=_declared_range(source)),
+        sample_information=information,
+        spread=math.sqrt(max(0.0, float(source.varentropy)) / n) if n else 0.0,
+        codec_version=codec.version,
+        encode_seconds=encode_seconds,
+        decode_seconds=decode_seconds,
+        source_family=str(source.family),
+        source_params=params,
+        alphabet_size=None if source.alphabet_size is None else int(source.alphabet_size),
+    )
+
+
+def _declared_range(source: Source) -> tuple[int, int] | None:
+    lo, hi = source.min_symbol, source.max_symbol
+    return None if lo is None or hi is None else (int(lo), int(hi))
+
+
+def _worst_codewords(codec: Codec, source: Source, count: int = 3) -> str:
+    """Lines naming the codewords that waste the most (codebooks only; best effort)."""
+    codebook = getattr(codec, "codebook", None)
+    if codebook is None:
+        return ""
+    try:
+        from pytest_ratefloor import codes
+
+        symbols, probs = source.pmf_table()
+        rows = [r for r in codes.excess_by_symbol(codebook, symbols, probs) if r[3] > 0][:count]
+    except Exception as exc:  # the message must not fail because of its garnish
+        return f"\n  (worst codewords unavailable: {type(exc).__name__}: {exc})"
+    if not rows:
+        return ""
+    lines = [
+        f"\n    symbol {int(s)}: p={float(p):.6g}, codeword length {int(ell)}, "
+        f"waste {float(w):+.6f} bits/symbol"
+        for s, p, ell, w in rows
+    ]
+    return "\n  codewords wasting the most (p·(ℓ + log2 p)):" + "".join(lines)
+
+
+def rate_verdict(
+    m: Measurement,
+    rel: float | None = None,
+    abs: float | None = None,
+    codec: Codec | None = None,
+    source: Source | None = None,
+) -> RateFloorFailure | None:
+    """The failure ``m`` deserves (``ImpossibleRate`` or ``RateFailure``), or ``None``.
+
+    Built, not raised, so that the harness can record the measurement first.
+    ``codec``/``source`` (optional) let a codebook's worst codewords be named.
+    """
+    rel_, abs_ = tolerance(rel, abs)
+    margin = impossible_margin(m.bits)
+    where = f"{m.source} (n={m.n}, seed={m.seed})"
+    if m.sample_information is not None and m.bits < m.sample_information - margin:
+        return ImpossibleRate(
+            f"codec {m.codec!r} reports an impossible length on {where}: {m.bits} bits, "
+            f"but the sample's self-information is {m.sample_information:.1f} bits\n"
+            f"  no decodable code falls {margin:.0f} bits below it except with probability "
+            f"2^-{IMPOSSIBLE_CONFIDENCE_BITS} (Kraft–McMillan; the decoder is told only n)\n"
+            "  the decoder must be getting information from outside the stream (shared "
+            "state, a side channel, the sample itself), or the bit count is wrong"
+        )
+    allowed_bits = m.floor_bits + max(rel_ * m.floor_bits, abs_ * m.n)
+    allowed_bits += _FLOAT_SLACK * max(1.0, math.fabs(m.floor_bits))
+    if m.bits <= allowed_bits:
+        return None
+    excess = m.rate - m.floor_rate
+    percent = f"{100.0 * excess / m.floor_rate:+.2f} %" if m.floor_rate > 0 else "n/a (floor 0)"
+    worst = _worst_codewords(codec, source) if codec is not None and source is not None else ""
+    meaning = FLOORS.get(cast(Floor, m.floor), "")
+    return RateFailure(
+        f"codec {m.codec!r} misses the {m.floor} floor on {where}\n"
+        f"  measured rate  {m.rate:.6f} bits/symbol ({m.bits} bits)\n"
+        f"  floor          {m.floor_rate:.6f} bits/symbol ({m.floor}: {meaning})\n"
+        f"  entropy        {m.entropy:.6f} bits/symbol\n"
+        f"  allowed        {allowed_bits / m.n:.6f} bits/symbol (rel={rel_:g}, abs={abs_:g})\n"
+        f"  excess         {excess:+.6f} bits/symbol ({percent} over the floor)\n"
+        f"  sample spread  ±{m.spread or 0.0:.6f} bits/symbol (√(V/n): the sampling noise of one "
+        "sample's information)" + worst
+    )

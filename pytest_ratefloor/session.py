@@ -1,0 +1,249 @@
+"""The plugin's run state: one :class:`GateSession` per pytest process.
+
+Built in ``pytest_configure`` and kept under one ``StashKey``
+(:data:`SESSION_KEY`); removed in ``pytest_unconfigure``. It holds the
+settings, the run's comparisons with the ledger, the xdist workers whose
+measurements were lost, the deselection count and, at the end, what the
+terminal summary prints. The hooks in :mod:`pytest_ratefloor.plugin` only
+call its methods.
+
+Under pytest-xdist each worker has its own session: it gates its own tests
+and ships its measurements home as plain records
+(:meth:`~pytest_ratefloor.verdicts.LedgerRun.payload`) in
+``config.workeroutput``; only the controller writes the ledger, the reports
+and the summary, and a worker that goes down without sending its payload
+fails the run.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import os
+import shlex
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import pytest
+
+from pytest_ratefloor import report
+from pytest_ratefloor.errors import NewerLedgerError, UnreadableLedgerError
+from pytest_ratefloor.ledger import UNREADABLE_SUFFIX, Ledger, keep_copy
+from pytest_ratefloor.measurement import Measurement
+from pytest_ratefloor.settings import Settings, marker_slack, read_settings
+from pytest_ratefloor.verdicts import Comparison, LedgerRun
+
+__all__ = ["PAYLOAD", "SESSION_KEY", "GateSession", "command_line_id", "is_worker"]
+
+#: Name of the worker payload in ``config.workeroutput``.
+PAYLOAD = "ratefloor"
+
+
+def is_worker(config: pytest.Config) -> bool:
+    """True in a pytest-xdist worker process."""
+    return hasattr(config, "workerinput")
+
+
+def command_line_id(item: pytest.Item) -> str:
+    """The test id as typed from the directory pytest was started in (what FAILED lines show).
+
+    ``item.nodeid`` is relative to the rootdir, which differs from the working
+    directory when a sub-project is run from above (``pytest example_project``).
+    """
+    path = os.path.relpath(item.path, item.config.invocation_params.dir)
+    _, _, rest = item.nodeid.partition("::")
+    posix = Path(path).as_posix()
+    return f"{posix}::{rest}" if rest else posix
+
+
+def _open_ledger(settings: Settings, hint: str) -> tuple[Ledger, str | None]:
+    """Load the ledger; ``pytest.UsageError`` for a ledger that cannot be used.
+
+    A corrupt ledger stops the run unless the user records, in which case it
+    is replaced (a copy is kept beside it); the second item then says why. A
+    newer-schema ledger always stops it.
+    """
+    try:
+        return Ledger.load(settings.ledger_path), None
+    except NewerLedgerError as exc:
+        raise pytest.UsageError(f"ratefloor: {exc}") from None
+    except UnreadableLedgerError as exc:
+        if not settings.record:
+            raise pytest.UsageError(
+                f"ratefloor: {exc}. The ledger was left untouched; restore it from version "
+                f"control, or replace it by recording ({hint}; the unreadable file is then "
+                f"kept as {settings.ledger_path.name}{UNREADABLE_SUFFIX})"
+            ) from None
+        return Ledger(path=settings.ledger_path), str(exc)
+
+
+@dataclass
+class GateSession:
+    """Everything the plugin knows about the current run, in one object."""
+
+    settings: Settings
+    run: LedgerRun
+    #: the ledger could not be read and --ratefloor-record will replace it (why)
+    replacing_unreadable: str | None = None
+    #: xdist workers whose measurements never arrived (controller only)
+    lost_workers: list[str] = field(default_factory=list)
+    #: items deselected in this process (-k, -m, --lf, other plugins)
+    deselected: int = 0
+    #: what the terminal summary prints, decided in :meth:`finish`
+    rows: list[Comparison] = field(default_factory=list)
+    outcome: report.RunOutcome | None = None
+
+    @classmethod
+    def start(cls, config: pytest.Config) -> GateSession:
+        """Read the settings and open the ledger (``pytest.UsageError`` when unusable)."""
+        settings = read_settings(config)
+        hint = "pytest --ratefloor-record"
+        if settings.ledger_from_cli:
+            hint += f" --ratefloor-ledger {shlex.quote(str(settings.ledger_path))}"
+        baseline, replacing = _open_ledger(settings, hint)
+        run = LedgerRun(baseline=baseline, slack=settings.slack, record=settings.record,
+                        record_hint=hint)
+        session = cls(settings=settings, run=run, replacing_unreadable=replacing)
+        if replacing and not is_worker(config):
+            config.issue_config_time_warning(
+                pytest.PytestWarning(
+                    f"ratefloor: {replacing}; --ratefloor-record replaces it "
+                    f"(a copy is kept as {settings.ledger_path.name}{UNREADABLE_SUFFIX})"
+                ),
+                stacklevel=2,
+            )
+        return session
+
+    # -- during the tests -----------------------------------------------------------
+
+    def gate_measurement(self, item: pytest.Item, m: Measurement) -> None:
+        """The fixture's ``on_measurement``: compare ``m`` with the ledger and enforce.
+
+        Adds the JUnit properties ``ratefloor.ledger_verdict``, ``ratefloor.ledger_bits``
+        and ``ratefloor.ledger_delta_bits`` (str/int) before a regression is raised.
+        """
+        __tracebackhide__ = True
+        comparison = self.run.observe(m, slack=marker_slack(item))
+        item.user_properties.append(("ratefloor.ledger_verdict", str(comparison.status)))
+        if comparison.ledger_bits is not None and comparison.delta_bits is not None:
+            item.user_properties.append(("ratefloor.ledger_bits", int(comparison.ledger_bits)))
+            item.user_properties.append(("ratefloor.ledger_delta_bits",
+                                         int(comparison.delta_bits)))
+        self.run.enforce(comparison, nodeid=command_line_id(item))
+
+    def worker_down(self, node: Any, error: object) -> None:
+        """xdist controller: take a finished worker's measurements, or note that they were lost."""
+        payload = getattr(node, "workeroutput", {}).get(PAYLOAD)
+        if error is not None or not isinstance(payload, dict):
+            self.lost_workers.append(str(node.gateway.id))
+            return
+        self.run.absorb(payload)
+
+    # -- at the end -------------------------------------------------------------------
+
+    def finish(self, session: pytest.Session, exitstatus: int) -> None:
+        """Workers ship their payload; the controller records, reports and sets the status."""
+        config = session.config
+        for reason in self._partial_reasons(session, exitstatus):
+            if reason not in self.run.partial_reasons:
+                self.run.partial_reasons.append(reason)
+        if is_worker(config):
+            config.workeroutput[PAYLOAD] = self.run.payload()  # type: ignore[attr-defined]
+            return
+        self.rows, self.outcome = self._write_outputs()
+        if self.outcome.problems and session.exitstatus == pytest.ExitCode.OK:
+            session.exitstatus = pytest.ExitCode.TESTS_FAILED
+
+    def summary_lines(self, verbosity: int) -> list[report.Line]:
+        """The terminal summary (empty when the run measured nothing and found nothing)."""
+        outcome = self.outcome
+        if outcome is None or (not self.rows and not outcome.stale and not outcome.problems):
+            return []
+        return report.summary_lines(self.rows, outcome, verbose=verbosity > 0,
+                                    quiet=verbosity < 0)
+
+    def _partial_reasons(self, session: pytest.Session, exitstatus: int) -> list[str]:
+        """Why this run may not have measured every case (stale entries are then not listed)."""
+        config = session.config
+        opt = config.option
+        reasons = []
+        if getattr(opt, "keyword", ""):
+            reasons.append("-k")
+        if getattr(opt, "markexpr", ""):
+            reasons.append("-m")
+        if getattr(opt, "lf", False) or getattr(opt, "stepwise", False):
+            reasons.append("--lf/--sw")
+        if self.deselected:
+            reasons.append(f"{self.deselected} deselected")
+        if any("::" in str(a) or os.path.isfile(str(a)) for a in config.args):
+            reasons.append("selected files or test ids")
+        if exitstatus == pytest.ExitCode.INTERRUPTED:
+            reasons.append("interrupted")
+        if exitstatus == pytest.ExitCode.NO_TESTS_COLLECTED:
+            reasons.append("no tests collected")
+        maxfail = int(getattr(opt, "maxfail", 0) or 0)
+        if session.shouldstop or session.shouldfail or (
+            maxfail and session.testsfailed >= maxfail
+        ):
+            reasons.append("stopped early")
+        if self.lost_workers:
+            reasons.append("xdist worker lost")
+        return reasons
+
+    def _write_outputs(self) -> tuple[list[Comparison], report.RunOutcome]:
+        """Controller (or single process): write the ledger if recording, then the reports.
+
+        ``outcome.problems`` non-empty means the run must fail.
+        """
+        settings, run = self.settings, self.run
+        problems: list[str] = []
+        if self.lost_workers:
+            problems.append(
+                f"xdist worker(s) {', '.join(self.lost_workers)} went down without sending "
+                "their measurements (crashed, or the payload was lost): ledger comparison and "
+                "reports are incomplete"
+            )
+        problems += list(dict.fromkeys(run.conflicts))
+        recorded = False
+        if settings.record:
+            if problems:
+                problems.append(f"ledger {settings.ledger_path} not written: the run's data is "
+                                "incomplete or inconsistent (see above); fix and record again")
+            elif run.comparisons or self.replacing_unreadable:
+                try:
+                    if self.replacing_unreadable and settings.ledger_path.exists():
+                        keep_copy(settings.ledger_path)
+                    run.recorded().write()
+                    recorded = True
+                except OSError as exc:
+                    problems.append(f"ledger {settings.ledger_path} not written: {exc}")
+        rows = run.sorted_comparisons()
+        outcome = report.RunOutcome(
+            ledger_path=settings.ledger_path, ledger_exists=run.baseline.exists or recorded,
+            slack=settings.slack, recorded=recorded, counts=run.counts(), stale=run.stale(),
+            partial_reasons=tuple(run.partial_reasons), problems=tuple(problems),
+        )
+        extra: list[str] = []
+        if settings.report_path is not None:
+            try:
+                report.write_report(settings.report_path, rows, outcome)
+            except OSError as exc:
+                extra.append(f"report {settings.report_path} not written: {exc}")
+        if rows:
+            try:
+                report.append_step_summary(report.markdown_report(rows, outcome))
+            except OSError as exc:
+                extra.append(f"GITHUB_STEP_SUMMARY not appended: {exc}")
+        if settings.plot_path is not None:
+            try:
+                report.write_plot(settings.plot_path, rows)
+            except Exception as exc:  # matplotlib raises many kinds; the run must not crash
+                extra.append(f"plot {settings.plot_path} not written: "
+                             f"{type(exc).__name__}: {exc}")
+        if extra:
+            outcome = dataclasses.replace(outcome, problems=(*problems, *extra))
+        return rows, outcome
+
+
+#: The one stash entry of the plugin.
+SESSION_KEY = pytest.StashKey[GateSession]()

@@ -1,0 +1,143 @@
+"""Reference sources of known entropy, sampled reproducibly: the factories.
+
+A codec is measured on samples of these sources: memoryless families with
+exact (closed-form or truncation-bounded) entropy, a finite stationary Markov
+chain whose entropy *rate* is known, and empirical sources fitted to the
+user's own data whose entropy is a plug-in *estimate*. This package module
+holds the factory functions (``uniform``, ``bernoulli``, …,
+``standard_suite``) and re-exports the source classes; each concern has its
+own module:
+
+=====================  ======================================================
+``base``               the :class:`Source` contract (spec, entropy, sampling,
+                       information, pmf table, the code lengths the floors ask
+                       for) and spec helpers
+``sampling``           raw PCG64 words to symbols: exact thresholds, inverse
+                       CDF with guide and alias tables, the geometric counter,
+                       chunked drawing (the sampling contract is stated there)
+``closed_form``        uniform, Bernoulli, geometric, two-sided geometric
+                       (closed-form entropy); :func:`binary_entropy`
+``summed``             Zipf, Poisson, categorical (entropy as a sum)
+``chains``             Markov chains and the chain sampler
+``empirical``          data-fitted order-k context models, :func:`from_file`
+=====================  ======================================================
+
+Entropies are exact closed forms where they exist (uniform, Bernoulli,
+geometric, two-sided geometric) and exact finite or truncation-bounded sums
+elsewhere. ``0 * log 0 = 0`` throughout. Empirical sources report an
+*estimate* (``is_estimate = True``): an entropy measured on one sample of
+data says nothing certain about other data from the same origin.
+"""
+
+from __future__ import annotations
+
+from numpy.typing import ArrayLike
+
+from pytest_ratefloor.sources.base import Source
+from pytest_ratefloor.sources.chains import Markov
+from pytest_ratefloor.sources.closed_form import (
+    Bernoulli,
+    Geometric,
+    TwoSidedGeometric,
+    Uniform,
+)
+from pytest_ratefloor.sources.closed_form import (
+    binary_entropy as binary_entropy,  # for the report's plot; not in __all__
+)
+from pytest_ratefloor.sources.empirical import Empirical, from_file
+from pytest_ratefloor.sources.summed import Categorical, Poisson, Zipf
+
+__all__ = [
+    "Bernoulli",
+    "Categorical",
+    "Empirical",
+    "Geometric",
+    "Markov",
+    "Poisson",
+    "Source",
+    "TwoSidedGeometric",
+    "Uniform",
+    "Zipf",
+    "bernoulli",
+    "categorical",
+    "empirical",
+    "from_file",
+    "geometric",
+    "markov",
+    "poisson",
+    "standard_suite",
+    "two_sided_geometric",
+    "uniform",
+    "zipf",
+]
+
+def uniform(k: int) -> Uniform:
+    """Symbols 0..k-1, equally likely (1 <= k <= 2**62)."""
+    return Uniform(k)
+
+
+def bernoulli(p: float) -> Bernoulli:
+    """Symbols {0, 1} with P(1) = p (0 <= p <= 1)."""
+    return Bernoulli(p)
+
+
+def geometric(p: float) -> Geometric:
+    """Symbols 0, 1, 2, ... with P(x) = (1-p)^x p."""
+    return Geometric(p)
+
+
+def two_sided_geometric(theta: float) -> TwoSidedGeometric:
+    """All integers, P(x) = (1-theta)/(1+theta) theta^|x|."""
+    return TwoSidedGeometric(theta)
+
+
+def zipf(k: int, s: float) -> Zipf:
+    """Symbols 0..k-1 with P(i) proportional to 1/(i+1)^s."""
+    return Zipf(k, s)
+
+
+def poisson(lam: float) -> Poisson:
+    """Symbols 0, 1, 2, ... with P(x) = e^-lam lam^x / x!."""
+    return Poisson(lam)
+
+
+def categorical(probs: ArrayLike, symbols: ArrayLike | None = None) -> Categorical:
+    """Any finite pmf; ``symbols`` default to 0..len(probs)-1."""
+    return Categorical(probs, symbols)
+
+
+def markov(transition: ArrayLike, initial: ArrayLike | None = None) -> Markov:
+    """A stationary finite-state Markov chain; its entropy is the entropy rate."""
+    return Markov(transition, initial)
+
+
+def empirical(data: ArrayLike | bytes, order: int = 0) -> Empirical:
+    """A source fitted to ``data`` (order-k context model); entropy is an estimate."""
+    return Empirical(data, order)
+
+
+def standard_suite() -> list[Source]:
+    """The default sources of ``gate()``: 13 memoryless sources, cheap at n = 100_000.
+
+    Uniform (a non-power-of-two and the byte alphabet), Bernoulli from
+    moderate to very skewed (p = 0.01: H ≈ 0.081 bits while any
+    symbol-by-symbol code needs >= 1 bit/symbol), geometric from dyadic
+    (p = 0.5, where unary coding meets the entropy) to long-tailed, and one
+    each of two-sided geometric, Zipf, Poisson and a dyadic categorical
+    (whose entropy a Huffman code meets exactly).
+    """
+    return [
+        uniform(10),
+        uniform(256),
+        bernoulli(0.3),
+        bernoulli(0.1),
+        bernoulli(0.01),
+        geometric(0.5),
+        geometric(0.2),
+        geometric(0.05),
+        geometric(0.01),
+        two_sided_geometric(0.8),
+        zipf(256, 1.1),
+        poisson(4.0),
+        categorical([0.5, 0.25, 0.125, 0.0625, 0.0625]),
+    ]

@@ -15,7 +15,7 @@ from __future__ import annotations
 import os
 from collections.abc import Callable
 from dataclasses import dataclass
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, TypedDict
 
 from pytest_ratefloor import validation
 from pytest_ratefloor.edge_cases import edge_case_inputs
@@ -36,6 +36,8 @@ from pytest_ratefloor.rate import (
 from pytest_ratefloor.roundtrip import RoundTrip, run_roundtrip
 
 if TYPE_CHECKING:
+    from typing_extensions import Unpack
+
     from pytest_ratefloor.sources import Source
 
 __all__ = [
@@ -45,6 +47,7 @@ __all__ = [
     "DEFAULT_REL",
     "IMPOSSIBLE_CONFIDENCE_BITS",
     "ROUNDTRIP_N",
+    "CheckOptions",
     "CheckPlan",
     "assert_rate",
     "assert_roundtrip",
@@ -70,6 +73,25 @@ CORRUPTION_N = 10_000
 
 #: Where damaged streams of a failed corruption check are saved (called only on failure).
 SaveDir = Callable[[], "str | os.PathLike[str] | None"]
+
+
+class CheckOptions(TypedDict, total=False):
+    """The keyword arguments every check takes; defaults and rules are :class:`CheckPlan`'s.
+
+    ``n``: symbols in the sample (default 100 000); ``seed``: the sample's
+    seed (0); ``floor``: the floor the rate is measured from (``"entropy"``);
+    ``rel``/``abs``: the tolerance over the floor (default ``rel=0.01``);
+    ``edge_cases``: also round-trip the edge cases (``True``); ``corruption``:
+    also feed the decoder damaged streams (``False``).
+    """
+
+    n: int
+    seed: int
+    floor: Floor
+    rel: float | None
+    abs: float | None
+    edge_cases: bool
+    corruption: bool
 
 
 @dataclass(frozen=True)
@@ -211,22 +233,16 @@ def assert_rate(
 def check(
     codec: Any,
     source: Source,
-    n: int = DEFAULT_N,
-    seed: int = 0,
-    floor: Floor = "entropy",
-    rel: float | None = None,
-    abs: float | None = None,
-    edge_cases: bool = True,
     on_measurement: Callable[[Measurement], None] | None = None,
-    corruption: bool = False,
+    **options: Unpack[CheckOptions],
 ) -> Measurement:
     """Round trip (with edge cases) and rate in one pass over one encoding of the sample.
 
-    See :func:`run_check` for ``on_measurement``; with ``corruption=True`` the
-    decoder must also survive damaged streams (on at most
-    :data:`CORRUPTION_N` symbols of the same sample).
+    ``options`` are the :class:`CheckOptions` (``n``, ``seed``, ``floor``,
+    ``rel``, ``abs``, ``edge_cases``, ``corruption``). See :func:`run_check`
+    for ``on_measurement``; with ``corruption=True`` the decoder must also
+    survive damaged streams (on at most :data:`CORRUPTION_N` symbols of the
+    same sample).
     """
     __tracebackhide__ = True
-    plan = CheckPlan(n=n, seed=seed, floor=floor, rel=rel, abs=abs, edge_cases=edge_cases,
-                     corruption=corruption)
-    return run_check(codec, source, plan, on_measurement)
+    return run_check(codec, source, CheckPlan(**options), on_measurement)

@@ -28,12 +28,14 @@ from typing import TYPE_CHECKING, Any
 import pytest
 
 from pytest_ratefloor import checks
-from pytest_ratefloor.checks import DEFAULT_N, CheckPlan, SaveDir
+from pytest_ratefloor.checks import DEFAULT_N, CheckOptions, CheckPlan, SaveDir
 from pytest_ratefloor.codecs import as_codec
 from pytest_ratefloor.floors import Floor
 from pytest_ratefloor.measurement import Measurement
 
 if TYPE_CHECKING:
+    from typing_extensions import Unpack
+
     from pytest_ratefloor.session import GateSession
     from pytest_ratefloor.sources import Source
 
@@ -104,30 +106,21 @@ class RateFloorHarness:
         return checks.run_check(codec, source, plan, on_measurement=self._record,
                                 save_dir=self._save_dir)
 
-    def check(
-        self,
-        codec: Any,
-        source: Source,
-        n: int = DEFAULT_N,
-        seed: int = 0,
-        floor: Floor = "entropy",
-        rel: float | None = None,
-        abs: float | None = None,
-        edge_cases: bool = True,
-        corruption: bool = False,
-    ) -> Measurement:
+    def check(self, codec: Any, source: Source, **options: Unpack[CheckOptions]) -> Measurement:
         """Round trip (sample and edge cases), rate within tolerance, recorded.
 
-        With ``corruption=True`` the decoder must then also survive damaged
-        streams of the same encoding (on at most 10 000 symbols of the sample;
-        see :func:`pytest_ratefloor.corruption.assert_survives_corruption` for
-        what counts as surviving; damaged streams of failures are saved in the
+        ``options`` are the :class:`~pytest_ratefloor.checks.CheckOptions`:
+        ``n`` (default 100 000), ``seed`` (0), ``floor`` (``"entropy"``),
+        ``rel``/``abs`` (default ``rel=0.01``), ``edge_cases`` (``True``) and
+        ``corruption`` (``False``). With ``corruption=True`` the decoder must
+        then also survive damaged streams of the same encoding (on at most
+        10 000 symbols of the sample; see
+        :func:`pytest_ratefloor.corruption.assert_survives_corruption` for what
+        counts as surviving; damaged streams of failures are saved in the
         test's ``tmp_path``). Returns the measurement.
         """
         __tracebackhide__ = True
-        plan = CheckPlan(n=n, seed=seed, floor=floor, rel=rel, abs=abs, edge_cases=edge_cases,
-                         corruption=corruption)
-        return self.run(codec, source, plan)
+        return self.run(codec, source, CheckPlan(**options))
 
     def measure(
         self,
@@ -147,12 +140,7 @@ class RateFloorHarness:
 def gate(
     codec: Any,
     sources: Iterable[Source] | None = None,
-    n: int = DEFAULT_N,
-    seed: int = 0,
-    floor: Floor = "entropy",
-    rel: float | None = None,
-    abs: float | None = None,
-    edge_cases: bool = True,
+    **options: Unpack[CheckOptions],
 ) -> Callable[..., None]:
     """A test function that checks ``codec`` on every source (default: the standard suite).
 
@@ -160,10 +148,12 @@ def gate(
 
         test_tide_codec = gate(codec, rel=0.02)
 
-    The arguments are checked now, so a typo fails at collection.
+    ``options`` are those of :meth:`RateFloorHarness.check`
+    (:class:`~pytest_ratefloor.checks.CheckOptions`). The arguments are
+    checked now, so a typo fails at collection.
     """
     as_codec(codec)
-    plan = CheckPlan(n=n, seed=seed, floor=floor, rel=rel, abs=abs, edge_cases=edge_cases)
+    plan = CheckPlan(**options)
     if sources is None:
         from pytest_ratefloor.sources import standard_suite
 

@@ -137,7 +137,7 @@ def test_arguments_are_checked() -> None:
         measure(zlib_codec(), sources.uniform(4), n=0)
     with pytest.raises(TypeError, match=r"seed must be an integer, got 1\.5"):
         assert_roundtrip(zlib_codec(), sources.uniform(4), seed=1.5)  # type: ignore[arg-type]
-    with pytest.raises(ValueError, match="floor must be one of 'entropy'.*got 'shanon'"):
+    with pytest.raises(ValueError, match=r"floor must be one of 'entropy'.*got 'shanon'"):
         assert_rate(zlib_codec(), sources.uniform(4), floor="shanon")
     with pytest.raises(TypeError, match=r"must be a pytest_ratefloor\.sources source, got list"):
         measure(zlib_codec(), [1, 2, 3])  # type: ignore[arg-type]

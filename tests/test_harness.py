@@ -160,7 +160,7 @@ def test_gate_builds_a_parametrized_test() -> None:
 
 
 def test_gate_checks_its_arguments_at_collection() -> None:
-    with pytest.raises(ValueError, match="floor must be one of .*got 'entropie'"):
+    with pytest.raises(ValueError, match=r"floor must be one of .*got 'entropie'"):
         gate(ZLIB, floor="entropie")
     with pytest.raises(ValueError, match=r"rel must be a finite number >= 0, got -1"):
         gate(ZLIB, rel=-1)

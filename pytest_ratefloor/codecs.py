@@ -198,6 +198,9 @@ class Codec(Protocol):
 
     name: str
     version: str | None
+    #: the symbols the codec has codewords for (a table), or ``None``: any symbol
+    #: of the source. Edge cases stay inside a table.
+    symbols: list[int] | None
 
     def encode(self, symbols: np.ndarray) -> Encoded:
         """Encode an int64 symbol array."""
@@ -387,6 +390,7 @@ class StreamCodec:
         self._decode = decode
         self.name = _check_name(name if name is not None else _callable_name(encode))
         self.version = _check_version(version)
+        self.symbols: list[int] | None = None
 
     def __repr__(self) -> str:
         return f"StreamCodec(name={self.name!r}, version={self.version!r})"
@@ -442,6 +446,7 @@ class ByteCodec:
         self._decompress = decompress
         self.name = _check_name(name if name is not None else _callable_name(compress))
         self.version = _check_version(version)
+        self.symbols: list[int] | None = None
         self.symbol = symbol
         # Set by for_source when the source's declared range fits the layout:
         # the source's samples then need no range scan.
@@ -517,10 +522,10 @@ class CodebookCodec:
         self.codebook = codebook
         self.name = _check_name(getattr(codebook, "name", None) or "codebook")
         self.version: str | None = getattr(codebook, "version", None)
-        self.symbols: list[int] = [int(s) for s in codebook.symbols]
+        self.symbols: list[int] | None = [int(s) for s in codebook.symbols]
 
     def __repr__(self) -> str:
-        return f"CodebookCodec(name={self.name!r}, symbols={len(self.symbols)})"
+        return f"CodebookCodec(name={self.name!r}, symbols={len(self.codebook)})"
 
     def encode(self, symbols: np.ndarray) -> Encoded:
         """Encode with the codebook; exact bits."""

@@ -225,7 +225,7 @@ def run_roundtrip(codec: Any, source: Source, n: int, seed: int, edge_cases: boo
     _check_contract(bound, sample, run)
     if edge_cases:
         for name, symbols in edge_case_inputs(
-            source, sample, seed, getattr(bound, "symbols", None)
+            source, sample, seed, bound.symbols
         ):
             _roundtrip_one(bound, symbols, run, name)
     return RoundTrip(bound, source, seed, sample, encoded, encode_seconds, decode_seconds)

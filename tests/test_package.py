@@ -104,3 +104,66 @@ def test_ci_runs_readme_test_command_verbatim() -> None:
         ["awk", awk.group(1), "README.md"], cwd=ROOT, capture_output=True, text=True, check=True
     )
     assert out.stdout.strip() == command
+
+
+USER_TEST_MODULE = '''\
+import zlib
+
+from pytest_ratefloor import ByteCodec, Floor, RateFloorHarness, sources
+
+
+def test_calm(ratefloor: RateFloorHarness) -> None:
+    codec = ByteCodec(zlib.compress, zlib.decompress, name="z")
+    floor: Floor = "huffman"
+    m = ratefloor.check(codec, sources.two_sided_geometric(0.8), n=1000, floor=floor)
+    reveal_type(m.efficiency)
+    reveal_type(sources.bernoulli(0.1).entropy)
+    ratefloor.check(codec, sources.uniform(4), floor="shannon")
+'''
+
+
+@pytest.mark.slow
+def test_mypy_sees_the_installed_package_types(tmp_path: Path) -> None:
+    # Install as a user does (a wheel built from this checkout, README "Use it in
+    # your project"), then type-check a user's test module against it: mypy finds
+    # the package through PEP 561 (py.typed) in the interpreter's site-packages.
+    import venv
+    import zipfile
+
+    checkout = tmp_path / "checkout"
+    checkout.mkdir()
+    for name in ("pyproject.toml", "README.md"):
+        (checkout / name).write_bytes((ROOT / name).read_bytes())
+    for path in (ROOT / "pytest_ratefloor").rglob("*"):
+        if path.is_file() and "__pycache__" not in path.parts:
+            target = checkout / path.relative_to(ROOT)
+            target.parent.mkdir(parents=True, exist_ok=True)
+            target.write_bytes(path.read_bytes())
+    wheels = tmp_path / "wheels"
+    subprocess.run([sys.executable, "-m", "pip", "wheel", "--no-deps", "-q", "-w", str(wheels),
+                    str(checkout)], check=True, capture_output=True)
+    env_dir = tmp_path / "userenv"
+    venv.create(env_dir, with_pip=False)
+    python = env_dir / "bin" / "python"
+    where = "import sysconfig; print(sysconfig.get_path('purelib'))"
+    site = subprocess.run([str(python), "-c", where], check=True, capture_output=True,
+                          text=True).stdout.strip()
+    (wheel,) = wheels.glob("*.whl")
+    names = zipfile.ZipFile(wheel).namelist()
+    for module in ("py.typed", "sources/__init__.py", "codes/__init__.py",
+                   "corruption/__init__.py"):
+        assert f"pytest_ratefloor/{module}" in names
+    zipfile.ZipFile(wheel).extractall(site)
+    user = tmp_path / "test_user.py"
+    user.write_text(USER_TEST_MODULE)
+    result = subprocess.run(
+        [sys.executable, "-m", "mypy", "--python-executable", str(python), "--no-incremental",
+         "--cache-dir", str(tmp_path / "cache"), "--no-error-summary", str(user)],
+        capture_output=True, text=True, cwd=tmp_path,
+    )
+    lines = result.stdout.splitlines()
+    assert any('Revealed type is "float"' in line and ":10:" in line for line in lines), lines
+    assert any('Revealed type is "float"' in line and ":11:" in line for line in lines), lines
+    (error,) = [line for line in lines if "error:" in line]
+    assert ":12:" in error
+    assert "Literal['shannon']" in error

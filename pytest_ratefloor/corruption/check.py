@@ -69,6 +69,18 @@ class _Settings:
     memory_limit: int | None
 
 
+@dataclass(frozen=True)
+class _Encoding:
+    """The encoding under damage: the bound codec, the sample, its encoding, and
+    how messages name the sample (``label``) and the schedule (``seed``)."""
+
+    codec: Codec
+    symbols: np.ndarray
+    encoded: Encoded
+    label: str
+    seed: int
+
+
 def _settings(
     trials: object, timeout: object, must_detect: object, memory_limit: object
 ) -> _Settings:
@@ -132,7 +144,7 @@ def assert_survives_corruption(
         bound = bound.for_source(cast("Source", source))
     symbols, label = _sample(source, n, seed)
     encoded = _encode_clean(bound, symbols)
-    return _survive(bound, symbols, encoded, label, seed, settings, save_dir)
+    return _survive(_Encoding(bound, symbols, encoded, label, seed), settings, save_dir)
 
 
 def survive_damage(
@@ -168,7 +180,7 @@ def survive_damage(
     seed = validation.seed(seed)
     settings = _settings(trials, timeout, must_detect, memory_limit)
     symbols = np.asarray(symbols, dtype=np.int64)
-    return _survive(codec, symbols, encoded, source, seed, settings, save_dir)
+    return _survive(_Encoding(codec, symbols, encoded, source, seed), settings, save_dir)
 
 
 def _sample(source: object, n: int, seed: int) -> tuple[np.ndarray, str]:
@@ -203,30 +215,20 @@ def _encode_clean(codec: Codec, symbols: np.ndarray) -> Encoded:
         ) from exc
 
 
-def _survive(
-    codec: Codec,
-    symbols: np.ndarray,
-    encoded: Encoded,
-    label: str,
-    seed: int,
-    settings: _Settings,
-    save_dir: SaveDir,
-) -> CorruptionRun:
+def _survive(target: _Encoding, settings: _Settings, save_dir: SaveDir) -> CorruptionRun:
     __tracebackhide__ = True
-    stream = encoded.stream
+    stream = target.encoded.stream
     run = run_trials(
-        CodecDecoder(codec),
-        encoded,
-        len(symbols),
-        corruption_schedule(len(stream), settings.trials, seed),
-        expected=symbols if settings.must_detect else None,
+        CodecDecoder(target.codec),
+        target.encoded,
+        len(target.symbols),
+        corruption_schedule(len(stream), settings.trials, target.seed),
+        expected=target.symbols if settings.must_detect else None,
         timeout=settings.timeout,
         memory_limit=settings.memory_limit,
     )
     if run.failures:
-        raise CorruptionFailure(
-            _failure_message(codec, symbols, encoded, label, seed, settings, run, save_dir)
-        )
+        raise CorruptionFailure(_failure_message(target, settings, run, save_dir))
     return run
 
 
@@ -238,16 +240,11 @@ def _size_text(size: int) -> str:
 
 
 def _failure_message(
-    codec: Codec,
-    symbols: np.ndarray,
-    encoded: Encoded,
-    label: str,
-    seed: int,
-    settings: _Settings,
-    run: CorruptionRun,
-    save_dir: SaveDir,
+    target: _Encoding, settings: _Settings, run: CorruptionRun, save_dir: SaveDir
 ) -> str:
     """The failure text, saving each failed trial's damaged stream on the way."""
+    codec, symbols, encoded = target.codec, target.symbols, target.encoded
+    label, seed = target.label, target.seed
     if callable(save_dir):
         save_dir = save_dir()
     if save_dir is None:

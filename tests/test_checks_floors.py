@@ -92,7 +92,7 @@ def test_kt_matches_mpmath_loggamma_at_scale() -> None:
 
 
 def test_kt_is_below_the_asymptotic_form_for_k_at_least_4() -> None:
-    # DESIGN.md: n·Ĥ + (k−1)/2·log2 n overshoots the exact KT length for k ≥ 4
+    # README, floors: n·Ĥ + (k−1)/2·log2 n overshoots the exact KT length for k ≥ 4
     # (the constant term is negative), so it would be a wrong floor.
     sample = np.random.default_rng(9).integers(0, 16, 20_000)
     counts = np.bincount(sample, minlength=16)

@@ -27,7 +27,7 @@ from pytest_ratefloor import validation
 from pytest_ratefloor.errors import CommandLineError, LedgerError
 from pytest_ratefloor.layouts import LAYOUTS
 from pytest_ratefloor.ledger import Ledger, entry_json
-from pytest_ratefloor.report import CAUTION, align, markdown_tables, md_cell, signed_pct
+from pytest_ratefloor.report import CAUTION, align, finite, markdown_tables, md_cell, signed_pct
 from pytest_ratefloor.verdicts import VERDICTS, Comparison, compare, counts_of, listed
 
 #: Layout of ``ratefloor show --format json``.
@@ -58,7 +58,7 @@ def show(ledger: Ledger, fmt: str) -> str:
             "ledger": str(ledger.path), "caution": CAUTION,
             "recorded_with": None if env is None else env.to_json(),
             "cases": [
-                {**entry_json(r.case), "efficiency": _finite(r.case.efficiency)} for r in rows
+                {**entry_json(r.case), "efficiency": finite(r.case.efficiency)} for r in rows
             ],
         }
         return json.dumps(doc, indent=2, sort_keys=True) + "\n"
@@ -71,10 +71,6 @@ def show(ledger: Ledger, fmt: str) -> str:
         return "\n".join([*head, "The ledger holds no case."]) + "\n"
     body = markdown_tables(rows, with_ledger=False)
     return "\n".join(head) + "\n" + body.rstrip("\n") + "\n"
-
-
-def _finite(value: float) -> float | None:
-    return value if math.isfinite(value) else None
 
 
 # -- diff ------------------------------------------------------------------------------
@@ -98,7 +94,7 @@ def _delta(line: Comparison) -> tuple[str, str]:
 
 def render_diff(old: Ledger, new: Ledger, lines: Sequence[Comparison], fmt: str) -> str:
     """A table of every case, then the count of each verdict (no average to hide behind)."""
-    counts = counts_of(list(lines))
+    counts = counts_of(lines)
     tally = ", ".join(f"{counts[s]} {s}" for s in VERDICTS)
     header = ["codec", "source", "n", "seed", "old bits", "new bits", "Δ bits", "Δ %", "verdict"]
     rows = []

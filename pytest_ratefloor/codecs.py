@@ -248,7 +248,7 @@ def _check_name(name: object, parameter: str = "name") -> str:
 
 def _check_version(version: object) -> str | None:
     if version is not None and not isinstance(version, str):
-        raise TypeError(f"codec version must be a string or None, got {validation.show(version)}")
+        raise TypeError(validation.message("codec version", "a string or None", version))
     return version
 
 

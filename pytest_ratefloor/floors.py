@@ -186,8 +186,6 @@ def huffman_expected_length(probs: ArrayLike) -> float:
     p = p[p > 0]
     if len(p) <= 1:
         return 0.0
-    if len(p) == 2:
-        return float(p[0] + p[1])  # two codewords of one bit
     from pytest_ratefloor import codes
 
     lengths = np.asarray(codes.huffman_lengths(p), dtype=np.float64)

@@ -272,7 +272,8 @@ def markdown_report(rows: Sequence[Comparison], outcome: RunOutcome, title: str 
 # -- JSON ------------------------------------------------------------------------------
 
 
-def _finite(value: float | None) -> float | None:
+def finite(value: float | None) -> float | None:
+    """``value`` for a JSON file: ``None`` for a missing or non-finite figure."""
     return None if value is None or not math.isfinite(value) else float(value)
 
 
@@ -282,14 +283,14 @@ def row_json(r: Comparison) -> dict[str, Any]:
     out: dict[str, Any] = {
         "codec": m.codec, "codec_version": m.codec_version, "source": m.source,
         "source_family": m.source_family, "source_params": dict(m.source_params),
-        "n": m.n, "seed": m.seed, "bits": m.bits, "rate": _finite(m.rate),
-        "entropy": _finite(m.entropy), "floor": m.floor, "floor_rate": _finite(m.floor_rate),
-        "efficiency": _finite(m.efficiency), "fingerprint": m.fingerprint,
-        "encode_seconds": _finite(m.encode_seconds), "decode_seconds": _finite(m.decode_seconds),
+        "n": m.n, "seed": m.seed, "bits": m.bits, "rate": finite(m.rate),
+        "entropy": finite(m.entropy), "floor": m.floor, "floor_rate": finite(m.floor_rate),
+        "efficiency": finite(m.efficiency), "fingerprint": m.fingerprint,
+        "encode_seconds": finite(m.encode_seconds), "decode_seconds": finite(m.decode_seconds),
     }
     if r.status is not None:
         out["ledger"] = {"status": r.status, "bits": r.ledger_bits, "delta_bits": r.delta_bits,
-                         "delta_pct": _finite(r.delta_pct)}
+                         "delta_pct": finite(r.delta_pct)}
     return out
 
 

@@ -15,7 +15,7 @@ from __future__ import annotations
 import contextlib
 import math
 import shlex
-from collections.abc import Mapping
+from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Literal, get_args
@@ -165,7 +165,7 @@ def listed(case: Measurement) -> Comparison:
     return Comparison(case.key, None, case, None)
 
 
-def counts_of(comparisons: list[Comparison] | tuple[Comparison, ...]) -> dict[str, int]:
+def counts_of(comparisons: Iterable[Comparison]) -> dict[str, int]:
     """Number of comparisons per verdict, every verdict present (zeros included)."""
     out: dict[str, int] = dict.fromkeys(VERDICTS, 0)
     for c in comparisons:
@@ -331,7 +331,7 @@ class LedgerRun:
 
     def counts(self) -> dict[str, int]:
         """Number of cases per verdict, plus ``stale``."""
-        out = counts_of(list(self.comparisons.values()))
+        out = counts_of(self.comparisons.values())
         out["stale"] = len(self.stale())
         return out
 

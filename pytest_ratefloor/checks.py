@@ -15,13 +15,14 @@ from __future__ import annotations
 import os
 from collections.abc import Callable
 from dataclasses import dataclass
-from typing import TYPE_CHECKING, Any, TypedDict
+from typing import TYPE_CHECKING, Any, TypedDict, TypeVar
 
-from pytest_ratefloor import validation
+from pytest_ratefloor import isolation, validation
+from pytest_ratefloor.codecs import as_codec
 from pytest_ratefloor.edge_cases import edge_case_inputs
 from pytest_ratefloor.errors import RateFloorFailure
 from pytest_ratefloor.floors import Floor, check_floor
-from pytest_ratefloor.measurement import Measurement, sample_fingerprint
+from pytest_ratefloor.measurement import CaseKey, Measurement, sample_fingerprint
 from pytest_ratefloor.rate import (
     DEFAULT_ABS,
     DEFAULT_REL,
@@ -71,6 +72,8 @@ ROUNDTRIP_N = 10_000
 #: (capped: each damaged stream is decoded in a worker process).
 CORRUPTION_N = 10_000
 
+_T = TypeVar("_T")
+
 #: Where damaged streams of a failed corruption check are saved (called only on failure).
 SaveDir = Callable[[], "str | os.PathLike[str] | None"]
 
@@ -82,7 +85,9 @@ class CheckOptions(TypedDict, total=False):
     seed (0); ``floor``: the floor the rate is measured from (``"entropy"``);
     ``rel``/``abs``: the tolerance over the floor (default ``rel=0.01``);
     ``edge_cases``: also round-trip the edge cases (``True``); ``corruption``:
-    also feed the decoder damaged streams (``False``).
+    also feed the decoder damaged streams (``False``); ``isolate``: run the
+    codec in a forked child so that it cannot end or stall the test session
+    (default: on where ``fork`` is safe; see :mod:`pytest_ratefloor.isolation`).
     """
 
     n: int
@@ -92,6 +97,7 @@ class CheckOptions(TypedDict, total=False):
     abs: float | None
     edge_cases: bool
     corruption: bool
+    isolate: bool | None
 
 
 @dataclass(frozen=True)
@@ -101,8 +107,10 @@ class CheckPlan:
     ``n`` (integer >= 1), ``seed`` (integer >= 0), ``floor`` (one of
     :data:`~pytest_ratefloor.floors.FLOORS`), ``rel``/``abs`` (the tolerance,
     see :mod:`pytest_ratefloor.rate`), ``edge_cases`` and ``corruption``
-    (``bool``). A wrong type raises ``TypeError``, a bad value ``ValueError``,
-    each naming the argument and the value.
+    (``bool``), ``isolate`` (``bool``, or ``None``: the run's setting,
+    ini ``ratefloor_isolate``, on by default). A wrong type raises
+    ``TypeError``, a bad value ``ValueError``, each naming the argument and
+    the value.
     """
 
     n: int = DEFAULT_N
@@ -112,6 +120,7 @@ class CheckPlan:
     abs: float | None = None
     edge_cases: bool = True
     corruption: bool = False
+    isolate: bool | None = None
 
     def __post_init__(self) -> None:
         setattr_ = object.__setattr__
@@ -121,6 +130,13 @@ class CheckPlan:
         tolerance(self.rel, self.abs)
         setattr_(self, "edge_cases", validation.flag(self.edge_cases, "edge_cases"))
         setattr_(self, "corruption", validation.flag(self.corruption, "corruption"))
+        if self.isolate is not None:
+            setattr_(self, "isolate", validation.flag(self.isolate, "isolate"))
+
+    @property
+    def isolated(self) -> bool:
+        """Whether the codec runs in a child process (``None`` means yes)."""
+        return self.isolate is not False
 
 
 def _check_source(source: object) -> None:
@@ -134,11 +150,12 @@ def _check_source(source: object) -> None:
 
 def _roundtrip(codec: Any, source: Source, plan: CheckPlan) -> RoundTrip:
     __tracebackhide__ = True
-    _check_source(source)
+    isolation.step("running the round trip (encoding, decoding, edge cases)")
     return run_roundtrip(codec, source, plan.n, plan.seed, plan.edge_cases)
 
 
 def _measurement(trip: RoundTrip, plan: CheckPlan) -> Measurement:
+    isolation.step("measuring the rate")
     return measurement_of(trip.codec, trip.source, trip.sample, plan.seed, trip.encoded,
                           plan.floor, trip.encode_seconds, trip.decode_seconds)
 
@@ -148,9 +165,22 @@ def _survive_damage(trip: RoundTrip, save_dir: SaveDir | None) -> None:
     __tracebackhide__ = True
     from pytest_ratefloor.corruption import survive_damage
 
+    isolation.step("feeding damaged streams to the decoder")
     sample, encoded = trip.prefix(CORRUPTION_N)  # a prefix of the one sample, not a re-draw
     survive_damage(trip.codec, sample, encoded, source=trip.source.spec, seed=trip.seed,
                    save_dir=save_dir)
+
+
+def _case(codec: Any, source: Source, plan: CheckPlan) -> str:
+    """The case in messages about the codec's process (checked before any work)."""
+    _check_source(source)
+    return CaseKey(as_codec(codec).name, source.spec, plan.n, plan.seed).phrase
+
+
+def _guarded(work: Callable[[], _T], codec: Any, source: Source, plan: CheckPlan) -> _T:
+    """Run the codec-facing ``work`` where the codec cannot end or stall the session."""
+    __tracebackhide__ = True
+    return isolation.guarded(work, case=_case(codec, source, plan), isolate=plan.isolated)
 
 
 def run_check(
@@ -162,15 +192,30 @@ def run_check(
 ) -> Measurement:
     """Round trip (with edge cases), rate and (if planned) damaged streams on one encoding.
 
-    ``on_measurement(m)`` is called once the measurement exists, before a
-    rate failure is raised. If it raises a failure itself (e.g. a ledger
-    regression) and the rate also fails, the rate failure is raised with the
-    other message appended.
+    The codec runs under :func:`pytest_ratefloor.isolation.guarded` (in a
+    child process unless ``plan.isolate`` is ``False``); ``on_measurement(m)``
+    runs here, once the measurement exists, before a rate failure is raised.
+    If it raises a failure itself (e.g. a ledger regression) and the rate
+    also fails, the rate failure is raised with the other message appended.
+    The damaged-stream check runs only when the rate passed; its failure is
+    raised after the ledger had its say.
     """
     __tracebackhide__ = True
-    trip = _roundtrip(codec, source, plan)
-    m = _measurement(trip, plan)
-    failure = rate_verdict(m, plan.rel, plan.abs, codec=trip.codec, source=source)
+
+    def work() -> tuple[Measurement, RateFloorFailure | None, RateFloorFailure | None]:
+        __tracebackhide__ = True
+        trip = _roundtrip(codec, source, plan)
+        m = _measurement(trip, plan)
+        failure = rate_verdict(m, plan.rel, plan.abs, codec=trip.codec, source=source)
+        damage = None
+        if plan.corruption and failure is None:
+            try:
+                _survive_damage(trip, save_dir)
+            except RateFloorFailure as exc:
+                damage = exc
+        return m, failure, damage
+
+    m, failure, damage = _guarded(work, codec, source, plan)
     if on_measurement is not None:
         try:
             on_measurement(m)
@@ -180,13 +225,14 @@ def run_check(
             raise type(failure)(f"{failure}\n  also: {other}") from other
     if failure is not None:
         raise failure
-    if plan.corruption:
-        _survive_damage(trip, save_dir)
+    if damage is not None:
+        raise damage
     return m
 
 
 def measure(
-    codec: Any, source: Source, n: int = DEFAULT_N, seed: int = 0, floor: Floor = "entropy"
+    codec: Any, source: Source, n: int = DEFAULT_N, seed: int = 0, floor: Floor = "entropy",
+    isolate: bool | None = None,
 ) -> Measurement:
     """Encode ``n`` symbols of ``source`` once and measure the length against ``floor``.
 
@@ -195,12 +241,14 @@ def measure(
     a short slice; no tolerance is applied and no edge cases are run.
     """
     __tracebackhide__ = True
-    plan = CheckPlan(n=n, seed=seed, floor=floor, edge_cases=False)
-    return _measurement(_roundtrip(codec, source, plan), plan)
+    plan = CheckPlan(n=n, seed=seed, floor=floor, edge_cases=False, isolate=isolate)
+    return _guarded(lambda: _measurement(_roundtrip(codec, source, plan), plan),
+                    codec, source, plan)
 
 
 def assert_roundtrip(
-    codec: Any, source: Source, n: int = ROUNDTRIP_N, seed: int = 0, edge_cases: bool = True
+    codec: Any, source: Source, n: int = ROUNDTRIP_N, seed: int = 0, edge_cases: bool = True,
+    isolate: bool | None = None,
 ) -> None:
     """Every input decodes back exactly: the sample and (by default) the edge cases.
 
@@ -208,7 +256,13 @@ def assert_roundtrip(
     mutation, determinism); see :func:`edge_case_inputs` for the cases.
     """
     __tracebackhide__ = True
-    _roundtrip(codec, source, CheckPlan(n=n, seed=seed, edge_cases=edge_cases))
+    plan = CheckPlan(n=n, seed=seed, edge_cases=edge_cases, isolate=isolate)
+
+    def work() -> None:  # the round trip itself stays in the child: only failures come back
+        __tracebackhide__ = True
+        _roundtrip(codec, source, plan)
+
+    _guarded(work, codec, source, plan)
 
 
 def assert_rate(
@@ -219,6 +273,7 @@ def assert_rate(
     floor: Floor = "entropy",
     rel: float | None = None,
     abs: float | None = None,
+    isolate: bool | None = None,
 ) -> Measurement:
     """The measured rate is within the tolerance of ``floor`` and is not impossibly low.
 
@@ -226,7 +281,8 @@ def assert_rate(
     tolerance and :func:`impossible_margin` for the impossible-rate rule.
     """
     __tracebackhide__ = True
-    plan = CheckPlan(n=n, seed=seed, floor=floor, rel=rel, abs=abs, edge_cases=False)
+    plan = CheckPlan(n=n, seed=seed, floor=floor, rel=rel, abs=abs, edge_cases=False,
+                     isolate=isolate)
     return run_check(codec, source, plan)
 
 

@@ -3,12 +3,27 @@
 ::
 
     ratefloor show LEDGER [--format md|json]
-    ratefloor diff OLD NEW [--slack REL] [--format text|md]
+    ratefloor diff OLD NEW [--slack REL] [--format text|md] [--allow-dropped]
     ratefloor entropy FILE... [--symbol LAYOUT] [--order K]
 
-Exit status: 0 on success; ``diff`` exits 1 when any case regressed (needs more
-bits than in OLD, beyond ``--slack``), so it can gate a release job; 2 for any
-error (missing file, corrupt ledger, bad argument), reported as one line on stderr.
+Exit status:
+
+- 0: success. For ``diff``: no case regressed (needs more bits than in OLD,
+  beyond ``--slack``), none was resampled (measured on another sample, so not
+  comparable) and none was dropped (in OLD, not in NEW); ``--allow-dropped``
+  accepts dropped cases, which are still listed.
+- 1: ``diff`` only: a case regressed, was resampled, or was dropped without
+  ``--allow-dropped``. The last line of the output says which, so the command
+  can gate a release job.
+- 2: any error, reported as exactly one line on stderr: a ledger that is
+  missing, a directory or another non-regular file, corrupt, or rejected by
+  :meth:`~pytest_ratefloor.ledger.Ledger.load` for any reason (the line names
+  the file), an unreadable data file, a bad argument.
+
+Codec names, source specs and paths are shown through
+:func:`~pytest_ratefloor.report.terminal_text` (text) and
+:func:`~pytest_ratefloor.report.markdown_text` (Markdown); the JSON listing
+keeps them raw and never holds NaN or Infinity.
 """
 
 from __future__ import annotations
@@ -27,29 +42,83 @@ from pytest_ratefloor import validation
 from pytest_ratefloor.errors import CommandLineError, LedgerError
 from pytest_ratefloor.layouts import LAYOUTS
 from pytest_ratefloor.ledger import Ledger, entry_json
-from pytest_ratefloor.report import CAUTION, align, finite, markdown_tables, md_cell, signed_pct
+from pytest_ratefloor.report import (
+    CAUTION,
+    align,
+    finite,
+    json_safe,
+    markdown_tables,
+    markdown_text,
+    md_name,
+    signed_pct,
+    terminal_text,
+)
 from pytest_ratefloor.verdicts import VERDICTS, Comparison, compare, counts_of, listed
 
 #: Layout of ``ratefloor show --format json``.
 SHOW_SCHEMA_VERSION = 1
 
 
+def _unreadable(path: str, message: str) -> CommandLineError:
+    """The one-line error for a ledger that cannot be used; it always names the file."""
+    text = message.strip() or "cannot be read"
+    if path not in text and str(Path(path)) not in text:
+        text = f"{path}: {text}"
+    return CommandLineError(text)
+
+
+def _check_figures(ledger: Ledger, path: str) -> None:
+    """Every figure a listing or a diff shows can be computed (no overflow on display)."""
+    for key, case in ledger.entries.items():
+        try:
+            # float() of an int too large for a double raises; so do the derived figures
+            figures = (float(case.bits), float(case.n), case.rate, case.floor_rate,
+                       case.efficiency, case.excess)
+            for value in figures:
+                format(value, ".4f")
+            for number in (case.bits, case.n, case.seed):
+                format(number, ",")  # ValueError past Python's int-to-text digit limit
+        except (OverflowError, ValueError) as exc:
+            raise _unreadable(
+                path, f"case {key.label!r} holds figures out of range ({exc})"
+            ) from None
+
 
 def _load(path: str) -> Ledger:
+    """Read a ledger for a command; :class:`CommandLineError` (one line) when it is unusable.
+
+    Anything :meth:`Ledger.load` rejects is an error here too, and so is a path
+    that is missing, a directory or another non-regular file (a FIFO would block).
+    """
     p = Path(path)
     if not p.exists():
         raise CommandLineError(f"{path}: no such file")
+    if p.is_dir():
+        raise CommandLineError(f"{path}: is a directory, not a ledger file")
+    if not p.is_file():
+        raise CommandLineError(f"{path}: not a regular file")
     try:
-        return Ledger.load(p)
+        ledger = Ledger.load(p)
     except LedgerError as exc:
-        raise CommandLineError(str(exc)) from None
+        raise _unreadable(path, str(exc)) from None
+    # a loader that fails in an unforeseen way must still give one line, not a traceback
+    except (ValueError, OverflowError, RecursionError, MemoryError) as exc:
+        raise _unreadable(path, f"not a readable ledger ({type(exc).__name__}: {exc})") from None
+    if not ledger.exists:  # removed between the checks and the read
+        raise CommandLineError(f"{path}: no such file")
+    _check_figures(ledger, path)
+    return ledger
 
 
 # -- show ------------------------------------------------------------------------------
 
 
 def show(ledger: Ledger, fmt: str) -> str:
-    """The ledger as release-notes Markdown or as versioned JSON."""
+    """The ledger as release-notes Markdown or as versioned JSON.
+
+    The JSON keeps strings raw (``json.dumps`` escapes them) and writes ``null``
+    for a figure that is not finite.
+    """
     rows = [listed(ledger.entries[k]) for k in sorted(ledger.entries)]
     if fmt == "json":
         env = ledger.environment
@@ -61,12 +130,13 @@ def show(ledger: Ledger, fmt: str) -> str:
                 {**entry_json(r.case), "efficiency": finite(r.case.efficiency)} for r in rows
             ],
         }
-        return json.dumps(doc, indent=2, sort_keys=True) + "\n"
-    head = [f"## Rate ledger `{ledger.path.name}`", "", f"> {CAUTION}", ""]
+        return json.dumps(json_safe(doc), indent=2, sort_keys=True, allow_nan=False) + "\n"
+    head = [f"## Rate ledger {md_name(ledger.path.name)}", "", f"> {CAUTION}", ""]
     if ledger.environment is not None:
         env = ledger.environment
-        head += [f"Recorded with pytest-ratefloor {env.plugin}, numpy {env.numpy}, "
-                 f"Python {env.python} on {env.platform}.", ""]
+        head += [f"Recorded with pytest-ratefloor {markdown_text(env.plugin)}, "
+                 f"numpy {markdown_text(env.numpy)}, Python {markdown_text(env.python)} "
+                 f"on {markdown_text(env.platform)}.", ""]
     if not rows:
         return "\n".join([*head, "The ledger holds no case."]) + "\n"
     body = markdown_tables(rows, with_ledger=False)
@@ -92,10 +162,35 @@ def _delta(line: Comparison) -> tuple[str, str]:
     return f"{line.delta_bits:+,}", signed_pct(line.delta_pct)
 
 
-def render_diff(old: Ledger, new: Ledger, lines: Sequence[Comparison], fmt: str) -> str:
-    """A table of every case, then the count of each verdict (no average to hide behind)."""
+def diff_outcome(lines: Sequence[Comparison], allow_dropped: bool = False) -> tuple[int, str]:
+    """The exit status of ``ratefloor diff`` and the line that says why.
+
+    1 when a case has a verdict the gate fails on (regressed, resampled: see
+    :data:`~pytest_ratefloor.verdicts.VERDICTS`) or was dropped (unless
+    ``allow_dropped``); else 0.
+    """
+    counts = counts_of(lines)
+    failing = [f"{counts[name]} {name}" for name, kind in VERDICTS.items()
+               if kind.fails and counts[name]]
+    dropped = counts["dropped"]
+    if dropped and not allow_dropped:
+        failing.append(f"{dropped} dropped (--allow-dropped accepts dropped cases)")
+    if failing:
+        return 1, "FAILED: " + ", ".join(failing)
+    accepted = f"; {dropped} dropped, accepted by --allow-dropped" if dropped else ""
+    what = "regressed or was resampled" if allow_dropped else "regressed, was resampled or dropped"
+    return 0, f"OK: no case {what}{accepted}"
+
+
+def render_diff(old: Ledger, new: Ledger, lines: Sequence[Comparison], fmt: str,
+                allow_dropped: bool = False) -> str:
+    """A table of every case, the count of each verdict (no average to hide behind), the result.
+
+    The last line is the result of :func:`diff_outcome`: ``OK: ...`` or ``FAILED: ...``.
+    """
     counts = counts_of(lines)
     tally = ", ".join(f"{counts[s]} {s}" for s in VERDICTS)
+    _, result = diff_outcome(lines, allow_dropped)
     header = ["codec", "source", "n", "seed", "old bits", "new bits", "Δ bits", "Δ %", "verdict"]
     rows = []
     for line in lines:
@@ -104,17 +199,21 @@ def render_diff(old: Ledger, new: Ledger, lines: Sequence[Comparison], fmt: str)
         rows.append([codec, source, str(n), str(seed), _bits(line.ledger_bits),
                      _bits(new_bits), *_delta(line), str(line.status)])
     if fmt == "md":
-        out = [f"## Rate ledger changes: `{old.path.name}` → `{new.path.name}`", "",
-               f"**{tally}**", ""]
+        out = [f"## Rate ledger changes: {md_name(old.path.name)} → {md_name(new.path.name)}",
+               "", f"**{tally}**", ""]
         if rows:
             out += ["| " + " | ".join(header) + " |",
                     "| " + " | ".join(["---", "---", "---:", "---:", "---:", "---:", "---:",
                                        "---:", "---"]) + " |"]
-            out += ["| " + " | ".join(md_cell(c) for c in r) + " |" for r in rows]
+            # codec and source are the user's text; the other cells are figures and verdicts
+            out += ["| " + " | ".join([md_name(r[0]), md_name(r[1]), *r[2:]]) + " |"
+                    for r in rows]
+            out.append("")
+        out.append(f"**{result}**")
         return "\n".join(out) + "\n"
-    table = [header, *rows]
-    text = [f"ratefloor diff: {old.path} -> {new.path}", *align(table, {2, 3, 4, 5, 6, 7}),
-            f"cases: {tally}"]
+    table = [header, *([terminal_text(c) for c in r] for r in rows)]
+    text = [f"ratefloor diff: {terminal_text(str(old.path))} -> {terminal_text(str(new.path))}",
+            *align(table, {2, 3, 4, 5, 6, 7}), f"cases: {tally}", result]
     return "\n".join(text) + "\n"
 
 
@@ -182,7 +281,8 @@ def render_entropy(f: EntropyFigures) -> str:
         return f"{8.0 * nbytes / n:.4f} bits/symbol" if n else "–"
 
     lines = [
-        f"{f.path}: {f.size:,} bytes = {n:,} symbols (layout {f.symbol}), {f.distinct:,} distinct",
+        f"{terminal_text(str(f.path))}: {f.size:,} bytes = {n:,} symbols "
+        f"(layout {f.symbol}), {f.distinct:,} distinct",
         f"  order-0 entropy (estimate):  {f.h0:.4f} bits/symbol -> floor "
         f"{EntropyFigures.floor_bytes(f.h0, n):,} bytes",
     ]
@@ -222,12 +322,17 @@ def build_parser() -> argparse.ArgumentParser:
     p_show = sub.add_parser("show", help="print a ledger as a release-notes table")
     p_show.add_argument("ledger", metavar="LEDGER")
     p_show.add_argument("--format", choices=("md", "json"), default="md")
-    p_diff = sub.add_parser("diff", help="compare two ledgers case by case (exit 1: regressed)")
+    p_diff = sub.add_parser(
+        "diff", help="compare two ledgers case by case (exit 1: regressed, resampled or dropped)"
+    )
     p_diff.add_argument("old", metavar="OLD")
     p_diff.add_argument("new", metavar="NEW")
     p_diff.add_argument("--slack", default="0", metavar="REL",
                         help="relative increase in bits not counted as a regression (default 0)")
     p_diff.add_argument("--format", choices=("text", "md"), default="text")
+    p_diff.add_argument("--allow-dropped", action="store_true",
+                        help="cases in OLD but not in NEW do not fail the diff "
+                             "(they are still listed)")
     p_ent = sub.add_parser("entropy", help="empirical entropy of files, with zlib/lzma sizes")
     p_ent.add_argument("files", nargs="+", metavar="FILE")
     p_ent.add_argument("--symbol", choices=tuple(LAYOUTS), default="u8",
@@ -248,8 +353,9 @@ def _run(args: argparse.Namespace) -> int:
             raise CommandLineError(str(exc)) from None
         old, new = _load(args.old), _load(args.new)
         lines = diff(old, new, slack)
-        sys.stdout.write(render_diff(old, new, lines, args.format))
-        return 1 if counts_of(lines)["regressed"] else 0
+        sys.stdout.write(render_diff(old, new, lines, args.format, args.allow_dropped))
+        status, _ = diff_outcome(lines, args.allow_dropped)
+        return status
     if args.command == "entropy":
         if args.order < 0:
             raise CommandLineError(f"--order: must be >= 0, got {args.order}")
@@ -271,11 +377,16 @@ def main(argv: Sequence[str] | None = None) -> int:
     try:
         return _run(args)
     except CommandLineError as exc:
-        print(f"ratefloor: error: {exc}", file=sys.stderr)
+        _error(str(exc))
         return 2
     except OSError as exc:
-        print(f"ratefloor: error: {exc.filename or ''}: {exc.strerror or exc}", file=sys.stderr)
+        _error(f"{exc.filename or ''}: {exc.strerror or exc}")
         return 2
+
+
+def _error(message: str) -> None:
+    """Print one line on stderr (control characters and newlines shown escaped)."""
+    print(f"ratefloor: error: {terminal_text(message)}", file=sys.stderr)
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -34,8 +34,9 @@ Replaying damaged streams (what the corruption check needs from a codec):
 :attr:`Encoded.stream` is the payload as bytes, :attr:`Encoded.shape` (a
 :class:`PayloadShape`) turns damaged bytes back into a payload of the shape
 the encoder returned and serialises that shape for a replay file, and every
-adapter's ``replay_statement`` writes the line that feeds a saved payload to
-its own decoder.
+adapter's ``replay_call`` says which of the user's objects its decoder is and
+how it is called (a :class:`ReplayCall`); :mod:`pytest_ratefloor.corruption.replay`
+finds a name for that object and writes the line.
 """
 
 from __future__ import annotations
@@ -64,6 +65,7 @@ __all__ = [
     "LayoutError",
     "PayloadKind",
     "PayloadShape",
+    "ReplayCall",
     "StreamCodec",
     "as_codec",
     "encoded_from_stream",
@@ -214,10 +216,36 @@ class Codec(Protocol):
         """The codec as used on ``source`` (resolves source-dependent settings)."""
         ...
 
-    def replay_statement(self, payload: str, n: int) -> str:
-        """A line of Python that decodes ``payload`` (the text of an expression
-        giving a payload of the encoder's shape) with this codec's own decoder."""
+    def replay_call(self, payload: str, n: int) -> ReplayCall:
+        """How this codec's own decoder is called on ``payload`` (the text of an
+        expression giving a payload of the encoder's shape)."""
         ...
+
+
+@dataclass(frozen=True)
+class ReplayCall:
+    """The call that decodes a saved payload, for a replay line.
+
+    ``target`` is the user's own object: the decoder function, the decompressor,
+    or the codebook; ``method`` the method called on it (``"decode"`` for a
+    codebook), or ``None`` when ``target`` itself is called; ``args`` the text of
+    the arguments; ``role`` the variable name a replay uses when the object has
+    no name it can reach (``decode``, ``decompress``, ``codebook``). ``rebuild``
+    is an expression that makes an equal object from scratch (with the imports
+    in ``imports``), when the adapter knows one, e.g. a small codebook's table.
+    """
+
+    target: object
+    args: str
+    role: str
+    method: str | None = None
+    rebuild: str | None = None
+    imports: tuple[str, ...] = ()
+
+    def call(self, name: str) -> str:
+        """The call on the object named by the expression ``name``."""
+        attribute = f".{self.method}" if self.method else ""
+        return f"{name}{attribute}({self.args})"
 
 
 def _type_name(value: object) -> str:
@@ -230,16 +258,6 @@ def _callable_name(fn: Callable[..., Any]) -> str:
     if qual is None:
         return _type_name(fn)
     return f"{module}.{qual}" if module and module != "builtins" else str(qual)
-
-
-def _call_text(fn: object, fallback: str, args: str) -> str:
-    """``import module; module.name(args)`` for a function importable by its
-    module path, else ``fallback(args)``."""
-    module = getattr(fn, "__module__", None)
-    qual = getattr(fn, "__qualname__", None)
-    if module and qual and "<" not in qual and module not in ("__main__", "builtins"):
-        return f"import {module}; {module}.{qual}({args})"
-    return f"{fallback}({args})"
 
 
 def _check_name(name: object, parameter: str = "name") -> str:
@@ -407,9 +425,9 @@ class StreamCodec:
         """Nothing to resolve: the same codec."""
         return self
 
-    def replay_statement(self, payload: str, n: int) -> str:
-        """``decode(payload, n)``, the decoder imported by its module path where possible."""
-        return _call_text(self._decode, "decode", f"{payload}, {n}")
+    def replay_call(self, payload: str, n: int) -> ReplayCall:
+        """The user's ``decode(payload, n)``."""
+        return ReplayCall(self._decode, f"{payload}, {n}", role="decode")
 
 
 class ByteCodec:
@@ -504,9 +522,14 @@ class ByteCodec:
             )
         return unpack(raw, n, layout)
 
-    def replay_statement(self, payload: str, n: int) -> str:
-        """``decompress(payload)``, imported by its module path where possible."""
-        return _call_text(self._decompress, "decompress", payload)
+    def replay_call(self, payload: str, n: int) -> ReplayCall:
+        """The user's ``decompress(payload)`` (the step that meets the damage)."""
+        return ReplayCall(self._decompress, payload, role="decompress")
+
+
+#: A codebook of at most this many codewords is written out in full in a replay
+#: line when it has no name the line can use (a longer table would bury the line).
+REPLAY_TABLE_MAX = 32
 
 
 class CodebookCodec:
@@ -542,9 +565,22 @@ class CodebookCodec:
         """Nothing to resolve: the same codec."""
         return self
 
-    def replay_statement(self, payload: str, n: int) -> str:
-        """``codebook.decode(payload, n)``."""
-        return f"codebook.decode({payload}, {n})"
+    def replay_call(self, payload: str, n: int) -> ReplayCall:
+        """``codebook.decode(payload, n)``; a table of up to :data:`REPLAY_TABLE_MAX`
+        codewords can also be rebuilt from its text."""
+        book = self.codebook
+        rebuild = None
+        if len(book) <= REPLAY_TABLE_MAX and hasattr(book, "word"):
+            table = ", ".join(f"{s}: {book.word(s)!r}" for s in book.symbols)
+            rebuild = f"Codebook({{{table}}}, name={self.name!r})"
+        return ReplayCall(
+            book,
+            f"{payload}, {n}",
+            role="codebook",
+            method="decode",
+            rebuild=rebuild,
+            imports=("from pytest_ratefloor.codes import Codebook",),
+        )
 
 
 def _is_codebook(obj: object) -> bool:

@@ -29,6 +29,7 @@ __all__ = [
     "CodeShapeFailure",
     "CodecContractError",
     "CodecMisbehaviour",
+    "CodecTraceback",
     "CommandLineError",
     "CorruptionFailure",
     "CorruptionSetupError",
@@ -36,6 +37,7 @@ __all__ = [
     "KraftFailure",
     "LayoutError",
     "LedgerError",
+    "NewCaseFailure",
     "NewerLedgerError",
     "PrefixFailure",
     "RateFailure",
@@ -93,12 +95,34 @@ class RegressionFailure(RateFloorFailure):
     """The measured bits exceed the committed ledger entry by more than the slack."""
 
 
+class NewCaseFailure(RateFloorFailure):
+    """Strict mode: a measured case has no ledger entry (a changed ``n``, seed or codec
+    name would otherwise turn a regression into a 'new' case)."""
+
+
 class CorruptionFailure(RateFloorFailure):
     """The decoder hung, crashed, grew memory without bound, or (where detection
     is promised) silently returned wrong data on a damaged stream."""
 
 
 # -- errors: what is wrong besides the codec ----------------------------------------
+
+
+class CodecTraceback(Exception):
+    """The traceback of an exception the codec raised in the check's child process.
+
+    A check runs the codec in a forked child (see :mod:`pytest_ratefloor.isolation`);
+    the child's exception objects cannot carry their traceback back, so its
+    text is attached as the ``__cause__`` of the failure the test shows (the
+    same device the standard library's process pools use).
+    """
+
+    def __init__(self, text: str) -> None:
+        super().__init__(text)
+        self.text = text
+
+    def __str__(self) -> str:
+        return "\n" + self.text.rstrip()
 
 
 class LedgerError(Exception):

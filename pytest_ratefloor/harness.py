@@ -22,6 +22,7 @@ specs; it uses no markers.
 
 from __future__ import annotations
 
+import dataclasses
 from collections.abc import Callable, Iterable
 from typing import TYPE_CHECKING, Any
 
@@ -66,7 +67,8 @@ class RateFloorHarness:
     ``node`` (anything with ``user_properties``) receives the JUnit
     properties, ``on_measurement`` sees every measurement, and ``save_dir``
     (called only when a damaged-stream check fails) says where the damaged
-    streams go.
+    streams go, and ``isolate`` is the default for checks that do not say
+    (the run's ini ``ratefloor_isolate``; see :mod:`pytest_ratefloor.isolation`).
     """
 
     def __init__(
@@ -74,10 +76,12 @@ class RateFloorHarness:
         node: Any = None,
         on_measurement: Callable[[Measurement], None] | None = None,
         save_dir: SaveDir | None = None,
+        isolate: bool = True,
     ) -> None:
         self.node = node
         self._on_measurement = on_measurement
         self._save_dir = save_dir
+        self._isolate = isolate
         self.measurements: list[Measurement] = []
 
     @classmethod
@@ -89,7 +93,8 @@ class RateFloorHarness:
             __tracebackhide__ = True
             session.gate_measurement(item, m)
 
-        return cls(item, on_measurement, save_dir=lambda: request.getfixturevalue("tmp_path"))
+        return cls(item, on_measurement, save_dir=lambda: request.getfixturevalue("tmp_path"),
+                   isolate=session.settings.isolate)
 
     def _record(self, m: Measurement) -> None:
         __tracebackhide__ = True  # a ledger regression raised below belongs to the user's test
@@ -103,6 +108,8 @@ class RateFloorHarness:
     def run(self, codec: Any, source: Source, plan: CheckPlan) -> Measurement:
         """:meth:`check` with its arguments already validated (what ``gate()`` calls)."""
         __tracebackhide__ = True
+        if plan.isolate is None:
+            plan = dataclasses.replace(plan, isolate=self._isolate)
         return checks.run_check(codec, source, plan, on_measurement=self._record,
                                 save_dir=self._save_dir)
 
@@ -111,8 +118,8 @@ class RateFloorHarness:
 
         ``options`` are the :class:`~pytest_ratefloor.checks.CheckOptions`:
         ``n`` (default 100 000), ``seed`` (0), ``floor`` (``"entropy"``),
-        ``rel``/``abs`` (default ``rel=0.01``), ``edge_cases`` (``True``) and
-        ``corruption`` (``False``). With ``corruption=True`` the decoder must
+        ``rel``/``abs`` (default ``rel=0.01``), ``edge_cases`` (``True``),
+        ``corruption`` (``False``) and ``isolate`` (the run's setting). With ``corruption=True`` the decoder must
         then also survive damaged streams of the same encoding (on at most
         10 000 symbols of the sample; see
         :func:`pytest_ratefloor.corruption.assert_survives_corruption` for what
@@ -129,10 +136,12 @@ class RateFloorHarness:
         n: int = DEFAULT_N,
         seed: int = 0,
         floor: Floor = "entropy",
+        isolate: bool | None = None,
     ) -> Measurement:
         """Measure and record without a tolerance (the sample must still round-trip)."""
         __tracebackhide__ = True
-        m = checks.measure(codec, source, n=n, seed=seed, floor=floor)
+        m = checks.measure(codec, source, n=n, seed=seed, floor=floor,
+                           isolate=self._isolate if isolate is None else isolate)
         self._record(m)
         return m
 

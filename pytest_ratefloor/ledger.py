@@ -31,28 +31,58 @@ produce last-digit diff noise. Each case is read back as the
 :class:`~pytest_ratefloor.measurement.Measurement` its recording wrote
 (:meth:`~pytest_ratefloor.measurement.Measurement.recorded`); comparing cases
 is :mod:`pytest_ratefloor.verdicts`' job. This module knows nothing of pytest.
+
+Reading is strict and bounded. Only a regular file of at most
+:data:`MAX_LEDGER_BYTES` is read (a FIFO or a device is refused without
+blocking); a repeated JSON name, ``NaN``/``Infinity``, nesting too deep to
+parse, an integer too long to convert, an unknown field or a figure out of range
+each give one :class:`~pytest_ratefloor.errors.UnreadableLedgerError` whose
+message is one line naming the file (and the case and field). A ledger that
+loads can be shown and compared: every count is below 2**63 and every figure
+finite.
+
+Writing is safe against concurrent recordings and kills: :func:`record` takes an
+advisory lock beside the ledger (``.<name>.lock``), removes the temporary files a
+killed writer left (``.<name>.<random>.tmp``), re-reads the file as it is now,
+merges and replaces it atomically (:func:`write_atomic`). Symlinks are written
+through: the link stays a link and its target gets the text.
 """
 
 from __future__ import annotations
 
+import codecs
 import contextlib
 import json
+import math
 import os
 import platform
+import re
+import reprlib
 import shutil
 import stat
 import sys
 import tempfile
-from collections.abc import Iterable
-from dataclasses import dataclass, field
+import time
+from collections.abc import Iterable, Iterator
+from dataclasses import dataclass, field, replace
 from pathlib import Path
+from types import ModuleType
 from typing import Any
 
 from pytest_ratefloor.errors import (
+    LedgerError,
     NewerLedgerError,
     UnreadableLedgerError,
 )
 from pytest_ratefloor.measurement import CaseKey, Measurement, figure
+
+_fcntl: ModuleType | None
+try:
+    import fcntl as _fcntl_module
+except ImportError:  # pragma: no cover - Windows: O_EXCL lock files instead
+    _fcntl = None
+else:
+    _fcntl = _fcntl_module
 
 #: Version of the ledger layout this plugin reads and writes.
 SCHEMA_VERSION = 1
@@ -62,11 +92,53 @@ LEDGER_KIND = "pytest-ratefloor rate ledger"
 DEFAULT_LEDGER_NAME = "ratefloor-ledger.json"
 #: Suffix under which an unreadable ledger is set aside when the user records over it.
 UNREADABLE_SUFFIX = ".unreadable"
+#: Largest ledger file read (bytes); a ledger of 64 MiB holds some 200,000 cases.
+MAX_LEDGER_BYTES = 64 * 1024 * 1024
+#: Longest :func:`record` waits for another process's lock on the same ledger (seconds).
+LOCK_TIMEOUT = 60.0
 
 _NOTE = (
     "Committed rate ledger of pytest-ratefloor. Only 'bits' is compared; "
     "re-record with: pytest --ratefloor-record"
 )
+#: every count (bits, n, seed) is below this: a signed 64-bit integer holds it
+_COUNT_LIMIT = 2**63
+#: longest integer literal converted: CPython's default int_max_str_digits
+_MAX_INT_DIGITS = 4300
+_TOP_FIELDS = ("cases", "kind", "note", "recorded_with", "schema")
+_REQUIRED_FIELDS = ("bits", "codec", "entropy", "floor", "floor_rate", "n", "seed", "source")
+_CASE_FIELDS = tuple(sorted((*_REQUIRED_FIELDS, "codec_version", "fingerprint", "rate")))
+_ENVIRONMENT_FIELDS = ("numpy", "platform", "plugin", "python")
+_FILE_KINDS = (
+    (stat.S_ISDIR, "a directory"), (stat.S_ISFIFO, "a FIFO"),
+    (stat.S_ISCHR, "a character device"), (stat.S_ISBLK, "a block device"),
+    (stat.S_ISSOCK, "a socket"),
+)
+
+_short_repr = reprlib.Repr()
+_short_repr.maxstring = _short_repr.maxother = 60
+_short_repr.maxlevel, _short_repr.maxdict, _short_repr.maxlist = 2, 4, 4
+
+
+def _shown(value: object) -> str:
+    """A short one-line rendering of a value read from a file, for messages."""
+    if isinstance(value, int) and not isinstance(value, bool) and value.bit_length() > 64:
+        return f"an integer of {value.bit_length()} bits"
+    try:
+        return _short_repr.repr(value)
+    except (ValueError, RecursionError):  # an int too long for repr, a pathological nest
+        return f"a {type(value).__name__}"
+
+
+def _is_text(value: object) -> bool:
+    """True for a string that can be written as UTF-8 (no lone surrogate from a ``\\ud800``)."""
+    if not isinstance(value, str):
+        return False
+    try:
+        value.encode("utf-8")
+    except UnicodeEncodeError:
+        return False
+    return True
 
 
 def entry_json(m: Measurement) -> dict[str, Any]:
@@ -81,39 +153,79 @@ def entry_json(m: Measurement) -> dict[str, Any]:
     return out
 
 
+def _count(obj: dict[str, Any], name: str, low: int, where: str) -> int:
+    value = obj[name]
+    # bool is an int subclass: a 'true' bit count is corruption, not a number
+    if isinstance(value, bool) or not isinstance(value, int) or not low <= value < _COUNT_LIMIT:
+        raise UnreadableLedgerError(
+            f"{where} has a bad {name!r}: {_shown(value)} "
+            f"(must be an integer, {low} <= {name} < 2**63)"
+        )
+    return value
+
+
+def _number(obj: dict[str, Any], name: str, where: str) -> float:
+    value = obj[name]
+    if not isinstance(value, bool) and isinstance(value, (int, float)):
+        try:
+            number = float(value)
+        except OverflowError:
+            number = math.inf
+        if math.isfinite(number) and number >= 0:
+            return number + 0.0  # -0.0 reads as 0.0
+    raise UnreadableLedgerError(
+        f"{where} has a bad {name!r}: {_shown(value)} (must be a finite number >= 0)"
+    )
+
+
+def _text(obj: dict[str, Any], name: str, where: str, *, empty: bool = False) -> str:
+    value = obj[name]
+    if _is_text(value) and (empty or value):
+        return str(value)
+    rule = "a string of UTF-8 text" if empty else "a non-empty string of UTF-8 text"
+    raise UnreadableLedgerError(f"{where} has a bad {name!r}: {_shown(value)} (must be {rule})")
+
+
 def read_entry(label: str, obj: object, path: Path) -> Measurement:
-    """Validate one case of a loaded file; errors name the file and the case."""
-    where = f"{path}: case {label!r}"
+    """Validate one case of a loaded file; errors name the file, the case and the field."""
+    where = f"{path}: case {_shown(label)}"
     if not isinstance(obj, dict):
         raise UnreadableLedgerError(f"{where} is not a JSON object")
-
-    def need(name: str, kind: type | tuple[type, ...], optional: bool = False) -> Any:
+    unknown = sorted(str(k) for k in obj if k not in _CASE_FIELDS)
+    if unknown:
+        raise UnreadableLedgerError(
+            f"{where} has an unknown field {_shown(unknown[0])}; schema {SCHEMA_VERSION} has: "
+            + ", ".join(_CASE_FIELDS)
+        )
+    for name in _REQUIRED_FIELDS:
         if name not in obj:
-            if optional:
-                return None
             raise UnreadableLedgerError(f"{where} lacks the field {name!r}")
-        value = obj[name]
-        if value is None and optional:
-            return None
-        # bool is an int subclass: a 'true' bit count is corruption, not a number
-        if isinstance(value, bool) or not isinstance(value, kind):
-            raise UnreadableLedgerError(f"{where} has a bad {name!r}: {value!r}")
-        return value
+    from pytest_ratefloor.floors import FLOORS  # imports numpy: not at pytest start-up
 
-    n, bits = need("n", int), need("bits", int)
-    if bits < 0 or n < 0:
-        raise UnreadableLedgerError(f"{where} has a negative bit count or size")
-    floor_rate = float(need("floor_rate", (int, float)))
+    n, bits, seed = _count(obj, "n", 1, where), _count(obj, "bits", 0, where), \
+        _count(obj, "seed", 0, where)
+    floor_rate, entropy = _number(obj, "floor_rate", where), _number(obj, "entropy", where)
+    if "rate" in obj:
+        _number(obj, "rate", where)  # derived from bits and n on reading; checked all the same
+    floor = _text(obj, "floor", where)
+    if floor not in FLOORS:
+        raise UnreadableLedgerError(
+            f"{where} has an unknown 'floor': {_shown(floor)}; known: {', '.join(FLOORS)}"
+        )
+    floor_bits = floor_rate * n
+    if not math.isfinite(floor_bits):
+        raise UnreadableLedgerError(f"{where} has a bad 'floor_rate': {floor_rate!r} "
+                                    f"(floor_rate * n overflows for n={n})")
     entry = Measurement(
-        codec=need("codec", str), source=need("source", str), n=n, seed=need("seed", int),
-        bits=bits, entropy=float(need("entropy", (int, float))),
-        floor=need("floor", str), floor_bits=floor_rate * n,
-        fingerprint=need("fingerprint", str, optional=True) or "",
-        codec_version=need("codec_version", str, optional=True),
+        codec=_text(obj, "codec", where), source=_text(obj, "source", where), n=n, seed=seed,
+        bits=bits, entropy=entropy, floor=floor, floor_bits=floor_bits,
+        fingerprint=_text(obj, "fingerprint", where, empty=True) if "fingerprint" in obj else "",
+        codec_version=(_text(obj, "codec_version", where, empty=True)
+                       if "codec_version" in obj else None),
     )
     if entry.key.label != label:
         raise UnreadableLedgerError(
-            f"{where} does not match its fields (expected key {entry.key.label!r}); "
+            f"{where} does not match its fields (expected key {_shown(entry.key.label)}); "
             "was the file edited by hand?"
         )
     return entry
@@ -151,14 +263,167 @@ class Environment:
 
     @classmethod
     def from_json(cls, obj: object, path: Path) -> Environment:
-        if not isinstance(obj, dict) or not all(
-            isinstance(obj.get(k), str) for k in ("plugin", "numpy", "python", "platform")
+        """Read the ``recorded_with`` block: exactly the four names, each a string."""
+        if not isinstance(obj, dict) or sorted(obj) != list(_ENVIRONMENT_FIELDS) or not all(
+            _is_text(obj[k]) for k in _ENVIRONMENT_FIELDS
         ):
             raise UnreadableLedgerError(
-                f"{path}: 'recorded_with' is not a well-formed block: {obj!r}"
+                f"{path}: 'recorded_with' is not a well-formed block: {_shown(obj)} "
+                f"(schema {SCHEMA_VERSION} has: {', '.join(_ENVIRONMENT_FIELDS)}, each a string)"
             )
         return cls(plugin=obj["plugin"], numpy=obj["numpy"], python=obj["python"],
                    platform=obj["platform"])
+
+
+# -- reading: bounded bytes, strict JSON ----------------------------------------------
+
+
+def _checked_file(path: Path, st: os.stat_result) -> None:
+    """Refuse anything but a regular file of at most :data:`MAX_LEDGER_BYTES`."""
+    if not stat.S_ISREG(st.st_mode):
+        what = next((name for test, name in _FILE_KINDS if test(st.st_mode)), "a special file")
+        raise UnreadableLedgerError(f"{path}: is {what}, not a ledger file")
+    if st.st_size > MAX_LEDGER_BYTES:
+        raise _too_large(path, f"{st.st_size:,} bytes")
+
+
+def _too_large(path: Path, size: str) -> UnreadableLedgerError:
+    return UnreadableLedgerError(
+        f"{path}: is {size}, over the ledger size limit of {MAX_LEDGER_BYTES:,} bytes "
+        "(MAX_LEDGER_BYTES); not a ledger?"
+    )
+
+
+def _read_bounded(path: Path) -> bytes | None:
+    """The file's bytes (``None`` if missing), read without blocking and at most limit+1.
+
+    ``stat`` first refuses a FIFO or device; the file is then opened non-blocking
+    and checked again through its descriptor, so a swap in between is caught too.
+    """
+    try:
+        _checked_file(path, os.stat(path))
+        fd = os.open(path, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0)
+                     | getattr(os, "O_NOCTTY", 0) | getattr(os, "O_BINARY", 0))
+    except FileNotFoundError:
+        return None
+    except OSError as exc:
+        raise UnreadableLedgerError(f"{path}: cannot be read ({exc.strerror or exc})") from None
+    chunks: list[bytes] = []
+    try:
+        _checked_file(path, os.fstat(fd))
+        got, limit = 0, MAX_LEDGER_BYTES
+        while got <= limit:
+            chunk = os.read(fd, min(limit + 1 - got, 1 << 20))
+            if not chunk:
+                break
+            chunks.append(chunk)
+            got += len(chunk)
+    except OSError as exc:
+        raise UnreadableLedgerError(f"{path}: cannot be read ({exc.strerror or exc})") from None
+    finally:
+        os.close(fd)
+    if got > limit:  # grew after the check, or a file whose size stat does not know
+        raise _too_large(path, f"more than {limit:,} bytes")
+    return b"".join(chunks)
+
+
+def _decoded(data: bytes, path: Path) -> str:
+    if data.startswith(codecs.BOM_UTF8):
+        # RFC 8259 §8.1: JSON text must not begin with a byte order mark
+        raise UnreadableLedgerError(
+            f"{path}: starts with a byte order mark; save it as UTF-8 without one"
+        )
+    try:
+        return data.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        raise UnreadableLedgerError(
+            f"{path}: not UTF-8 text ({exc.reason} at byte {exc.start}); corrupt?"
+        ) from None
+
+
+def _strict_json(text: str, path: Path) -> Any:
+    """``json.loads`` refusing repeated names, NaN/Infinity, long integers and deep nesting."""
+    repeats: dict[int, tuple[dict[str, Any], str]] = {}
+
+    def pairs(items: list[tuple[str, Any]]) -> dict[str, Any]:
+        obj = dict(items)
+        if len(obj) != len(items):
+            seen: set[str] = set()
+            for key, _ in items:
+                if key in seen:
+                    repeats[id(obj)] = (obj, key)
+                    break
+                seen.add(key)
+        return obj
+
+    def constant(name: str) -> Any:
+        # RFC 8259 §6: NaN and Infinity are not JSON numbers
+        raise UnreadableLedgerError(f"{path}: {name} is not a JSON number (RFC 8259 §6)")
+
+    def integer(digits: str) -> int:
+        if len(digits.lstrip("-")) > _MAX_INT_DIGITS:
+            raise UnreadableLedgerError(
+                f"{path}: an integer of {len(digits):,} digits is too long to convert "
+                f"(limit {_MAX_INT_DIGITS} digits)"
+            )
+        return int(digits)
+
+    try:
+        doc = json.loads(text, object_pairs_hook=pairs, parse_constant=constant,
+                         parse_int=integer)
+    except json.JSONDecodeError as exc:
+        # a ledger always ends with its closing brace; without it, the write was cut short
+        hint = "" if text.rstrip().endswith("}") else " (the file ends early: truncated?)"
+        raise UnreadableLedgerError(
+            f"{path}: not valid JSON at line {exc.lineno} column {exc.colno}: {exc.msg}{hint}"
+        ) from None
+    except RecursionError:
+        raise UnreadableLedgerError(f"{path}: JSON nested too deeply to read; corrupt?") from None
+    except ValueError as exc:  # e.g. int conversion limits of the interpreter
+        reason = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+        raise UnreadableLedgerError(f"{path}: not a readable ledger ({reason})") from None
+    if repeats:
+        where, name = _first_repeat(doc, repeats)
+        # RFC 8259 §4: names within an object should be unique, else behaviour is unpredictable
+        raise UnreadableLedgerError(f"{path}: {_repeat_phrase(where, name)} (RFC 8259 §4)")
+    return doc
+
+
+def _first_repeat(doc: Any, repeats: dict[int, tuple[dict[str, Any], str]]
+                  ) -> tuple[list[str | int], str]:
+    """The path (keys and indices) of the first object, in document order, with a repeated name."""
+    parents: list[tuple[int, str | int]] = [(-1, "")]
+    stack: list[tuple[Any, int]] = [(doc, 0)]
+    while stack:
+        value, node = stack.pop()
+        if isinstance(value, dict):
+            if id(value) in repeats:
+                where: list[str | int] = []
+                while node > 0:
+                    node, key = parents[node]
+                    where.append(key)
+                return where[::-1], repeats[id(value)][1]
+            children: list[tuple[str | int, Any]] = list(value.items())
+        elif isinstance(value, list):
+            children = list(enumerate(value))
+        else:
+            continue
+        for key, child in reversed(children):
+            if isinstance(child, (dict, list)):
+                parents.append((node, key))
+                stack.append((child, len(parents) - 1))
+    raise AssertionError("a repeated name was seen but not found")  # pragma: no cover
+
+
+def _repeat_phrase(where: list[str | int], name: str) -> str:
+    if not where:
+        return f"the key {_shown(name)} appears more than once at the top level"
+    if where == ["cases"]:
+        return f"the case {_shown(name)} appears more than once in 'cases'"
+    if len(where) == 2 and where[0] == "cases":
+        return f"case {_shown(where[1])} has the field {_shown(name)} more than once"
+    inside = " / ".join(_shown(k) for k in where)
+    return f"the key {_shown(name)} appears more than once in {inside}"
 
 
 @dataclass
@@ -174,48 +439,47 @@ class Ledger:
     def load(cls, path: Path) -> Ledger:
         """Read ``path``; a missing file is an empty ledger.
 
-        :raises UnreadableLedgerError: not JSON, truncated, or not a well-formed ledger.
+        Only a regular file of at most :data:`MAX_LEDGER_BYTES` is read; a
+        directory, FIFO, device or socket is refused without blocking on it.
+
+        :raises UnreadableLedgerError: not a regular file, too large, not UTF-8 JSON,
+            truncated, or not a well-formed ledger (one line naming the file).
         :raises NewerLedgerError: written with a schema newer than :data:`SCHEMA_VERSION`.
         """
         path = Path(path)
-        try:
-            text = path.read_text(encoding="utf-8")
-        except FileNotFoundError:
+        data = _read_bounded(path)
+        if data is None:
             return cls(path=path)
-        except IsADirectoryError:
-            raise UnreadableLedgerError(f"{path}: is a directory, not a ledger file") from None
-        except UnicodeDecodeError as exc:
-            raise UnreadableLedgerError(
-                f"{path}: not UTF-8 text ({exc.reason}); corrupt?"
-            ) from None
-        except OSError as exc:
-            raise UnreadableLedgerError(f"{path}: cannot be read ({exc.strerror})") from None
-        return cls.parse(text, path)
+        return cls.parse(_decoded(data, path), path)
 
     @classmethod
     def parse(cls, text: str, path: Path) -> Ledger:
-        """Parse ledger text (``path`` is used in messages and kept on the result)."""
-        try:
-            doc = json.loads(text)
-        except json.JSONDecodeError as exc:
-            # a ledger always ends with its closing brace; without it, the write was cut short
-            hint = "" if text.rstrip().endswith("}") else " (the file ends early: truncated?)"
-            raise UnreadableLedgerError(
-                f"{path}: not valid JSON at line {exc.lineno} column {exc.colno}: "
-                f"{exc.msg}{hint}"
-            ) from None
+        """Parse ledger text (``path`` is used in messages and kept on the result).
+
+        :raises UnreadableLedgerError: for any text that is not a well-formed ledger.
+        :raises NewerLedgerError: written with a schema newer than :data:`SCHEMA_VERSION`.
+        """
+        doc = _strict_json(text, path)
         if not isinstance(doc, dict) or doc.get("kind") != LEDGER_KIND:
             raise UnreadableLedgerError(
                 f"{path}: not a pytest-ratefloor ledger (no \"kind\": {LEDGER_KIND!r})"
             )
         schema = doc.get("schema")
         if isinstance(schema, bool) or not isinstance(schema, int) or schema < 1:
-            raise UnreadableLedgerError(f"{path}: bad schema version {schema!r}")
+            raise UnreadableLedgerError(f"{path}: bad schema version {_shown(schema)}")
         if schema > SCHEMA_VERSION:
             raise NewerLedgerError(
-                f"{path}: ledger schema {schema} is newer than this pytest-ratefloor "
+                f"{path}: ledger schema {_shown(schema)} is newer than this pytest-ratefloor "
                 f"understands (schema {SCHEMA_VERSION}); upgrade pytest-ratefloor"
             )
+        unknown = sorted(k for k in doc if k not in _TOP_FIELDS)
+        if unknown:
+            raise UnreadableLedgerError(
+                f"{path}: unknown field {_shown(unknown[0])}; schema {SCHEMA_VERSION} has: "
+                + ", ".join(_TOP_FIELDS)
+            )
+        if "note" in doc and not isinstance(doc["note"], str):
+            raise UnreadableLedgerError(f"{path}: 'note' is not a string: {_shown(doc['note'])}")
         cases = doc.get("cases")
         if not isinstance(cases, dict):
             raise UnreadableLedgerError(f"{path}: 'cases' is missing or not a JSON object")
@@ -253,19 +517,33 @@ class Ledger:
                           allow_nan=False) + "\n"
 
     def write(self) -> None:
-        """Write atomically to :attr:`path` (see :func:`write_atomic`)."""
-        write_atomic(self.path, self.dumps())
+        """Replace the file with exactly these entries, under the ledger's lock.
+
+        Kept for callers that merged themselves; :func:`record` re-reads the
+        file under the lock and merges, so a concurrent recording is not lost.
+        """
+        with ledger_lock(self.path) as target:
+            write_atomic(target, self.dumps())
+
+
+# -- writing: atomic replace, advisory lock, recording ---------------------------------
+
+
+def _resolved(path: Path) -> Path:
+    """``path`` with every symlink resolved, so writes go through a link to its target."""
+    return Path(os.path.realpath(path))
 
 
 def write_atomic(path: Path, text: str) -> None:
     """Replace ``path`` with ``text`` so that a reader only ever sees old or new content.
 
-    The text goes to a temporary file in the same folder, is flushed and fsynced,
-    then ``os.replace`` renames it over ``path`` (atomic on POSIX and Windows);
-    the folder is fsynced so the rename survives a power cut. If anything fails
-    the temporary file is removed and ``path`` is untouched.
+    A symlink is written through: its target is replaced and the link stays.
+    The text goes to a temporary file ``.<name>.<random>.tmp`` in the same folder, is
+    flushed and fsynced, then ``os.replace`` renames it over ``path`` (atomic on POSIX
+    and Windows); the folder is fsynced so the rename survives a power cut. If anything
+    fails the temporary file is removed and ``path`` is untouched.
     """
-    path = Path(path)
+    path = _resolved(Path(path))
     folder = path.parent
     folder.mkdir(parents=True, exist_ok=True)
     fd, tmp_name = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=folder)
@@ -304,6 +582,213 @@ def _fsync_folder(folder: Path) -> None:
         pass
     finally:
         os.close(fd)
+
+
+def lock_path(path: Path) -> Path:
+    """The lock file of the ledger at ``path``: ``.<name>.lock`` beside its (resolved) target."""
+    target = _resolved(Path(path))
+    return target.with_name(f".{target.name}.lock")
+
+
+def stale_temporaries(path: Path) -> list[Path]:
+    """The temporary files ``.<name>.<random>.tmp`` of the ledger at ``path`` (sorted).
+
+    Only a writer holding the ledger's lock has one open, so under the lock
+    every one of them was left by a killed writer.
+    """
+    target = _resolved(Path(path))
+    pattern = re.compile(rf"\.{re.escape(target.name)}\.[A-Za-z0-9_]+\.tmp")
+    try:
+        with os.scandir(target.parent) as entries:
+            return sorted(Path(e.path) for e in entries
+                          if pattern.fullmatch(e.name) and e.is_file(follow_symlinks=False))
+    except OSError:
+        return []
+
+
+def _removed(paths: Iterable[Path]) -> list[Path]:
+    """Remove ``paths``; the ones actually removed (a file that will not go is left)."""
+    out = []
+    for p in paths:
+        with contextlib.suppress(OSError):
+            p.unlink()
+            out.append(p)
+    return out
+
+
+def _write_pid(fd: int) -> None:
+    os.ftruncate(fd, 0)
+    os.write(fd, f"{os.getpid()}\n".encode())
+
+
+def _try_lock(lock: Path) -> int | None:
+    """One attempt at the lock: the locked descriptor, or ``None`` if another holds it.
+
+    With ``flock``: open (creating), lock, then check the path still names the
+    locked file — a holder unlinks it before unlocking, so a lock taken on a
+    removed file is worthless and is dropped. Without ``fcntl`` (Windows):
+    create the file exclusively.
+    """
+    if _fcntl is None:  # pragma: no cover - exercised by monkeypatching in the tests
+        try:
+            fd = os.open(lock, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o666)
+        except FileExistsError:
+            return None
+        except PermissionError:  # Windows, while the holder deletes it
+            if lock.exists():
+                return None
+            raise
+    else:
+        fd = os.open(lock, os.O_RDWR | os.O_CREAT | getattr(os, "O_CLOEXEC", 0), 0o666)
+        try:
+            _fcntl.flock(fd, _fcntl.LOCK_EX | _fcntl.LOCK_NB)
+        except BlockingIOError:
+            os.close(fd)
+            return None
+        except BaseException:
+            os.close(fd)
+            raise
+        held = os.fstat(fd)
+        try:
+            now: os.stat_result | None = os.stat(lock)
+        except FileNotFoundError:
+            now = None
+        if now is None or (now.st_dev, now.st_ino) != (held.st_dev, held.st_ino):
+            os.close(fd)
+            return None
+    try:
+        _write_pid(fd)
+    except BaseException:
+        _release(lock, fd)
+        raise
+    return fd
+
+
+def _release(lock: Path, fd: int) -> None:
+    """Remove the lock file and unlock (with ``flock``: remove first, while still holding)."""
+    if _fcntl is None:  # pragma: no cover - Windows cannot remove an open file
+        os.close(fd)
+        with contextlib.suppress(OSError):
+            lock.unlink()
+        return
+    try:
+        with contextlib.suppress(FileNotFoundError):
+            lock.unlink()
+    finally:
+        os.close(fd)
+
+
+def _holder(lock: Path) -> str:
+    """Who holds ``lock``, from the process id its holder wrote into it."""
+    with contextlib.suppress(OSError, ValueError):
+        fd = os.open(lock, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0))
+        try:
+            return f"process {int(os.read(fd, 32).decode('ascii').strip())}"
+        finally:
+            os.close(fd)
+    return "another process"
+
+
+@contextlib.contextmanager
+def ledger_lock(path: Path, timeout: float = LOCK_TIMEOUT) -> Iterator[Path]:
+    """Hold the advisory lock of the ledger at ``path``; yields the resolved target.
+
+    Polls for up to ``timeout`` seconds. The lock file ``.<name>.lock`` holds the
+    holder's process id and is removed on release.
+
+    :raises LedgerError: the lock is still held after ``timeout`` (names the lock
+        file and the holder's process id).
+    """
+    target = _resolved(Path(path))
+    lock = lock_path(target)
+    lock.parent.mkdir(parents=True, exist_ok=True)
+    deadline = time.monotonic() + max(0.0, timeout)
+    pause = 0.001
+    while (fd := _try_lock(lock)) is None:
+        if time.monotonic() >= deadline:
+            raise LedgerError(
+                f"{lock}: ledger {target.name} is locked by {_holder(lock)}; gave up after "
+                f"{timeout:g} s (a lock file whose process is gone may be deleted)"
+            )
+        time.sleep(pause)
+        pause = min(2 * pause, 0.05)
+    try:
+        yield target
+    finally:
+        _release(lock, fd)
+
+
+@dataclass(frozen=True)
+class Recording:
+    """What :func:`record` wrote."""
+
+    #: the ledger as written: the file's entries merged with this run's
+    ledger: Ledger
+    #: the file written: the given path with symlinks resolved
+    target: Path
+    #: where an unreadable file was copied before it was replaced, if it was
+    unreadable_copy: Path | None = None
+    #: temporary files of killed writers that were removed
+    removed_temporaries: tuple[Path, ...] = ()
+
+
+def record(path: Path, measurements: Iterable[Measurement], *,
+           replace_unreadable: bool = False, environment: Environment | None = None,
+           lock_timeout: float = LOCK_TIMEOUT) -> Recording:
+    """Merge ``measurements`` into the ledger at ``path``, safely against other writers.
+
+    Under the ledger's lock (:func:`ledger_lock`): removes stale temporary files,
+    reads the file as it is now, keeps its entries except those this run measured,
+    and replaces it atomically (:func:`write_atomic`; a symlink is written through).
+
+    :param replace_unreadable: if the current file is a regular file that cannot be
+        read as a ledger, keep a copy (:func:`keep_copy`) and write only these cases.
+    :param environment: the ``recorded_with`` block (default: :meth:`Environment.current`).
+    :raises UnreadableLedgerError: the current file cannot be read, and
+        ``replace_unreadable`` is false or it is not a regular file.
+    :raises NewerLedgerError: the current file has a newer schema (never replaced).
+    :raises LedgerError: the lock was not obtained within ``lock_timeout`` seconds.
+    :raises OSError: the file or its lock cannot be written.
+    """
+    cases = list(measurements)
+    env = environment or Environment.current()
+    with ledger_lock(path, lock_timeout) as target:
+        removed = _removed(stale_temporaries(target))
+        copy = None
+        try:
+            current = Ledger.load(target)
+        except UnreadableLedgerError:
+            if not replace_unreadable or not os.path.isfile(target):
+                raise
+            copy = keep_copy(target)
+            current = Ledger(path=target)
+        ledger = current.merged(cases, env)
+        write_atomic(target, ledger.dumps())
+    return Recording(ledger=replace(ledger, exists=True), target=target,
+                     unreadable_copy=copy, removed_temporaries=tuple(removed))
+
+
+def clean_stale_temporaries(path: Path) -> list[Path]:
+    """Remove the temporary files killed writers left beside the ledger at ``path``.
+
+    Takes the ledger's lock without waiting: if another process holds it (it may be
+    writing one of them) nothing is removed. Never raises for an unwritable or
+    missing folder. Returns the files removed.
+    """
+    target = _resolved(Path(path))
+    if not stale_temporaries(target):
+        return []
+    lock = lock_path(target)
+    try:
+        fd = _try_lock(lock)
+    except OSError:
+        return []
+    if fd is None:
+        return []
+    try:
+        return _removed(stale_temporaries(target))
+    finally:
+        _release(lock, fd)
 
 
 def keep_copy(path: Path) -> Path:

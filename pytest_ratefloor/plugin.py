@@ -15,7 +15,7 @@ import pytest
 
 from pytest_ratefloor import report
 from pytest_ratefloor.session import SESSION_KEY, GateSession, is_worker
-from pytest_ratefloor.settings import MARKER, add_options
+from pytest_ratefloor.settings import MARKER, add_options, check_marker
 
 if TYPE_CHECKING:
     from pytest_ratefloor.harness import RateFloorHarness
@@ -29,7 +29,27 @@ def pytest_configure(config: pytest.Config) -> None:
     config.addinivalue_line("markers", MARKER)
     if config.option.help or config.option.version:
         return  # --help must work even beside a broken ledger
-    config.stash[SESSION_KEY] = GateSession.start(config)
+    gate = config.stash[SESSION_KEY] = GateSession.start(config)
+    config.pluginmanager.register(TestOutcomes(gate), _OUTCOMES_NAME)
+
+
+def pytest_collection_modifyitems(items: list[pytest.Item]) -> None:
+    for item in items:
+        check_marker(item)
+
+
+class TestOutcomes:
+    """Registered for one run: hands every test report to the run's GateSession
+    (``pytest_runtest_logreport`` receives no config, so it needs an object)."""
+
+    def __init__(self, gate: GateSession) -> None:
+        self.gate = gate
+
+    def pytest_runtest_logreport(self, report: pytest.TestReport) -> None:
+        self.gate.test_report(report)
+
+
+_OUTCOMES_NAME = "ratefloor-test-outcomes"
 
 
 def pytest_deselected(items: list[pytest.Item]) -> None:
@@ -77,5 +97,8 @@ def pytest_terminal_summary(terminalreporter: Any, config: pytest.Config) -> Non
 
 
 def pytest_unconfigure(config: pytest.Config) -> None:
+    outcomes = config.pluginmanager.get_plugin(_OUTCOMES_NAME)
+    if outcomes is not None:
+        config.pluginmanager.unregister(outcomes)
     if SESSION_KEY in config.stash:
         del config.stash[SESSION_KEY]

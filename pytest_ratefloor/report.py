@@ -6,6 +6,14 @@ listing — into text or an image; nothing here reads pytest state and nothing
 here recomputes a figure the case record or the comparison already holds.
 The same Markdown table serves the ``--ratefloor-report`` file, the GitHub job
 summary and ``ratefloor show``.
+
+Codec names, source specs, codec versions, floor names and ledger paths come
+from users' code or from a ledger file, so they are untrusted text: every
+place that shows one passes it through :func:`terminal_text` (terminal and
+plain-text output), :func:`markdown_text` (Markdown) or :func:`plot_text`
+(matplotlib labels). JSON output keeps the raw strings (``json.dumps``
+escapes them) and never writes ``NaN`` or ``Infinity`` (:func:`json_safe`,
+``allow_nan=False``).
 """
 
 from __future__ import annotations
@@ -13,7 +21,9 @@ from __future__ import annotations
 import importlib.util
 import math
 import os
-from collections.abc import Iterable, Mapping, Sequence
+import re
+import unicodedata
+from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Literal
@@ -41,7 +51,11 @@ PLOT_SUFFIXES = (".png", ".svg", ".pdf")
 
 @dataclass(frozen=True)
 class RunOutcome:
-    """What a run adds to its rows: ledger counts, stale entries, problems."""
+    """What a run adds to its rows: ledger counts, stale entries, problems.
+
+    ``strict`` and ``not_recorded`` came later and have defaults, so a caller that
+    names only the earlier fields keeps working.
+    """
 
     ledger_path: Path | None = None
     #: False when no ledger file existed and none was written (every case is new)
@@ -52,6 +66,115 @@ class RunOutcome:
     stale: Sequence[Measurement] = ()
     partial_reasons: Sequence[str] = ()
     problems: Sequence[str] = ()
+    #: the run gated in strict mode (shown beside the ledger in every summary)
+    strict: bool = False
+    #: (case label, reason) of each case a recording left out because its test failed
+    not_recorded: tuple[tuple[str, str], ...] = ()
+
+
+# -- untrusted text -------------------------------------------------------------------
+
+#: Unicode general categories shown escaped: control (Cc: C0, DEL, C1), format (Cf: the
+#: bidi embeddings/overrides/isolates U+202A-U+202E and U+2066-U+2069, the marks
+#: U+200E/U+200F and U+061C, zero-width characters, tag characters), lone surrogates (Cs,
+#: which a JSON ledger can hold and no UTF-8 stream can print) and the line and paragraph
+#: separators (Zl, Zp). Escaping rather than deleting them is common practice for logs
+#: and terminals: the reader still sees that something was there.
+_ESCAPED_CATEGORIES = frozenset({"Cc", "Cf", "Cs", "Zl", "Zp"})
+
+#: ASCII punctuation that Markdown gives a meaning to where it could matter inside a line:
+#: links and images (``[ ] ( ) !``), emphasis and strike-through (``* _ ~``), code spans
+#: (backtick), GFM table cells (``|``), headings and list markers (``# +``), attribute or
+#: template braces (``{ }``), GitHub math (``$``), URL schemes (``:``) and the escape
+#: character itself. The CommonMark spec (section "Backslash escapes") lets any ASCII
+#: punctuation character be backslash-escaped, and an escaped one renders as itself.
+_MARKDOWN_PUNCTUATION = "\\`*_{}[]()#+!|~$:"
+#: ``& < >`` become character references instead (CommonMark "Entity and numeric
+#: character references"), so no HTML tag or entity of the input is ever interpreted.
+_MARKDOWN_TABLE = {
+    **{ord(c): "\\" + c for c in _MARKDOWN_PUNCTUATION},
+    ord("&"): "&amp;", ord("<"): "&lt;", ord(">"): "&gt;",
+}
+
+
+def _escaped(ch: str) -> str:
+    code = ord(ch)
+    if code < 0x100:
+        return f"\\x{code:02x}"
+    if code < 0x10000:
+        return f"\\u{code:04x}"
+    return f"\\U{code:08x}"
+
+
+def terminal_text(s: str) -> str:
+    """``s`` safe to print on a terminal: invisible and control characters shown escaped.
+
+    C0 and C1 control characters, DEL, Unicode format characters (bidi overrides
+    and isolates such as U+202E and U+2066-U+2069, the marks U+200E/U+200F,
+    zero-width characters), lone surrogates and the line/paragraph separators
+    are written as Python-style escapes (``\\x1b``, ``\\u202e``), so an ANSI
+    sequence, a terminal hyperlink or a bidi override in a codec name is shown,
+    not obeyed; the result is always one line. Printable text (any script,
+    spaces, backslashes) is returned unchanged.
+    """
+    if s.isprintable():  # fast path: no character of an escaped category
+        return s
+    return "".join(_escaped(c) if unicodedata.category(c) in _ESCAPED_CATEGORIES else c
+                   for c in s)
+
+
+#: What would still open a block at the start of a line once the punctuation above is
+#: escaped: a bullet, thematic break or setext underline (``-``, ``=``), an ordered-list
+#: number followed by a space or nothing (``1. ``; CommonMark "List items" allows up to nine
+#: digits; ``)`` is escaped already).
+_BLOCK_START = re.compile(r"^([-=]|[0-9]{1,9}\.(?= |$))")
+
+
+def markdown_text(s: str) -> str:
+    """``s`` as Markdown that renders as the literal text, in a table cell or at a line start.
+
+    Everything :func:`terminal_text` does, then ``& < >`` become HTML character
+    references and Markdown punctuation (``\\ ` * _ { } [ ] ( ) # + ! | ~ $ :``)
+    is backslash-escaped, so no link, image, emphasis, code span, raw HTML or
+    extra table cell can form from the input. A leading ``-``, ``=`` or list
+    number is escaped too, and leading or trailing spaces become ``&#32;`` (a
+    renderer trims plain ones), so the text cannot open a list, a heading or an
+    indented code block either.
+    """
+    text = terminal_text(s).translate(_MARKDOWN_TABLE)
+    match = _BLOCK_START.match(text)
+    if match:  # CommonMark "Backslash escapes": "\\-" and "1\\." stay literal text
+        text = match.group(1)[:-1] + "\\" + text[match.end(1) - 1:]
+    core = text.strip(" ")
+    if core != text:  # a character reference is text to the block parser, not indentation
+        lead = len(text) - len(text.lstrip(" "))
+        trail = len(text) - len(core) - lead
+        text = "&#32;" * lead + core + "&#32;" * trail
+    return text
+
+
+def plot_text(s: str) -> str:
+    """``s`` as a matplotlib label: :func:`terminal_text`, ``$`` escaped (no mathtext).
+
+    A leading underscore gets a space before it, since matplotlib leaves labels
+    starting with ``_`` out of the legend.
+    """
+    text = terminal_text(s).replace("$", "\\$")
+    return " " + text if text.startswith("_") else text
+
+
+def json_safe(value: Any) -> Any:
+    """``value`` (builtin JSON types) with every non-finite float replaced by ``None``.
+
+    JSON has no NaN or Infinity; the reports dump with ``allow_nan=False`` after this.
+    """
+    if isinstance(value, float):
+        return value if math.isfinite(value) else None
+    if isinstance(value, Mapping):
+        return {str(k): json_safe(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [json_safe(v) for v in value]
+    return value
 
 
 # -- small formatters ---------------------------------------------------------------
@@ -102,9 +225,10 @@ def counts_text(counts: Mapping[str, int]) -> str:
     return ", ".join(parts)
 
 
-def _floor_cell(m: Measurement) -> str:
+def _floor_cell(m: Measurement, escape: Callable[[str], str]) -> str:
+    """The floor rate, with the floor's name (escaped: a ledger file may hold any text)."""
     text = _num(m.floor_rate)
-    return text if m.floor in ("", "entropy") else f"{text} ({m.floor})"
+    return text if m.floor in ("", "entropy") else f"{text} ({escape(m.floor)})"
 
 
 # -- terminal summary -------------------------------------------------------------
@@ -134,22 +258,60 @@ def _tally_colour(outcome: RunOutcome) -> Colour:
         outcome.counts.get(name, 0) for name, kind in VERDICTS.items() if kind.fails
     ):
         return "red"
-    if outcome.stale or any(
+    if outcome.stale or outcome.not_recorded or any(
         outcome.counts.get(name, 0) for name, kind in VERDICTS.items() if kind.colour == "yellow"
     ):
         return "yellow"
     return "green"
 
 
+#: How many not-recorded cases the summary lists (``-v`` lists all, ``-q`` fewer).
+NOT_RECORDED_SHOWN = 20
+NOT_RECORDED_HEADING = "not recorded (their tests failed):"
+
+
+def _first_line(text: str) -> str:
+    lines = str(text).strip().splitlines()
+    return lines[0] if lines else ""
+
+
+def _ledger_line(outcome: RunOutcome, any_rows: bool) -> Line | None:
+    """The one line that names the ledger file and, once there is one, its tally."""
+    if outcome.ledger_path is None:
+        return None
+    path = terminal_text(str(outcome.ledger_path))
+    strict = ", strict mode" if outcome.strict else ""
+    if not outcome.ledger_exists and not outcome.recorded:
+        what = "every case is new" if any_rows else "nothing was measured"
+        return Line(f"no ledger at {path} yet{strict}: {what}; "
+                    "create it with: pytest --ratefloor-record", "yellow")
+    verb = "recorded into" if outcome.recorded else "compared with"
+    slack = f", slack {100.0 * outcome.slack:g}%" if outcome.slack else ""
+    return Line(f"ledger {verb} {path}{slack}{strict}: {counts_text(outcome.counts)}",
+                _tally_colour(outcome))
+
+
+def _capped(items: Sequence[str], limit: int | None, more_hint: str) -> list[Line]:
+    """``items`` as indented lines, at most ``limit`` of them (``None``: all)."""
+    shown = items if limit is None else items[:limit]
+    lines = [Line(f"  {text}") for text in shown]
+    if len(shown) < len(items):
+        lines.append(Line(f"  ... and {len(items) - len(shown)} more{more_hint}"))
+    return lines
+
+
 def summary_lines(rows: Sequence[Comparison], outcome: RunOutcome, verbose: bool = False,
                   quiet: bool = False) -> list[Line]:
-    """The terminal summary: one line per case, then the ledger tally and the caution.
+    """The terminal summary: one line per case, then the ledger line and the caution.
 
     Compact: codec, source, entropy, floor, rate, efficiency, change against the
     ledger. ``verbose`` adds n, seed, bits, ledger bits, excess and timings, and
-    lists every stale entry (compact lists at most five). ``quiet`` leaves out
-    the cases whose bits equal the ledger's. Each line's colour comes from the
-    verdict table (:data:`~pytest_ratefloor.verdicts.VERDICTS`), never from its text.
+    lists every stale entry and every case left out of a recording (compact lists
+    at most five and :data:`NOT_RECORDED_SHOWN`). ``quiet`` leaves out the cases
+    whose bits equal the ledger's and shortens the lists, but the line naming the
+    ledger file is always there when the outcome has one. Each line's colour comes
+    from the verdict table (:data:`~pytest_ratefloor.verdicts.VERDICTS`), never
+    from its text. Every user-supplied string goes through :func:`terminal_text`.
     """
     lines: list[Line] = []
     all_rows = rows
@@ -164,8 +326,8 @@ def summary_lines(rows: Sequence[Comparison], outcome: RunOutcome, verbose: bool
         for r in rows:
             m = r.case
             name = m.codec if not (verbose and m.codec_version) else f"{m.codec} {m.codec_version}"
-            cells = [name, m.source, _num(m.entropy), _floor_cell(m), _num(m.rate),
-                     _pct(m.efficiency)]
+            cells = [terminal_text(name), terminal_text(m.source), _num(m.entropy),
+                     _floor_cell(m, terminal_text), _num(m.rate), _pct(m.efficiency)]
             if verbose:
                 cells += [str(m.n), str(m.seed), f"{m.bits:,}",
                           "–" if r.ledger_bits is None else f"{r.ledger_bits:,}",
@@ -177,30 +339,26 @@ def summary_lines(rows: Sequence[Comparison], outcome: RunOutcome, verbose: bool
         lines.append(Line(texts[0]))
         lines += [Line(t, "" if r.status is None else VERDICTS[r.status].colour)
                   for t, r in zip(texts[1:], rows)]
-    if outcome.ledger_path is not None and not outcome.ledger_exists and rows:
-        lines.append(Line(f"no ledger at {outcome.ledger_path} yet: every case is new; "
-                          "create it with: pytest --ratefloor-record", "yellow"))
-    elif outcome.ledger_path is not None:
-        verb = "recorded into" if outcome.recorded else "compared with"
-        slack = f", slack {100.0 * outcome.slack:g}%" if outcome.slack else ""
-        lines.append(Line(
-            f"ledger {verb} {outcome.ledger_path}{slack}: {counts_text(outcome.counts)}",
-            _tally_colour(outcome),
-        ))
+    ledger_line = _ledger_line(outcome, bool(all_rows))
+    if ledger_line is not None:
+        lines.append(ledger_line)
+    if outcome.not_recorded:
+        lines.append(Line(NOT_RECORDED_HEADING, "yellow"))
+        limit = None if verbose else (5 if quiet else NOT_RECORDED_SHOWN)
+        lines += _capped([f"{terminal_text(label)}: {terminal_text(_first_line(why))}"
+                          for label, why in outcome.not_recorded], limit, " (-v lists all)")
     if outcome.stale:
-        shown = outcome.stale if verbose else outcome.stale[:5]
         count = len(outcome.stale)
         lines.append(Line(
             f"stale: {count} ledger entr{'y' if count == 1 else 'ies'} not measured by this "
             "full run (kept in the ledger; delete by hand if the case is gone):", "yellow"))
-        lines += [Line(f"  {e.key.label}") for e in shown]
-        if len(shown) < len(outcome.stale):
-            lines.append(Line(f"  ... {len(outcome.stale) - len(shown)} more (-v lists all)"))
+        lines += _capped([terminal_text(e.key.label) for e in outcome.stale],
+                         None if verbose else 5, " (-v lists all)")
     elif outcome.partial_reasons:
-        why = "; ".join(outcome.partial_reasons)
+        why = "; ".join(terminal_text(str(r)) for r in outcome.partial_reasons)
         lines.append(Line(f"stale entries not listed: partial run ({why})"))
-    lines += [Line(f"ERROR: {p}", "red") for p in outcome.problems]
-    if all_rows:
+    lines += [Line(f"ERROR: {terminal_text(str(p))}", "red") for p in outcome.problems]
+    if rows or (all_rows and not quiet):
         lines.append(Line(CAUTION))
     return lines
 
@@ -209,12 +367,29 @@ def summary_lines(rows: Sequence[Comparison], outcome: RunOutcome, verbose: bool
 
 
 def md_cell(text: str) -> str:
-    """Escape what would break a GitHub-flavoured Markdown table cell."""
-    return text.replace("\\", "\\\\").replace("|", "\\|").replace("\n", " ")
+    """Any text as one literal GitHub-flavoured Markdown table cell (see :func:`markdown_text`)."""
+    return markdown_text(str(text))
 
 
-def _md_code(text: str) -> str:
-    return f"`{md_cell(text)}`" if "`" not in text else md_cell(text)
+#: Characters that keep a string out of a code span even though a code span shows its
+#: content literally: a backtick ends the span, a pipe splits a GFM table cell even inside
+#: one (GFM spec, "Tables" extension), and ``\\ < > & [ ] $`` are kept out so the raw
+#: Markdown never carries markup a less careful renderer could act on.
+_NOT_IN_CODE_SPAN = frozenset("`|\\<>&[]$")
+
+
+def md_name(text: str) -> str:
+    """A codec name or source spec for Markdown: a code span when plainly safe, else escaped.
+
+    A code span is used only for non-empty text of printable characters without
+    surrounding spaces and none of :data:`_NOT_IN_CODE_SPAN`; anything else is
+    shown as :func:`markdown_text`, which cannot form markup whatever it holds.
+    """
+    text = str(text)
+    if text and text == text.strip() and terminal_text(text) == text \
+            and not _NOT_IN_CODE_SPAN.intersection(text):
+        return f"`{text}`"
+    return markdown_text(text)
 
 
 def markdown_tables(rows: Sequence[Comparison], with_ledger: bool = True) -> str:
@@ -231,36 +406,48 @@ def markdown_tables(rows: Sequence[Comparison], with_ledger: bool = True) -> str
     out: list[str] = []
     for (codec, version), group in sorted(by_codec.items(),
                                           key=lambda kv: (kv[0][0], kv[0][1] or "")):
-        title = f"### Codec {_md_code(codec)}"
+        title = f"### Codec {md_name(codec)}"
         if version:
             title += f" (version {md_cell(version)})"
         out += [title, "", "| " + " | ".join(header) + " |", "| " + " | ".join(align) + " |"]
         for r in sorted(group, key=lambda r: r.key):
             m = r.case
-            cells = [_md_code(m.source), str(m.n), str(m.seed), _num(m.entropy),
-                     md_cell(_floor_cell(m)), _num(m.rate), _pct(m.efficiency)]
+            cells = [md_name(m.source), str(m.n), str(m.seed), _num(m.entropy),
+                     _floor_cell(m, markdown_text), _num(m.rate), _pct(m.efficiency)]
             if with_ledger:
-                cells.append(md_cell(delta_text(r)))
+                cells.append(delta_text(r))  # figures and verdict names only
             out.append("| " + " | ".join(cells) + " |")
         out.append("")
     return "\n".join(out)
 
 
 def markdown_report(rows: Sequence[Comparison], outcome: RunOutcome, title: str = TITLE) -> str:
-    """The release-notes report: title, caution, ledger tally, per-codec tables, stale list."""
+    """The release-notes report: title, caution, ledger tally, per-codec tables, stale list.
+
+    Cases a recording left out (their tests failed) and the run's problems follow.
+    Every user-supplied string is escaped (:func:`md_name`, :func:`markdown_text`).
+    """
     out = [f"## {title}", "", f"> {CAUTION}", ""]
-    if outcome.ledger_path is not None and not outcome.ledger_exists:
-        out += ["No ledger yet: every case is new.", ""]
-    elif outcome.ledger_path is not None:
-        verb = "Recorded into" if outcome.recorded else "Compared with"
-        out += [f"{verb} ledger `{outcome.ledger_path.name}`: {counts_text(outcome.counts)}.", ""]
+    strict = " (strict mode)" if outcome.strict else ""
+    if outcome.ledger_path is not None:
+        name = md_name(outcome.ledger_path.name)
+        if not outcome.ledger_exists and not outcome.recorded:
+            out += [f"No ledger {name} yet{strict}: every case is new.", ""]
+        else:
+            verb = "Recorded into" if outcome.recorded else "Compared with"
+            out += [f"{verb} ledger {name}{strict}: {counts_text(outcome.counts)}.", ""]
     if rows:
         out.append(markdown_tables(rows, with_ledger=outcome.ledger_path is not None))
     else:
         out += ["No case was measured.", ""]
+    if outcome.not_recorded:
+        out += ["Not recorded (their tests failed):", ""]
+        out += [f"- {markdown_text(label)}: {markdown_text(_first_line(why))}"
+                for label, why in outcome.not_recorded]
+        out.append("")
     if outcome.stale:
         out += ["Stale ledger entries (not measured by this full run):", ""]
-        out += [f"- {_md_code(e.codec)} on {_md_code(e.source)}, n={e.n}, seed={e.seed}"
+        out += [f"- {md_name(e.codec)} on {md_name(e.source)}, n={e.n}, seed={e.seed}"
                 for e in outcome.stale]
         out.append("")
     if outcome.problems:
@@ -296,24 +483,29 @@ def row_json(r: Comparison) -> dict[str, Any]:
 
 def json_report(rows: Sequence[Comparison], outcome: RunOutcome,
                 environment: Environment | None = None) -> dict[str, Any]:
-    """The versioned JSON report (builtin types only)."""
+    """The versioned JSON report (builtin types only, no non-finite float: see :func:`json_safe`).
+
+    Strings are kept raw: ``json.dumps`` escapes whatever they hold.
+    """
     env = environment or Environment.current()
     doc: dict[str, Any] = {
         "kind": REPORT_KIND, "schema": REPORT_SCHEMA_VERSION, "caution": CAUTION,
         "environment": env.to_json(),
         "cases": [row_json(r) for r in rows],
         "problems": list(outcome.problems),
+        "not_recorded": [{"case": label, "reason": why} for label, why in outcome.not_recorded],
     }
     if outcome.ledger_path is not None:
         doc["ledger"] = {
             "path": str(outcome.ledger_path), "exists": outcome.ledger_exists,
-            "slack": outcome.slack,
+            "slack": outcome.slack, "strict": outcome.strict,
             "recorded": outcome.recorded, "counts": dict(outcome.counts),
             "full_run": not outcome.partial_reasons,
             "partial_reasons": list(outcome.partial_reasons),
             "stale": [entry_json(e) for e in outcome.stale],
         }
-    return doc
+    safe: dict[str, Any] = json_safe(doc)
+    return safe
 
 
 # -- files ---------------------------------------------------------------------------
@@ -337,7 +529,8 @@ def write_report(path: Path, rows: Sequence[Comparison], outcome: RunOutcome) ->
     if report_format(path) == "md":
         text = markdown_report(rows, outcome)
     else:
-        text = json.dumps(json_report(rows, outcome), indent=2, sort_keys=True) + "\n"
+        text = json.dumps(json_report(rows, outcome), indent=2, sort_keys=True,
+                          allow_nan=False) + "\n"
     write_atomic(Path(path), text)
 
 
@@ -376,6 +569,8 @@ def write_plot(path: Path, rows: Iterable[Comparison]) -> None:
     under; Shannon/Huffman bound H ≤ L < H + 1). Right panel, when Bernoulli
     cases exist: rate against p with the binary-entropy curve h(p) and h(p) + 1.
     Uses the Agg canvas directly, so no pyplot state or GUI backend is touched.
+    Codec names reach the legend through :func:`plot_text` (no mathtext, no control
+    characters).
     """
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
@@ -399,7 +594,7 @@ def write_plot(path: Path, rows: Iterable[Comparison]) -> None:
     for i, codec in enumerate(codecs):
         mine = [m for m in cases if m.codec == codec]
         ax.scatter([m.entropy for m in mine], [m.rate for m in mine], s=28, color=f"C{i % 10}",
-                   marker=markers[i % len(markers)], label=codec, zorder=3)
+                   marker=markers[i % len(markers)], label=plot_text(codec), zorder=3)
     ax.set_xlabel("source entropy H (bits/symbol)")
     ax.set_ylabel("measured rate (bits/symbol)")
     ax.set_title("Rate against entropy")
@@ -418,7 +613,7 @@ def write_plot(path: Path, rows: Iterable[Comparison]) -> None:
             if mine:
                 ax.plot([float(m.source_params["p"]) for m in mine], [m.rate for m in mine],
                         color=f"C{i % 10}", marker=markers[i % len(markers)], ms=5, lw=0.8,
-                        label=codec)
+                        label=plot_text(codec))
         ax.set_xlabel("Bernoulli parameter p = P(1)")
         ax.set_ylabel("measured rate (bits/symbol)")
         ax.set_title("Bernoulli sweep")

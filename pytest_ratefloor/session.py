@@ -27,8 +27,9 @@ from typing import Any
 import pytest
 
 from pytest_ratefloor import report
-from pytest_ratefloor.errors import NewerLedgerError, UnreadableLedgerError
-from pytest_ratefloor.ledger import UNREADABLE_SUFFIX, Ledger, keep_copy
+from pytest_ratefloor.errors import LedgerError, NewerLedgerError, UnreadableLedgerError
+from pytest_ratefloor.ledger import UNREADABLE_SUFFIX, Ledger, clean_stale_temporaries
+from pytest_ratefloor.ledger import record as record_ledger
 from pytest_ratefloor.measurement import Measurement
 from pytest_ratefloor.settings import Settings, marker_slack, read_settings
 from pytest_ratefloor.verdicts import Comparison, LedgerRun
@@ -61,10 +62,18 @@ def _open_ledger(settings: Settings, hint: str) -> tuple[Ledger, str | None]:
 
     A corrupt ledger stops the run unless the user records, in which case it
     is replaced (a copy is kept beside it); the second item then says why. A
-    newer-schema ledger always stops it.
+    newer-schema ledger always stops it. In strict mode a missing ledger
+    stops the run too, unless recording.
     """
     try:
-        return Ledger.load(settings.ledger_path), None
+        ledger = Ledger.load(settings.ledger_path)
+        if settings.strict and not settings.record and not ledger.exists:
+            raise pytest.UsageError(
+                f"ratefloor strict mode: no ledger at {settings.ledger_path}; every case would "
+                f"pass as new. Record one on the release branch ({hint}) and commit it, or "
+                "name the committed one with --ratefloor-ledger / ini ratefloor_ledger"
+            )
+        return ledger, None
     except NewerLedgerError as exc:
         raise pytest.UsageError(f"ratefloor: {exc}") from None
     except UnreadableLedgerError as exc:
@@ -89,6 +98,9 @@ class GateSession:
     lost_workers: list[str] = field(default_factory=list)
     #: items deselected in this process (-k, -m, --lf, other plugins)
     deselected: int = 0
+    #: node ids whose test call passed, and why the others did not (from the test reports)
+    passed: set[str] = field(default_factory=set)
+    not_passed: dict[str, str] = field(default_factory=dict)
     #: what the terminal summary prints, decided in :meth:`finish`
     rows: list[Comparison] = field(default_factory=list)
     outcome: report.RunOutcome | None = None
@@ -102,8 +114,10 @@ class GateSession:
             hint += f" --ratefloor-ledger {shlex.quote(str(settings.ledger_path))}"
         baseline, replacing = _open_ledger(settings, hint)
         run = LedgerRun(baseline=baseline, slack=settings.slack, record=settings.record,
-                        record_hint=hint)
+                        record_hint=hint, strict=settings.strict)
         session = cls(settings=settings, run=run, replacing_unreadable=replacing)
+        if not is_worker(config):
+            clean_stale_temporaries(settings.ledger_path)  # left by a writer that was killed
         if replacing and not is_worker(config):
             config.issue_config_time_warning(
                 pytest.PytestWarning(
@@ -123,13 +137,29 @@ class GateSession:
         and ``ratefloor.ledger_delta_bits`` (str/int) before a regression is raised.
         """
         __tracebackhide__ = True
-        comparison = self.run.observe(m, slack=marker_slack(item))
+        comparison = self.run.observe(m, slack=marker_slack(item), origin=item.nodeid)
         item.user_properties.append(("ratefloor.ledger_verdict", str(comparison.status)))
         if comparison.ledger_bits is not None and comparison.delta_bits is not None:
             item.user_properties.append(("ratefloor.ledger_bits", int(comparison.ledger_bits)))
             item.user_properties.append(("ratefloor.ledger_delta_bits",
                                          int(comparison.delta_bits)))
         self.run.enforce(comparison, nodeid=command_line_id(item))
+
+    def test_report(self, report: pytest.TestReport) -> None:
+        """Note how each test ended (a recording writes only cases whose tests passed)."""
+        nodeid = report.nodeid
+        if report.failed:
+            phase = "" if report.when == "call" else f" in {report.when}"
+            self.not_passed.setdefault(nodeid, f"its test failed{phase}")
+        elif report.when == "call":
+            if report.passed:
+                self.passed.add(nodeid)
+            elif hasattr(report, "wasxfail"):
+                self.not_passed.setdefault(nodeid, "its test xfailed")
+            else:
+                self.not_passed.setdefault(nodeid, "its test was skipped")
+        elif report.skipped:
+            self.not_passed.setdefault(nodeid, "its test was skipped")
 
     def worker_down(self, node: Any, error: object) -> None:
         """xdist controller: take a finished worker's measurements, or note that they were lost."""
@@ -204,24 +234,36 @@ class GateSession:
                 "reports are incomplete"
             )
         problems += list(dict.fromkeys(run.conflicts))
+        stale = run.stale()
+        if settings.strict and stale and not settings.record:
+            listed = "; ".join(e.key.label for e in stale[:20])
+            more = f"; and {len(stale) - 20} more" if len(stale) > 20 else ""
+            problems.append(
+                f"strict mode: {len(stale)} ledger entr{'y' if len(stale) == 1 else 'ies'} "
+                f"no test measured in this full run (stale): {listed}{more}. Remove them "
+                "from the ledger on the release branch, or restore the tests that measured them"
+            )
         recorded = False
+        not_recorded: list[tuple[str, str]] = []
         if settings.record:
             if problems:
                 problems.append(f"ledger {settings.ledger_path} not written: the run's data is "
                                 "incomplete or inconsistent (see above); fix and record again")
             elif run.comparisons or self.replacing_unreadable:
+                to_write, not_recorded = run.recordable(self.passed, self.not_passed)
                 try:
-                    if self.replacing_unreadable and settings.ledger_path.exists():
-                        keep_copy(settings.ledger_path)
-                    run.recorded().write()
-                    recorded = True
-                except OSError as exc:
+                    if to_write or self.replacing_unreadable:
+                        record_ledger(settings.ledger_path, to_write,
+                                      replace_unreadable=bool(self.replacing_unreadable))
+                        recorded = True
+                except (OSError, LedgerError) as exc:
                     problems.append(f"ledger {settings.ledger_path} not written: {exc}")
         rows = run.sorted_comparisons()
         outcome = report.RunOutcome(
             ledger_path=settings.ledger_path, ledger_exists=run.baseline.exists or recorded,
-            slack=settings.slack, recorded=recorded, counts=run.counts(), stale=run.stale(),
+            slack=settings.slack, recorded=recorded, counts=run.counts(), stale=stale,
             partial_reasons=tuple(run.partial_reasons), problems=tuple(problems),
+            strict=settings.strict, not_recorded=tuple(not_recorded),
         )
         extra: list[str] = []
         if settings.report_path is not None:

@@ -10,6 +10,8 @@ from the ini file to the ini file's folder.
 
 from __future__ import annotations
 
+import os
+import stat
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -18,12 +20,28 @@ import pytest
 from pytest_ratefloor import report, validation
 from pytest_ratefloor.ledger import DEFAULT_LEDGER_NAME
 
-__all__ = ["MARKER", "Settings", "add_options", "marker_slack", "read_settings", "usage_slack"]
+__all__ = [
+    "MARKER",
+    "PROJECT_MARKERS",
+    "Settings",
+    "add_options",
+    "check_marker",
+    "default_ledger_path",
+    "marker_slack",
+    "read_settings",
+    "usage_slack",
+]
 
 MARKER = (
     "ratefloor(slack=REL): compare this test's measurements with the ledger allowing "
     "a relative increase of REL (overrides --ratefloor-slack / ratefloor_slack)"
 )
+#: The keyword arguments the marker takes.
+MARKER_KEYWORDS = ("slack",)
+#: The environment variable naming the CI job summary file the report is appended to.
+STEP_SUMMARY_ENV = "GITHUB_STEP_SUMMARY"
+#: What marks the top folder of a project when pytest found no configuration file.
+PROJECT_MARKERS = (".git", ".hg", "pyproject.toml", "setup.py", "setup.cfg")
 
 
 @dataclass(frozen=True)
@@ -37,6 +55,10 @@ class Settings:
     slack: float
     report_path: Path | None
     plot_path: Path | None
+    #: CI mode: a missing ledger, a case without an entry or a stale entry fails
+    strict: bool = False
+    #: run the codec of each check in a forked child (see pytest_ratefloor.isolation)
+    isolate: bool = True
 
 
 def add_options(parser: pytest.Parser) -> None:
@@ -55,6 +77,11 @@ def add_options(parser: pytest.Parser) -> None:
         help="allowed relative increase in bits over the ledger (default 0)",
     )
     group.addoption(
+        "--ratefloor-strict", dest="ratefloor_strict", action="store_true", default=None,
+        help="CI mode: fail on a missing or unreadable ledger, on a case with no ledger "
+             "entry and (in a full run) on ledger entries no test measured",
+    )
+    group.addoption(
         "--ratefloor-report", dest="ratefloor_report", default=None, metavar="PATH",
         help="write the efficiency report; .md (Markdown) or .json",
     )
@@ -69,6 +96,11 @@ def add_options(parser: pytest.Parser) -> None:
     parser.addini("ratefloor_report", "efficiency report path (.md or .json)",
                   type="string", default="")
     parser.addini("ratefloor_plot", "plot path (.png, .svg, .pdf)", type="string", default="")
+    parser.addini("ratefloor_strict", "CI mode (see --ratefloor-strict)", type="bool",
+                  default=False)
+    parser.addini("ratefloor_isolate", "run each check's codec in a forked child process so "
+                  "it cannot end or stall the session (default true)", type="bool",
+                  default=True)
 
 
 def usage_slack(value: object, origin: str) -> float:
@@ -79,12 +111,100 @@ def usage_slack(value: object, origin: str) -> float:
         raise pytest.UsageError(str(exc)) from None
 
 
+def check_marker(item: pytest.Item) -> None:
+    """Refuse a ``ratefloor`` marker with positional or unknown arguments (``pytest.UsageError``).
+
+    Called for every collected test, so ``@pytest.mark.ratefloor(0.5)`` or a
+    misspelt ``slak=`` stops the run before any test instead of being ignored.
+    """
+    for marker in item.iter_markers("ratefloor"):
+        where = f"{item.nodeid}: @pytest.mark.ratefloor"
+        if marker.args:
+            raise pytest.UsageError(
+                f"{where} takes keyword arguments only (slack=REL), got positional "
+                f"{', '.join(repr(a) for a in marker.args)}"
+            )
+        unknown = sorted(set(marker.kwargs) - set(MARKER_KEYWORDS))
+        if unknown:
+            raise pytest.UsageError(
+                f"{where} got unknown keyword(s) {', '.join(unknown)}; it takes "
+                f"{', '.join(k + '=' for k in MARKER_KEYWORDS)}"
+            )
+        if "slack" in marker.kwargs:
+            usage_slack(marker.kwargs["slack"], f"{where}(slack=...)")
+
+
 def marker_slack(item: pytest.Item) -> float | None:
     """The ``@pytest.mark.ratefloor(slack=...)`` of a test, if it has one."""
     marker = item.get_closest_marker("ratefloor")
     if marker is None or "slack" not in marker.kwargs:
         return None
     return usage_slack(marker.kwargs["slack"], f"{item.nodeid}: ratefloor(slack=...)")
+
+
+def default_ledger_path(rootpath: Path, configured: bool) -> Path:
+    """Where the ledger is when no path is given, the same from whichever folder pytest starts.
+
+    With a pytest configuration file the rootdir is the project's top: the
+    ledger is there. Without one, pytest's rootdir is the folder the run
+    started from (``cd tests && pytest`` gives ``tests``), so the ledger is
+    looked for upwards from it: the first folder that holds one wins, and
+    the search stops at the project's top folder (one holding any of
+    :data:`PROJECT_MARKERS`), where a new ledger goes.
+    """
+    if configured:
+        return rootpath / DEFAULT_LEDGER_NAME
+    for folder in (rootpath, *rootpath.parents):
+        candidate = folder / DEFAULT_LEDGER_NAME
+        if candidate.exists() or candidate.is_symlink():
+            return candidate
+        if any((folder / name).exists() for name in PROJECT_MARKERS):
+            return candidate
+    return rootpath / DEFAULT_LEDGER_NAME
+
+
+def _ledger_file(path: Path, origin: str, text: str) -> Path:
+    """The ledger path must name a file: not a folder, FIFO or device (``pytest.UsageError``).
+
+    ``text`` is the value as the user wrote it (a trailing slash means a folder).
+    """
+    if text.endswith(("/", os.sep)) or path.is_dir():
+        raise pytest.UsageError(
+            f"{origin} = {text!r} names a folder; give the ledger file's path, e.g. "
+            f"{(path / DEFAULT_LEDGER_NAME).as_posix()}"
+        )
+    try:
+        mode = path.stat().st_mode
+    except OSError:
+        return path  # missing (a first recording creates it), or a dangling link
+    if not stat.S_ISREG(mode):
+        raise pytest.UsageError(
+            f"{origin} = {text!r} is not a regular file (a FIFO, device or socket); "
+            "the ledger must be a JSON file"
+        )
+    return path
+
+
+def _distinct_outputs(named: dict[str, Path | None]) -> None:
+    """No two of the ledger, the report, the plot and the job summary may be one file."""
+    seen: dict[str, str] = {}
+    for name, path in named.items():
+        if path is None:
+            continue
+        real = os.path.realpath(path)
+        if real in seen:
+            raise pytest.UsageError(
+                f"{name} {str(path)!r} is the same file as the {seen[real]}; nothing was "
+                "written (the ledger is unchanged): give each output its own path"
+            )
+        seen[real] = name
+
+
+def _bool_ini(config: pytest.Config, name: str) -> bool:
+    try:
+        return bool(config.getini(name))
+    except ValueError as exc:
+        raise pytest.UsageError(f"ini key {name}: {exc}") from None
 
 
 def _path_setting(config: pytest.Config, option: str, ini: str) -> tuple[Path | None, bool]:
@@ -118,11 +238,29 @@ def read_settings(config: pytest.Config) -> Settings:
             report.check_plot_path(plot_path)
     except (ValueError, RuntimeError) as exc:
         raise pytest.UsageError(str(exc)) from None
+    if ledger_path is None:
+        ledger_path = default_ledger_path(config.rootpath, config.inipath is not None)
+        ledger_path = _ledger_file(ledger_path, "the ledger", str(ledger_path))
+    else:
+        raw = config.getoption("ratefloor_ledger") if from_cli else config.getini(
+            "ratefloor_ledger")
+        ledger_path = _ledger_file(
+            ledger_path, "--ratefloor-ledger" if from_cli else "ini key ratefloor_ledger",
+            str(raw).strip())
+    summary = os.environ.get(STEP_SUMMARY_ENV, "").strip()
+    _distinct_outputs({
+        "ledger": ledger_path, "report": report_path, "plot": plot_path,
+        f"job summary (${STEP_SUMMARY_ENV})": Path(summary) if summary else None,
+    })
+    cli_strict = config.getoption("ratefloor_strict")
     return Settings(
-        ledger_path=ledger_path or config.rootpath / DEFAULT_LEDGER_NAME,
+        ledger_path=ledger_path,
         ledger_from_cli=from_cli,
         record=bool(config.getoption("ratefloor_record")),
         slack=slack,
         report_path=report_path,
         plot_path=plot_path,
+        strict=bool(cli_strict) if cli_strict is not None else _bool_ini(config,
+                                                                          "ratefloor_strict"),
+        isolate=_bool_ini(config, "ratefloor_isolate"),
     )

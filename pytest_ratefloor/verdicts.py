@@ -20,7 +20,12 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Literal, get_args
 
-from pytest_ratefloor.errors import LedgerError, RegressionFailure, SampleMismatchError
+from pytest_ratefloor.errors import (
+    LedgerError,
+    NewCaseFailure,
+    RegressionFailure,
+    SampleMismatchError,
+)
 from pytest_ratefloor.ledger import Ledger
 from pytest_ratefloor.measurement import CaseKey, Measurement
 
@@ -210,6 +215,26 @@ def resampled_message(comparison: Comparison, ledger_path: Path, record_hint: st
     )
 
 
+def new_case_message(m: Measurement, ledger: Ledger, record_hint: str) -> str:
+    """The text of a NewCaseFailure, naming ledger entries that look like this case."""
+    key = m.key
+    near = [k for k in sorted(ledger.entries)
+            if (k.codec == key.codec and k.source == key.source)
+            or (k.source, k.n, k.seed) == (key.source, key.n, key.seed)]
+    lines = [
+        f"new case: {key.phrase} has no entry in the ledger, and strict mode gates every "
+        "case: record it on the release branch",
+        f"  ledger: {ledger.path}",
+    ]
+    if near:
+        shown = ", ".join(f"codec {k.codec!r} n={k.n} seed={k.seed}" for k in near[:4])
+        more = f" and {len(near) - 4} more" if len(near) > 4 else ""
+        lines.append(f"  the ledger holds {key.source} as {shown}{more}: did n, the seed or "
+                     "the codec name change? (that would hide a regression)")
+    lines.append(f"  to add it: {record_hint}")
+    return "\n".join(lines)
+
+
 def conflict_message(first: Measurement, second: Measurement) -> str:
     """Two measurements of the same ledger key disagree within one run."""
     return (
@@ -235,7 +260,11 @@ class LedgerRun:
     slack: float = 0.0
     record: bool = False
     record_hint: str = "pytest --ratefloor-record"
+    #: strict mode: a case with no ledger entry fails (see :meth:`enforce`)
+    strict: bool = False
     comparisons: dict[CaseKey, Comparison] = field(default_factory=dict)
+    #: the tests (node ids) that measured each case
+    origins: dict[CaseKey, set[str]] = field(default_factory=dict)
     conflicts: list[str] = field(default_factory=list)
     #: why this run does not cover the whole suite (empty: a full run)
     partial_reasons: list[str] = field(default_factory=list)
@@ -250,8 +279,12 @@ class LedgerRun:
         comparison = self.comparisons.get(key)
         return self.slack if comparison is None else comparison.slack
 
-    def observe(self, m: Measurement, slack: float | None = None) -> Comparison:
+    def observe(self, m: Measurement, slack: float | None = None,
+                origin: str | None = None) -> Comparison:
         """Compare ``m`` with its ledger entry, keep the comparison and return it.
+
+        ``origin`` is the node id of the test that measured it (a recording
+        writes a case only if every test that measured it passed).
 
         :raises LedgerError: an earlier measurement of the same case in this run
             had other bits or another sample (also kept in :attr:`conflicts`).
@@ -263,21 +296,29 @@ class LedgerRun:
             message = conflict_message(earlier.current, m)
             self.conflicts.append(message)
             raise LedgerError(message)
+        if origin is not None:
+            self.origins.setdefault(m.key, set()).add(origin)
         comparison = compare(m, self.baseline.entries.get(m.key),
                              self.slack if slack is None else slack)
         self.comparisons[m.key] = comparison
         return comparison
 
     def enforce(self, comparison: Comparison, nodeid: str | None = None) -> None:
-        """Raise for a regression or a resampled case, unless recording.
+        """Raise for a regression or a resampled case (and in strict mode a new one),
+        unless recording.
 
         :raises RegressionFailure: more bits than the ledger allows.
         :raises SampleMismatchError: the ledger entry was measured on another sample.
+        :raises NewCaseFailure: strict mode, and the ledger has no entry for the case.
         """
         __tracebackhide__ = True
-        if self.record or not comparison.fails:
+        if self.record:
             return
         hint = self.record_hint + ("" if nodeid is None else " " + shlex.quote(nodeid))
+        if self.strict and comparison.status == "new" and comparison.current is not None:
+            raise NewCaseFailure(new_case_message(comparison.current, self.baseline, hint))
+        if not comparison.fails:
+            return
         if comparison.status == "regressed":
             raise RegressionFailure(regression_message(comparison, self.baseline.path, hint))
         raise SampleMismatchError(resampled_message(comparison, self.baseline.path, hint))
@@ -286,7 +327,7 @@ class LedgerRun:
               nodeid: str | None = None) -> Comparison:
         """:meth:`observe` then :meth:`enforce`; returns the comparison."""
         __tracebackhide__ = True
-        comparison = self.observe(m, slack)
+        comparison = self.observe(m, slack, nodeid)
         self.enforce(comparison, nodeid)
         return comparison
 
@@ -294,8 +335,9 @@ class LedgerRun:
         """What an xdist worker sends home: builtin types only (execnet rejects the rest)."""
         return {
             "measurements": [
-                {"case": c.current.to_record(), "slack": float(c.slack)}
-                for c in self.comparisons.values() if c.current is not None
+                {"case": c.current.to_record(), "slack": float(c.slack),
+                 "origins": sorted(self.origins.get(k, ()))}
+                for k, c in self.comparisons.items() if c.current is not None
             ],
             "partial": [str(r) for r in self.partial_reasons],
             "conflicts": [str(c) for c in self.conflicts],
@@ -305,8 +347,10 @@ class LedgerRun:
         """Merge a worker's :meth:`payload`; conflicts between workers are collected."""
         for item in payload.get("measurements", []):
             m = Measurement.from_record(dict(item["case"]))
+            origins = [str(o) for o in item.get("origins", [])]
             with contextlib.suppress(LedgerError):  # kept in self.conflicts
                 self.observe(m, float(item["slack"]))
+            self.origins.setdefault(m.key, set()).update(origins)
         for message in payload.get("conflicts", []):
             if message not in self.conflicts:
                 self.conflicts.append(message)
@@ -334,6 +378,33 @@ class LedgerRun:
         out = counts_of(self.comparisons.values())
         out["stale"] = len(self.stale())
         return out
+
+    def recordable(self, passed: set[str],
+                   failed: Mapping[str, str]) -> tuple[list[Measurement], list[tuple[str, str]]]:
+        """Split this run's cases into those a recording writes and those it skips.
+
+        A case is written only when every test that measured it passed
+        (``passed`` holds node ids whose call passed, ``failed`` maps node ids
+        to why they did not pass). A skipped case keeps its ledger entry, or
+        gets none. Returns ``(to write, [(case label, reason), ...])``.
+        """
+        write: list[Measurement] = []
+        skipped: list[tuple[str, str]] = []
+        for key in sorted(self.comparisons):
+            m = self.comparisons[key].current
+            if m is None:
+                continue
+            origins = self.origins.get(key, set())
+            reasons = [f"{o}: {failed[o]}" for o in sorted(origins) if o in failed]
+            reasons += [f"{o}: did not finish" for o in sorted(origins)
+                        if o not in failed and o not in passed]
+            if not origins:
+                reasons.append("measured outside a test")
+            if reasons:
+                skipped.append((key.label, "; ".join(reasons)))
+            else:
+                write.append(m)
+        return write, skipped
 
     def recorded(self) -> Ledger:
         """The ledger a recording writes: the baseline merged with this run."""

@@ -14,7 +14,7 @@ from bitarray import bitarray
 from pytest_ratefloor import sources
 from pytest_ratefloor.checks import assert_rate, assert_roundtrip, check, measure
 from pytest_ratefloor.codecs import ByteCodec, StreamCodec
-from pytest_ratefloor.errors import CodecMisbehaviour, RoundTripFailure
+from pytest_ratefloor.errors import CodecMisbehaviour, CodecTraceback, RoundTripFailure
 
 N = 1000
 SOURCE = sources.uniform(16)
@@ -44,22 +44,36 @@ def test_a_correct_codec_passes() -> None:
     assert_roundtrip(stream(name="good"), SOURCE, n=N, seed=3)
 
 
-def test_encoder_that_raises_keeps_the_original_as_cause() -> None:
+def _same_exception(cause: BaseException | None, original: BaseException, isolate: bool) -> None:
+    """In process the cause is the codec's very exception; from the child process it is a
+    copy (same type and text) whose own cause holds the codec's traceback as text."""
+    if not isolate:
+        assert cause is original
+        return
+    assert type(cause) is type(original)
+    assert cause.args == original.args
+    assert isinstance(cause.__cause__, CodecTraceback)
+    assert "in fn\n    raise exc" in cause.__cause__.text  # the codec's own frame
+
+
+@pytest.mark.parametrize("isolate", [True, False])
+def test_encoder_that_raises_keeps_the_original_as_cause(isolate: bool) -> None:
     original = ZeroDivisionError("table of size 0")
     with pytest.raises(CodecMisbehaviour) as info:
-        assert_roundtrip(stream(encode=_raise(original)), SOURCE, n=N, seed=3)
+        assert_roundtrip(stream(encode=_raise(original)), SOURCE, n=N, seed=3, isolate=isolate)
     text = str(info.value)
     assert text.startswith("codec 'bad' misbehaved on the sample (1000 symbols): "
                            "the encoder raised ZeroDivisionError: table of size 0")
     assert WHERE in text
-    assert info.value.__cause__ is original
+    _same_exception(info.value.__cause__, original, isolate)
 
 
-def test_decoder_that_raises_keeps_the_original_as_cause() -> None:
+@pytest.mark.parametrize("isolate", [True, False])
+def test_decoder_that_raises_keeps_the_original_as_cause(isolate: bool) -> None:
     original = IndexError("list index out of range")
     with pytest.raises(CodecMisbehaviour, match="the decoder raised IndexError") as info:
-        assert_roundtrip(stream(decode=_raise(original)), SOURCE, n=N, seed=3)
-    assert info.value.__cause__ is original
+        assert_roundtrip(stream(decode=_raise(original)), SOURCE, n=N, seed=3, isolate=isolate)
+    _same_exception(info.value.__cause__, original, isolate)
     assert WHERE in str(info.value)
 
 

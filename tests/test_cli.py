@@ -81,18 +81,30 @@ def test_diff_counts_every_kind_and_exits_1_on_regression(
     old, new = two_ledgers
     assert main(["diff", str(old), str(new)]) == 1
     out = capsys.readouterr().out
-    assert out.splitlines()[-1] == (
+    assert out.splitlines()[-2] == (
         "cases: 1 regressed, 0 resampled, 0 within-slack, 1 improved, 1 new, 1 unchanged, "
         "1 dropped"
+    )
+    assert out.splitlines()[-1] == (
+        "FAILED: 1 regressed, 1 dropped (--allow-dropped accepts dropped cases)"
     )
     line = next(x for x in out.splitlines() if "geometric(p=0.5)" in x)
     assert line.split()[-5:] == ["2,000", "2,010", "+10", "+0.500%", "regressed"]
     line = next(x for x in out.splitlines() if "zipf" in x)
     assert line.split()[-5:] == ["2,600", "–", "–", "–", "dropped"]
 
-    # within the slack it is not a regression
-    assert main(["diff", str(old), str(new), "--slack", "0.01"]) == 0
-    assert "1 within-slack" in capsys.readouterr().out
+    # within the slack it is not a regression, but a dropped case still fails the diff
+    assert main(["diff", str(old), str(new), "--slack", "0.01"]) == 1
+    out = capsys.readouterr().out
+    assert "1 within-slack" in out
+    assert out.splitlines()[-1] == "FAILED: 1 dropped (--allow-dropped accepts dropped cases)"
+    # ... unless dropped cases are accepted; they are still listed
+    assert main(["diff", str(old), str(new), "--slack", "0.01", "--allow-dropped"]) == 0
+    out = capsys.readouterr().out
+    assert any("zipf" in line and line.endswith("dropped") for line in out.splitlines())
+    assert out.splitlines()[-1] == (
+        "OK: no case regressed or was resampled; 1 dropped, accepted by --allow-dropped"
+    )
 
 
 def test_diff_markdown_is_a_table(two_ledgers: tuple[Path, Path],
@@ -108,7 +120,9 @@ def test_diff_of_identical_ledgers(two_ledgers: tuple[Path, Path],
                                    capsys: pytest.CaptureFixture[str]) -> None:
     old, _ = two_ledgers
     assert main(["diff", str(old), str(old)]) == 0
-    assert "0 regressed" in capsys.readouterr().out
+    out = capsys.readouterr().out
+    assert "0 regressed" in out
+    assert out.splitlines()[-1] == "OK: no case regressed, was resampled or dropped"
 
 
 @pytest.mark.parametrize(

@@ -105,7 +105,8 @@ def test_corruption_option_reuses_the_round_trip(monkeypatch: pytest.MonkeyPatch
     monkeypatch.setattr(corruption, "survive_damage", fake)
     source = sources.uniform(256)
     harness = RateFloorHarness(_node(), save_dir=lambda: tmp_path)
-    harness.check(codec, source, n=50_000, seed=7, rel=0.05, edge_cases=False, corruption=True)
+    harness.check(codec, source, n=50_000, seed=7, rel=0.05, edge_cases=False, corruption=True,
+                  isolate=False)  # in process: the counters above must see the calls
     bound, sample, encoded, kw = calls[0]
     assert bound.name == "zlib-9"
     assert bound.symbol == "u8"  # bound to the source: "auto" resolved
@@ -136,7 +137,7 @@ def test_corruption_on_a_short_sample_reuses_its_encoding(monkeypatch: pytest.Mo
 
     codec = ByteCodec(counting_compress, zlib.decompress, name="zlib-9")
     m = RateFloorHarness().check(codec, sources.uniform(256), n=N, rel=0.05, edge_cases=False,
-                                 corruption=True)
+                                 corruption=True, isolate=False)
     assert encodes == [N, N, N]  # the sample once, the contract slice (the whole sample) twice
     assert seen[0].bits == m.bits  # the very encoding that was measured
 

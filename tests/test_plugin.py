@@ -241,8 +241,11 @@ def test_marker_slack(pytester: pytest.Pytester) -> None:
     make_project(pytester, TESTS.replace(
         "def test_alpha", "import pytest\n\n@pytest.mark.ratefloor(slack='lots')\ndef test_alpha"))
     result = run(pytester)
-    result.stdout.fnmatch_lines(
-        ["*test_alpha: ratefloor(slack=...) must be a finite number >= 0*got 'lots'*"]
+    # refused at collection, before any test runs (a usage error, exit status 4)
+    assert result.ret == pytest.ExitCode.USAGE_ERROR
+    result.stderr.fnmatch_lines(
+        ["*test_alpha: @pytest.mark.ratefloor(slack=...) must be a finite number >= 0*"
+         "got 'lots'*"]
     )
 
 

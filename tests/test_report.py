@@ -107,7 +107,9 @@ def test_markdown_tables_are_well_formed(tmp_path: Path) -> None:
         assert width == 8
         assert all(len(_md_cells(row)) == width for row in table), table
         assert all(re.fullmatch(r"-{3,}:?", c.strip()) for c in _md_cells(table[1]))
-    assert "### Codec `pair\\|coder` (version 1.2)" in text
+    # a pipe keeps a name out of a code span (GFM splits cells even there): escaped text
+    assert "### Codec pair\\|coder (version 1.2)" in text
+    assert "### Codec `bytes`" in text  # a plainly safe name keeps its code span
     assert "| `uniform(k=256)` | 10000 | 0 | 8.0000 | 8.0000 | 8.0000 | 100.00% |" in text
     assert "Stale ledger entries" in text
     assert "`gone`" in text
@@ -249,3 +251,102 @@ def test_plot_needs_matplotlib(monkeypatch: pytest.MonkeyPatch) -> None:
         report.check_plot_path(Path("p.png"))
     with pytest.raises(ValueError, match=r"unknown suffix '\.gif'"):
         report.check_plot_path(Path("p.gif"))
+
+
+# -- the ledger line, strict mode, cases a recording left out ---------------------------
+
+
+def test_the_summary_always_names_the_ledger(tmp_path: Path) -> None:
+    rows, outcome = sample_rows(tmp_path)
+    path = str(outcome.ledger_path)
+    same = [compare(r.case, r.case.recorded()) for r in rows]
+    counts = {"unchanged": len(same)}
+    plain = RunOutcome(ledger_path=outcome.ledger_path, counts=counts)
+    for verbose, quiet in ((False, False), (True, False), (False, True)):
+        lines = texts(report.summary_lines(same, plain, verbose=verbose, quiet=quiet))
+        assert sum(path in line for line in lines) == 1, lines
+    # quiet and nothing changed: one line, the ledger's, and nothing else
+    assert texts(report.summary_lines(same, plain, quiet=True)) == [
+        f"ledger compared with {path}: 0 regressed, 0 improved, 0 new, 4 unchanged"
+    ]
+    # no ledger yet, quiet or not
+    missing = RunOutcome(ledger_path=outcome.ledger_path, ledger_exists=False,
+                         counts={"new": len(rows)})
+    for quiet in (False, True):
+        lines = texts(report.summary_lines(rows, missing, quiet=quiet))
+        assert f"no ledger at {path} yet: every case is new; create it with: " \
+               "pytest --ratefloor-record" in lines
+
+
+def test_strict_mode_is_shown(tmp_path: Path) -> None:
+    rows, outcome = sample_rows(tmp_path)
+    strict = RunOutcome(**{**outcome.__dict__, "strict": True})
+    tally = next(line for line in texts(report.summary_lines(rows, strict))
+                 if line.startswith("ledger compared with"))
+    assert "slack 1%, strict mode:" in tally
+    assert "strict mode" not in "\n".join(texts(report.summary_lines(rows, outcome)))
+    assert "(strict mode)" in report.markdown_report(rows, strict)
+    assert report.json_report(rows, strict)["ledger"]["strict"] is True
+    assert report.json_report(rows, outcome)["ledger"]["strict"] is False
+
+
+def _left_out(count: int) -> tuple[tuple[str, str], ...]:
+    return tuple((f"codec{i} | uniform(k=2) | n=10 | seed=0", "RateFailure: too many bits")
+                 for i in range(count))
+
+
+def test_not_recorded_cases_are_listed_and_capped(tmp_path: Path) -> None:
+    rows, outcome = sample_rows(tmp_path)
+    left = RunOutcome(**{**outcome.__dict__, "recorded": True, "not_recorded": _left_out(25)})
+    lines = report.summary_lines(rows, left)
+    text = texts(lines)
+    start = text.index(report.NOT_RECORDED_HEADING)
+    assert lines[start].colour == "yellow"
+    listed_lines = text[start + 1:start + 1 + report.NOT_RECORDED_SHOWN]
+    assert listed_lines[0] == "  codec0 | uniform(k=2) | n=10 | seed=0: RateFailure: too many bits"
+    assert all(line.startswith("  codec") for line in listed_lines)
+    assert text[start + 1 + report.NOT_RECORDED_SHOWN] == "  ... and 5 more (-v lists all)"
+    verbose = texts(report.summary_lines(rows, left, verbose=True))
+    assert sum(line.startswith("  codec") for line in verbose) == 25
+    quiet = texts(report.summary_lines(rows, left, quiet=True))
+    assert sum(line.startswith("  codec") for line in quiet) == 5
+    assert "  ... and 20 more (-v lists all)" in quiet
+    # the ledger line says the run was recorded, and the tally deserves a look
+    tally = next(line for line in lines if line.text.startswith("ledger recorded into"))
+    assert tally.colour == "yellow"
+
+    md = report.markdown_report(rows, left)
+    assert "Not recorded (their tests failed):" in md
+    assert md.count("- codec") == 25
+    doc = report.json_report(rows, left)
+    assert doc["not_recorded"][0] == {"case": "codec0 | uniform(k=2) | n=10 | seed=0",
+                                      "reason": "RateFailure: too many bits"}
+    assert len(doc["not_recorded"]) == 25
+    assert report.json_report(rows, outcome)["not_recorded"] == []
+
+
+def test_runoutcome_keeps_its_positional_fields() -> None:
+    outcome = RunOutcome(Path("l.json"), True, 0.01, False, {"new": 1}, (), (), ("p",))
+    assert outcome.problems == ("p",)
+    assert outcome.strict is False
+    assert outcome.not_recorded == ()
+
+
+def test_json_report_has_no_nan_or_infinity(tmp_path: Path) -> None:
+    m = Measurement(codec="c", source="s", n=10, seed=0, bits=0, entropy=float("nan"),
+                    floor="entropy", floor_bits=5.0, fingerprint="",
+                    source_params={"p": float("inf")})
+    row = listed(m)
+    assert math.isinf(row.case.efficiency)
+    path = tmp_path / "r.json"
+    report.write_report(path, [row], RunOutcome(ledger_path=tmp_path / "l.json",
+                                                slack=float("inf")))
+
+    def refuse(name: str) -> None:
+        raise AssertionError(name)
+
+    doc = json.loads(path.read_text(), parse_constant=refuse)
+    assert doc["cases"][0]["efficiency"] is None
+    assert doc["cases"][0]["entropy"] is None
+    assert doc["cases"][0]["source_params"] == {"p": None}
+    assert doc["ledger"]["slack"] is None

@@ -24,7 +24,7 @@ import numpy as np
 
 from pytest_ratefloor import validation
 from pytest_ratefloor.codecs import Codec, CodecContractError, Encoded, as_codec
-from pytest_ratefloor.corruption.replay import replay_statement, save_damaged, stem_for
+from pytest_ratefloor.corruption.replay import replay_lines, save_damaged, stem_for
 from pytest_ratefloor.corruption.schedule import corruption_schedule
 from pytest_ratefloor.corruption.worker import (
     DEFAULT_MEMORY_LIMIT,
@@ -32,6 +32,7 @@ from pytest_ratefloor.corruption.worker import (
     CodecDecoder,
     CorruptionRun,
     run_trials,
+    size_text,
     trial_limits,
 )
 from pytest_ratefloor.errors import CodecMisbehaviour, CorruptionFailure
@@ -232,13 +233,6 @@ def _survive(target: _Encoding, settings: _Settings, save_dir: SaveDir) -> Corru
     return run
 
 
-def _size_text(size: int) -> str:
-    for unit, scale in (("GiB", 1 << 30), ("MiB", 1 << 20), ("KiB", 1 << 10)):
-        if size >= scale:
-            return f"{size / scale:g} {unit}"
-    return f"{size} bytes"
-
-
 def _failure_message(
     target: _Encoding, settings: _Settings, run: CorruptionRun, save_dir: SaveDir
 ) -> str:
@@ -279,7 +273,7 @@ def _failure_message(
         detail = outcome.detail
         if outcome.status == "memory" and settings.memory_limit is not None:
             detail += (
-                f" (limit: {_size_text(settings.memory_limit)} of growth, "
+                f" (limit: {size_text(settings.memory_limit)} of growth, "
                 f"guard: {run.memory_guard})"
             )
         lines += [
@@ -287,7 +281,7 @@ def _failure_message(
             f"    corruption: {c.describe()}",
             f"    {c!r}",
             f"    damaged stream: {path} ({len(damaged)} bytes)",
-            f"    replay: {replay_statement(codec, path, n)}",
+            *(f"    {line}" for line in replay_lines(codec, path, n)),
         ]
     if run.stopped_early:
         lines.append(f"  stopped after {count} failures")

@@ -156,12 +156,7 @@ class _Job:
 
 def _vm_size() -> int | None:
     """Current address-space size of this process in bytes (Linux), else None."""
-    try:
-        with open("/proc/self/statm") as fh:
-            pages = int(fh.read().split()[0])
-        return pages * os.sysconf("SC_PAGE_SIZE")
-    except (OSError, ValueError, IndexError, AttributeError):
-        return None
+    return _MemoryMark.now().address_space
 
 
 def _peak_rss() -> int | None:
@@ -172,6 +167,74 @@ def _peak_rss() -> int | None:
         return None
     peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
     return int(peak) if sys.platform == "darwin" else int(peak) * 1024  # macOS: bytes; else KiB
+
+
+#: A ``MemoryError`` counts as memory growth (not as an ordinary rejection) when the
+#: worker grew by at least this share of the limit first. A buffer that grows by a
+#: factor g each step fails once the next step no longer fits, having grown by more
+#: than limit/g by then (more than limit/(1+g) when old and new are held at once, and
+#: then at a peak above limit/g); CPython's lists and bytearrays grow by about 1/8
+#: (Objects/listobject.c, Objects/bytearrayobject.c), hand-written buffers commonly
+#: by 1.5 or 2 (common practice), so 1/8 catches every such loop with room to spare,
+#: while a decoder that refuses an absurd header with ``raise MemoryError`` at once
+#: has grown by next to nothing.
+GROWTH_SHARE = 1 / 8
+
+
+@dataclass(frozen=True)
+class _MemoryMark:
+    """The worker's memory at one moment: its address space now and at its peak
+    (``/proc/self/status``, Linux), and its peak resident size (``getrusage``);
+    ``None`` where the platform does not tell."""
+
+    address_space: int | None
+    peak_address_space: int | None
+    peak_resident: int | None
+
+    @classmethod
+    def now(cls) -> _MemoryMark:
+        size = peak = None
+        try:
+            with open("/proc/self/status") as fh:
+                for line in fh:
+                    key, _, value = line.partition(":")
+                    if key in ("VmSize", "VmPeak"):
+                        kib = int(value.split()[0]) * 1024  # the file gives kB (proc(5))
+                        if key == "VmSize":
+                            size = kib
+                        else:
+                            peak = kib
+        except (OSError, ValueError, IndexError):
+            pass
+        return cls(size, peak, _peak_rss())
+
+
+def _growth(start: _MemoryMark, before: _MemoryMark, after: _MemoryMark) -> int:
+    """Bytes the worker grew by since ``start`` (its own start), as far as can be told
+    at ``after``: the address space held now (the failed decoder's frames, and what
+    they hold, are still alive while its exception is handled), or the peak address
+    space if this trial (begun at ``before``) raised it; else the rise of the peak
+    resident size during the trial. 0 when nothing can be measured."""
+    grown = 0
+    if start.address_space is not None and after.address_space is not None:
+        grown = after.address_space - start.address_space
+        if (
+            after.peak_address_space is not None
+            and before.peak_address_space is not None
+            and after.peak_address_space > before.peak_address_space
+        ):
+            grown = max(grown, after.peak_address_space - start.address_space)
+    elif after.peak_resident is not None and before.peak_resident is not None:
+        grown = after.peak_resident - before.peak_resident
+    return max(grown, 0)
+
+
+def size_text(size: int) -> str:
+    """``size`` bytes for a message: ``64 MiB``, ``1.5 GiB``, ``300 bytes``."""
+    for unit, scale in (("GiB", 1 << 30), ("MiB", 1 << 20), ("KiB", 1 << 10)):
+        if size >= scale:
+            return f"{size / scale:.4g} {unit}"
+    return f"{size} bytes"
 
 
 def _guard_memory(limit: int | None) -> tuple[str, int | None]:
@@ -238,12 +301,22 @@ def _exception_name(exc: BaseException) -> str:
     )
 
 
-def _one_trial(job: _Job, index: int, rss_ceiling: int | None) -> tuple[TrialStatus, str]:
+def _one_trial(
+    job: _Job, index: int, rss_ceiling: int | None, start: _MemoryMark
+) -> tuple[TrialStatus, str]:
     damaged = job.shape.rebuild(job.schedule[index].apply(job.stream))
+    before = _MemoryMark.now()
     try:
         result = job.decoder(damaged, job.n)
     except MemoryError as exc:
-        return "memory", f"raised {_exception_name(exc)}: {exc}".rstrip(": ")
+        grown = _growth(start, before, _MemoryMark.now())
+        scale = DEFAULT_MEMORY_LIMIT if job.memory_limit is None else job.memory_limit
+        if grown < scale * GROWTH_SHARE:
+            # Refused at once (e.g. a header asking for 6·10^18 bytes): a rejection.
+            return "raised", _exception_name(exc)
+        return "memory", (
+            f"raised {_exception_name(exc)} after the worker grew by {size_text(grown)}"
+        )
     except Exception as exc:
         return "raised", _exception_name(exc)
     except BaseException as exc:  # SystemExit, KeyboardInterrupt, GeneratorExit
@@ -251,7 +324,7 @@ def _one_trial(job: _Job, index: int, rss_ceiling: int | None) -> tuple[TrialSta
     if rss_ceiling is not None:
         peak = _peak_rss()
         if peak is not None and peak > rss_ceiling:
-            return "memory", f"peak resident size reached {peak} bytes"
+            return "memory", f"peak resident size reached {size_text(peak)}"
     if job.expected is None:
         return "returned", ""
     if isinstance(result, _WrongReturn):
@@ -260,8 +333,20 @@ def _one_trial(job: _Job, index: int, rss_ceiling: int | None) -> tuple[TrialSta
     return ("original", "") if same else ("silent", how)
 
 
+def _own_process_group() -> None:
+    """Make the worker the leader of a new session, and so of a new process group
+    that every process the decoder starts joins: the parent then ends them all with
+    one ``killpg`` (see :meth:`_Worker.kill_group`). Where ``setsid`` does not exist
+    (Windows) the worker stays in the parent's group and only it is killed."""
+    setsid = getattr(os, "setsid", None)
+    if setsid is not None:
+        with contextlib.suppress(OSError):  # EPERM only for a group leader: not a new child
+            setsid()
+
+
 def _worker_main(conn: Connection, job: _Job, start: int) -> None:
     """Worker entry point: run trials ``start..`` in order, one message each."""
+    _own_process_group()  # first, before the decoder can start anything
     with contextlib.suppress(ValueError, OSError, AttributeError):
         signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C is the parent's to handle
     with contextlib.suppress(ValueError, OSError, AttributeError, io.UnsupportedOperation):
@@ -269,9 +354,10 @@ def _worker_main(conn: Connection, job: _Job, start: int) -> None:
         # which pytest captures and shows beside the failure.
         faulthandler.enable(file=sys.__stderr__ or sys.stderr)
     guard, rss_ceiling = _guard_memory(job.memory_limit)
+    mark = _MemoryMark.now()
     conn.send(("ready", guard))
     for index in range(start, len(job.schedule)):
-        status, detail = _one_trial(job, index, rss_ceiling)
+        status, detail = _one_trial(job, index, rss_ceiling, mark)
         conn.send((index, status, detail))
     conn.close()
 
@@ -317,6 +403,20 @@ def _death(code: int | None) -> tuple[TrialStatus, str]:
     return "crash", f"the worker process {_Worker.exit_text(code)}"
 
 
+def _unreaped_child(pid: int) -> bool:
+    """Whether ``pid`` is still a child of this process, running or not yet reaped
+    (so the number cannot belong to anyone else). Asked without reaping it
+    (``WNOWAIT``); where ``waitid`` does not exist, the callers' order is relied on."""
+    waitid = getattr(os, "waitid", None)
+    if waitid is None:
+        return True
+    try:
+        waitid(os.P_PID, pid, os.WEXITED | os.WNOHANG | os.WNOWAIT)
+    except ChildProcessError:
+        return False
+    return True
+
+
 class _Worker:
     """One worker process and the parent's end of its pipe."""
 
@@ -344,7 +444,28 @@ class _Worker:
             ) from None
         self.guard = message[1]
 
+    def kill_group(self) -> None:
+        """SIGKILL the worker's process group: the worker and every process the
+        decoder started (they joined the group made by :func:`_own_process_group`).
+
+        Done only while the worker is not yet reaped, so its pid (and so the group
+        id) cannot have been reused, and only when the group is the worker's own:
+        before ``setsid`` has run, the worker shares the parent's group, which must
+        never be signalled. Processes that left the group themselves (a daemon that
+        called ``setsid``) are out of reach.
+        """
+        pid = self.process.pid
+        killpg = getattr(os, "killpg", None)
+        sigkill = getattr(signal, "SIGKILL", None)
+        if pid is None or killpg is None or sigkill is None or not _unreaped_child(pid):
+            return
+        with contextlib.suppress(ProcessLookupError, PermissionError):
+            if os.getpgid(pid) == pid:
+                killpg(pid, sigkill)
+
     def reap(self) -> int | None:
+        """Wait for the dead (or dying) worker, its group killed first; the exit code."""
+        self.kill_group()
         self.process.join(5.0)
         if self.process.exitcode is None:
             self.process.kill()
@@ -360,6 +481,8 @@ class _Worker:
         return f"exited with status {code}"
 
     def stop(self) -> None:
+        """End the worker and everything it started, and reap it."""
+        self.kill_group()
         if self.process.is_alive():
             self.process.kill()
         self.process.join(5.0)

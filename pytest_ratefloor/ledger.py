@@ -115,8 +115,8 @@ _FILE_KINDS = (
     (stat.S_ISSOCK, "a socket"),
 )
 
-_short_repr = reprlib.Repr()
-_short_repr.maxstring = _short_repr.maxother = 60
+_short_repr = reprlib.Repr()  # case labels run to ~120 characters; a hostile string is cut
+_short_repr.maxstring, _short_repr.maxother = 200, 80
 _short_repr.maxlevel, _short_repr.maxdict, _short_repr.maxlist = 2, 4, 4
 
 
@@ -202,8 +202,8 @@ def read_entry(label: str, obj: object, path: Path) -> Measurement:
             raise UnreadableLedgerError(f"{where} lacks the field {name!r}")
     from pytest_ratefloor.floors import FLOORS  # imports numpy: not at pytest start-up
 
-    n, bits, seed = _count(obj, "n", 1, where), _count(obj, "bits", 0, where), \
-        _count(obj, "seed", 0, where)
+    n, bits = _count(obj, "n", 1, where), _count(obj, "bits", 0, where)
+    seed = _count(obj, "seed", 0, where)
     floor_rate, entropy = _number(obj, "floor_rate", where), _number(obj, "entropy", where)
     if "rate" in obj:
         _number(obj, "rate", where)  # derived from bits and n on reading; checked all the same

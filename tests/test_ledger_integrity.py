@@ -241,6 +241,28 @@ def test_a_floor_rate_that_overflows_with_n_is_refused(tmp_path: Path) -> None:
     refused(tmp_path / "l.json", json.dumps(doc), "floor_rate * n overflows")
 
 
+def test_a_long_case_label_is_named_in_full(tmp_path: Path) -> None:
+    source = "categorical(probs=[0.31,0.27,0.18,0.11,0.065,0.035,0.02,0.01])"
+    label = f"kelpwick-seastate-huffman | {source} | n=100000 | seed=0"
+    doc = good_doc()
+    entry = doc["cases"].pop(LABEL)
+    entry.update(codec="kelpwick-seastate-huffman", source=source, n=100_000, bits=-1)
+    doc["cases"][label] = entry
+    refused(tmp_path / "l.json", json.dumps(doc), f"case '{label}' has a bad 'bits': -1")
+
+
+def test_the_module_and_an_empty_ledger_import_no_numpy(tmp_path: Path) -> None:
+    # pytest loads the ledger at start-up; only a ledger with cases needs the floor names
+    (tmp_path / "empty.json").write_text(json.dumps({**good_doc(), "cases": {}}))
+    code = ("import sys; from pathlib import Path; from pytest_ratefloor.ledger import Ledger; "
+            f"Ledger.load(Path({str(tmp_path / 'empty.json')!r})); "
+            f"Ledger.load(Path({str(tmp_path / 'absent.json')!r})); "
+            "print('numpy' in sys.modules)")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                         check=True, cwd=ROOT).stdout
+    assert out.strip() == "False"
+
+
 # -- layout -----------------------------------------------------------------------------
 
 

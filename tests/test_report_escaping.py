@@ -215,7 +215,8 @@ def test_json_report_keeps_raw_strings(tmp_path: Path) -> None:
     assert raw_controls(raw_text) == []  # json.dumps escapes them
     doc = json.loads(raw_text)
     assert {c["codec"] for c in doc["cases"]} == set(HOSTILE.values())
-    assert [r["reason"] for r in doc["not_recorded"]][0].startswith("failed: ")
+    reasons = [r["reason"] for r in doc["not_recorded"]]
+    assert reasons == [f"failed: {raw}\nsecond line" for raw in HOSTILE.values()]
 
 
 def test_plot_with_hostile_names(tmp_path: Path) -> None:

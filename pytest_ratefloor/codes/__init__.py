@@ -36,12 +36,15 @@ Conventions
   complete=True)`` accepts.
 * Kraft sums are exact :class:`fractions.Fraction` values (integer arithmetic only).
 * Arguments are checked by :mod:`pytest_ratefloor.validation`: a wrong type raises
-  ``TypeError``, a right type with a bad value ``ValueError``.
+  ``TypeError`` (a ``bool`` is never taken for a symbol, a length or a count), a
+  right type with a bad value ``ValueError``. Sizes that would make the analysis
+  allocate without bound are capped: a codeword is at most
+  :data:`MAX_CODEWORD_BITS` bits, a Golomb parameter at most :data:`GOLOMB_MAX_M`.
 """
 
 from __future__ import annotations
 
-from pytest_ratefloor.codes.codebook import Codebook
+from pytest_ratefloor.codes.codebook import MAX_CODEWORD_BITS, Codebook
 from pytest_ratefloor.codes.codebook import CodeLike as CodeLike
 from pytest_ratefloor.codes.codebook import IntArray as IntArray
 from pytest_ratefloor.codes.decodability import (
@@ -53,6 +56,7 @@ from pytest_ratefloor.codes.optimal import (
     _package_merge as _package_merge,
 )
 from pytest_ratefloor.codes.optimal import (
+    GOLOMB_MAX_M,
     entropy_bits,
     excess_by_symbol,
     expected_length,
@@ -79,6 +83,8 @@ from pytest_ratefloor.codes.properties import (
 )
 
 __all__ = [
+    "GOLOMB_MAX_M",
+    "MAX_CODEWORD_BITS",
     "SP_SUFFIX_LIMIT",
     "Codebook",
     "ambiguity",

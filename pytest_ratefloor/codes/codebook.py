@@ -10,7 +10,9 @@ Codewords are bit strings written most-significant bit first: ``"0110"``, a
 ``bitarray`` (its logical bit order, whatever its endianness) or ``(value, length)``
 meaning the low ``length`` bits of ``value``, MSB first. A bad table raises
 ``TypeError`` (a symbol or codeword of the wrong type) or ``ValueError`` (a right
-type with a bad value), naming the symbol and the codeword.
+type with a bad value), naming the symbol and the codeword. A symbol is an integer,
+never a ``bool`` (``{True: "0"}`` is refused, not read as symbol 1), and a codeword
+is at most :data:`MAX_CODEWORD_BITS` bits long.
 """
 
 from __future__ import annotations
@@ -24,11 +26,21 @@ import numpy as np
 import numpy.typing as npt
 from bitarray import bitarray, decodetree, frozenbitarray
 
-from pytest_ratefloor.validation import integer, sample_size, show
+from pytest_ratefloor.validation import integer, message, sample_size, show
+
+__all__ = ["MAX_CODEWORD_BITS", "Codebook", "CodeLike", "IntArray"]
 
 #: bitarray's decode tree handles codewords up to this many bits; longer codes fall
 #: back to a (slower) pure-Python decoder.
 _DECODETREE_MAX_BITS = 256
+
+#: The longest codeword a table may hold, in bits (2**16). Formats cap lengths far
+#: lower (DEFLATE at 15 bits, RFC 1951 §3.2.7), so this is no format's limit but a
+#: guard: a length is an integer the table builds words, Kraft sums (``1 << length``)
+#: and text from, so ``(0, 2**40)`` would ask for terabytes instead of being refused.
+#: 2**16 leaves room for unary-like tables of tens of thousands of symbols while each
+#: codeword stays an 8 KiB integer (a project choice).
+MAX_CODEWORD_BITS = 1 << 16
 
 _INT64_MIN = -(2**63)
 _INT64_MAX = 2**63 - 1
@@ -52,6 +64,14 @@ def _symbol_of(key: object, where: str | None = None) -> int:
 
 
 _CODEWORD_RULE = "a '0'/'1' string, a bitarray or a (value, length) pair"
+_LENGTH_RULE = f"an integer in [1, {MAX_CODEWORD_BITS}] (MAX_CODEWORD_BITS)"
+
+
+def _check_length(sym: int, length: int, where: str) -> None:
+    """Refuse a codeword longer than :data:`MAX_CODEWORD_BITS`, naming the symbol."""
+    if length > MAX_CODEWORD_BITS:
+        raise ValueError(message(f"length of the codeword of symbol {sym}", _LENGTH_RULE,
+                                 length, where))
 
 
 def _parse_codeword(sym: int, word: object, where: str) -> tuple[int, int]:
@@ -63,18 +83,20 @@ def _parse_codeword(sym: int, word: object, where: str) -> tuple[int, int]:
                 f"{where}: codeword of symbol {sym} must be a non-empty string of the "
                 f"characters '0' and '1', got {show(word)}"
             )
+        _check_length(sym, len(word), where)
         return int(word, 2), len(word)
     if isinstance(word, bitarray):
         if len(word) == 0:
             raise ValueError(
                 f"{where}: codeword of symbol {sym} must be a non-empty bitarray, got {show(word)}"
             )
+        _check_length(sym, len(word), where)
         return int(word.to01(), 2), len(word)
     if isinstance(word, (tuple, list)) and len(word) == 2:
         value, length = word
         if (  # the common case, fast; anything else is checked in full
-            type(value) is int and type(length) is int and length > 0 and value >= 0
-            and not value >> length
+            type(value) is int and type(length) is int and 0 < length <= MAX_CODEWORD_BITS
+            and value >= 0 and not value >> length
         ):
             return value, length
         return _parse_pair(sym, word, where)
@@ -82,11 +104,13 @@ def _parse_codeword(sym: int, word: object, where: str) -> tuple[int, int]:
 
 
 def _parse_pair(sym: int, word: tuple[Any, Any] | list[Any], where: str) -> tuple[int, int]:
-    """A ``(value, length)`` codeword checked in full: both integers, length >= 1, and
-    the value within ``length`` bits."""
+    """A ``(value, length)`` codeword checked in full: both integers, length in
+    ``[1, MAX_CODEWORD_BITS]``, and the value within ``length`` bits."""
     what = f"codeword {show(word)} of symbol {sym}"
     value = integer(word[0], f"value of {what}", where=where)
-    length = integer(word[1], f"length of {what}", minimum=1, where=where)
+    length = integer(
+        word[1], f"length of {what}", minimum=1, maximum=MAX_CODEWORD_BITS, where=where
+    )
     if value < 0 or value >> length:
         raise ValueError(
             f"{where}: value of {what} must be an integer in [0, 2**{length} - 1] "
@@ -222,7 +246,9 @@ class Codebook:
         return self._max_length
 
     def word(self, symbol: int) -> str:
-        """The codeword of ``symbol`` as '0'/'1' text (KeyError if it has none)."""
+        """The codeword of ``symbol`` as '0'/'1' text (KeyError if it has none;
+        TypeError for a non-integer such as a ``bool``)."""
+        integer(symbol, "symbol", where=f"codebook {self.name!r}")
         if symbol not in self:
             raise KeyError(symbol)
         i = int(np.searchsorted(self._symbols, symbol))
@@ -234,6 +260,8 @@ class Codebook:
         return int(self._symbols.size)
 
     def __contains__(self, symbol: object) -> bool:
+        if isinstance(symbol, (bool, np.bool_)):  # a bool is not a symbol
+            return False
         try:
             sym = operator.index(symbol)  # type: ignore[arg-type]
         except TypeError:
@@ -404,16 +432,20 @@ def _concatenation(cb: Codebook) -> bitarray:
 def _symbol_array(values: npt.ArrayLike, what: str) -> IntArray:
     """``values`` as a 1-D int64 array (``what`` names the argument in messages).
 
-    ``TypeError`` for a string or an array of non-integers (floats included; an empty
-    array of any dtype is accepted); ``ValueError`` for a shape other than 1-D or an
-    unsigned value beyond the signed 64-bit range.
+    ``TypeError`` for a string or an array of non-integers (floats and bools
+    included: a bool is not a symbol; an empty array of any dtype is accepted);
+    ``ValueError`` for a shape other than 1-D or an unsigned value beyond the signed
+    64-bit range.
     """
     rule = "a 1-D array of integers"
     if isinstance(values, (str, bytes)):
         raise TypeError(f"{what} must be {rule}, got {show(values)}")
     arr = np.asarray(values)
-    if arr.size and arr.dtype.kind not in "iub":
-        raise TypeError(f"{what} must be {rule}, got dtype {arr.dtype}")
+    if arr.size and arr.dtype.kind not in "iu":
+        first = arr.reshape(-1)[0]
+        raise TypeError(
+            f"{what} must be {rule}, got dtype {arr.dtype} (first value {show(first)})"
+        )
     if arr.ndim != 1:
         raise ValueError(f"{what} must be {rule}, got shape {arr.shape}")
     if arr.dtype.kind == "u" and arr.size and int(arr.max()) > _INT64_MAX:

@@ -29,7 +29,13 @@ from pytest_ratefloor.codes.codebook import (
     _as_codebook,
     _symbol_array,
 )
-from pytest_ratefloor.validation import integer, probability, probability_vector, weights
+from pytest_ratefloor.validation import (
+    integer,
+    message,
+    probability,
+    probability_vector,
+    weights,
+)
 
 
 def _huffman_merge(w: list[float]) -> list[int]:
@@ -160,6 +166,12 @@ def _package_merge(leaves: npt.NDArray[np.float64], cap: int) -> IntArray:
 # -------------------------------------------------------------------- Golomb & Rice
 
 
+#: The largest Golomb parameter m the functions here take or give: the signed 64-bit
+#: range, the same bound as a symbol's (a codec keeps m in a machine word; a larger
+#: m belongs to a source whose symbols, of order m, overflow int64 anyway).
+GOLOMB_MAX_M = 2**63 - 1
+
+
 def _geometric_p(p: object) -> float:
     """The parameter of a geometric source: a probability in (0, 1]."""
     return probability(p, "p", low_open=True)
@@ -176,7 +188,7 @@ def golomb_expected_length(p: float, m: int) -> float:
     L = 1 + q^m/(1−q^m) + b − (1 − q^c)/(1 − q^m).
     """
     pf = _geometric_p(p)
-    mm = integer(m, "m", minimum=1)
+    mm = integer(m, "m", minimum=1, maximum=GOLOMB_MAX_M)
     b = (mm - 1).bit_length()  # ⌈log2 m⌉
     c = (1 << b) - mm
     if pf == 1.0:  # q = 0: only x = 0 occurs
@@ -200,8 +212,13 @@ def golomb_parameter(p: float) -> int:
     if pf == 1.0:
         return 1
     ratio = math.log(2.0 - pf) / -math.log1p(-pf)
+    if not ratio < GOLOMB_MAX_M:  # inf for the smallest p
+        raise ValueError(message(
+            "p", f"a probability whose Golomb parameter m ≈ ln 2 / p is at most "
+            f"GOLOMB_MAX_M = 2**63 - 1", p,
+        ))
     guess = max(1, math.ceil(ratio))
-    candidates = [m for m in (guess - 1, guess, guess + 1) if m >= 1]
+    candidates = [m for m in (guess - 1, guess, guess + 1) if 1 <= m <= GOLOMB_MAX_M]
     return min(candidates, key=lambda m: (golomb_expected_length(pf, m), m))
 
 

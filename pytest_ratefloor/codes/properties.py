@@ -28,6 +28,7 @@ import numpy as np
 import numpy.typing as npt
 
 from pytest_ratefloor.codes.codebook import (
+    MAX_CODEWORD_BITS,
     Codebook,
     CodeLike,
     IntArray,
@@ -314,9 +315,11 @@ def canonical_codebook(
 
     ``lengths`` is ``{symbol: length}`` or ``(symbols, lengths)`` arrays; length 0
     means "no codeword" (as :func:`huffman_lengths` returns for zero probabilities).
-    ``TypeError`` for arguments of the wrong type; ``ValueError`` for a negative
-    length, a symbol listed twice, no positive length at all, or lengths whose Kraft
-    sum exceeds 1 (no prefix code exists).
+    ``TypeError`` for arguments of the wrong type (a ``bool`` symbol or length
+    included); ``ValueError`` for a negative length or one above
+    :data:`~pytest_ratefloor.codes.codebook.MAX_CODEWORD_BITS`, a symbol listed
+    twice, no positive length at all, or lengths whose Kraft sum exceeds 1 (no
+    prefix code exists).
     """
     if not isinstance(name, str):
         raise TypeError(f"codebook name must be a string, got {show(name)}")
@@ -344,6 +347,12 @@ def canonical_codebook(
         i = int(np.argmin(lens))
         raise ValueError(
             f"length of symbol {int(syms[i])} must be an integer >= 0, got {int(lens[i])}"
+        )
+    if lens.size and int(lens.max()) > MAX_CODEWORD_BITS:
+        i = int(np.argmax(lens))
+        raise ValueError(
+            f"length of symbol {int(syms[i])} must be an integer in [0, {MAX_CODEWORD_BITS}] "
+            f"(MAX_CODEWORD_BITS), got {int(lens[i])}"
         )
     keep = lens > 0
     syms, lens = syms[keep], lens[keep]

@@ -41,7 +41,8 @@ finds a name for that object and writes the line.
 
 from __future__ import annotations
 
-from collections.abc import Callable, Mapping
+from collections.abc import Callable, Iterator, Mapping
+from collections.abc import Set as AbstractSet
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any, Literal, Protocol, get_args, runtime_checkable
 
@@ -68,6 +69,7 @@ __all__ = [
     "ReplayCall",
     "StreamCodec",
     "as_codec",
+    "decoded_array",
     "encoded_from_stream",
     "symbols_from_decoder",
 ]
@@ -324,21 +326,45 @@ def encoded_from_stream(value: object) -> Encoded:
     raise CodecContractError(f"encoder returned {_type_name(value)}; expected {_ENCODER_SHAPES}")
 
 
-def symbols_from_decoder(value: object, n: int) -> np.ndarray:
-    """Validate a decoder's output: exactly ``n`` integers, as an int64 array.
+def _expected(n: int) -> str:
+    return f"expected a sequence or array of {n} integers (a list, tuple or 1-D numpy array)"
 
-    Accepted: numpy integer/bool arrays, sequences of ints, ``bytes``-like
-    (each byte one symbol) and ``bitarray`` (each bit one symbol). Rejected
-    with a :class:`CodecContractError`: ``None``, ``str``, floats, nested
-    arrays and any length other than ``n``.
-    """
-    if value is None or isinstance(value, str):
-        raise CodecContractError(
-            f"decoder returned {_type_name(value)}; expected a sequence of {n} integers"
+
+def _not_a_sequence(value: object) -> str | None:
+    """What a decoder's output is, when it is plainly no sequence of symbols."""
+    kind = _type_name(value)
+    if value is None:
+        return "NoneType (nothing: a missing return statement?)"
+    if isinstance(value, str):
+        return f"str {validation.show(value)} (text, not symbols)"
+    if isinstance(value, Mapping):
+        return f"{kind} (a mapping, not a sequence)"
+    if isinstance(value, AbstractSet):
+        return f"{kind} (a set: its order is arbitrary)"
+    if isinstance(value, Iterator):
+        return (
+            f"{kind} (an iterator or generator: it can be read once only, so it cannot be "
+            "checked; return a list or an array)"
         )
+    return None
+
+
+def decoded_array(value: object, n: int) -> np.ndarray:
+    """A decoder's output as a flat int64 array, of whatever length it has.
+
+    The checks of :func:`symbols_from_decoder` except the length: what is no
+    sequence of integers raises :class:`CodecContractError` naming the type
+    returned (and the value, or the first item that is no integer) and what was
+    expected (``n`` integers).
+    """
+    problem = _not_a_sequence(value)
+    if problem is not None:
+        raise CodecContractError(f"decoder returned {problem}; {_expected(n)}")
     if isinstance(value, bitarray):
         arr: np.ndarray = np.frombuffer(value.unpack(), dtype=np.uint8)
-    elif isinstance(value, (bytes, bytearray, memoryview)):
+    elif isinstance(value, (bytes, bytearray)) or (
+        isinstance(value, memoryview) and value.format in ("B", "b", "c")
+    ):
         arr = np.frombuffer(bytes(value), dtype=np.uint8)
     elif isinstance(value, np.ndarray):
         arr = value
@@ -348,39 +374,69 @@ def symbols_from_decoder(value: object, n: int) -> np.ndarray:
         except (TypeError, ValueError, OverflowError) as exc:
             raise CodecContractError(
                 f"decoder returned {_type_name(value)} that is not a sequence of integers "
-                f"({exc})"
+                f"({exc}); {_expected(n)}"
             ) from exc
+    if arr.ndim == 0:
+        raise CodecContractError(
+            f"decoder returned {_type_name(value)} {validation.show(value)}, a single value "
+            f"and not a sequence; {_expected(n)}"
+        )
     if arr.ndim != 1:
         raise CodecContractError(
-            f"decoder returned an array of shape {arr.shape}; expected a flat sequence of "
-            f"{n} integers"
+            f"decoder returned {_type_name(value)} of shape {arr.shape}; expected a flat "
+            f"(1-D) sequence of {n} integers"
         )
     if arr.size == 0 and arr.dtype.kind in "fO":
         arr = np.zeros(0, dtype=np.int64)  # an empty list has no integer dtype of its own
-    if arr.dtype.kind not in "iub":
-        if arr.dtype.kind == "O" and all(
-            isinstance(v, (int, np.integer)) and not isinstance(v, bool) for v in arr
-        ):
-            try:
-                arr = arr.astype(np.int64)
-            except OverflowError as exc:
-                raise CodecContractError(
-                    "decoder returned integers outside the int64 range"
-                ) from exc
-        else:
-            kind = {"f": "floats", "c": "complex numbers", "U": "strings", "S": "bytes"}.get(
-                arr.dtype.kind, f"{arr.dtype} values"
-            )
+    if arr.dtype.kind == "O":
+        bad = next(
+            (i for i, v in enumerate(arr.tolist())
+             if isinstance(v, bool) or not isinstance(v, int)),
+            None,
+        )
+        if bad is not None:
+            item = arr[bad]
             raise CodecContractError(
-                f"decoder returned {kind} ({_type_name(value)} of dtype {arr.dtype}); "
-                "expected integers"
+                f"decoder returned object values ({_type_name(value)} of dtype object holding "
+                f"{_type_name(item)} {validation.show(item)} at index {bad}); expected integers"
             )
+        try:
+            arr = arr.astype(np.int64)
+        except OverflowError as exc:
+            raise CodecContractError("decoder returned integers outside the int64 range") from exc
+    elif arr.dtype.kind not in "iub":
+        kind = {"f": "floats", "c": "complex numbers", "U": "strings", "S": "bytes"}.get(
+            arr.dtype.kind, f"{arr.dtype} values"
+        )
+        first = validation.show(arr[0]) if arr.size else "none"
+        raise CodecContractError(
+            f"decoder returned {kind} ({_type_name(value)} of dtype {arr.dtype}, first "
+            f"{first}); expected integers"
+        )
+    if arr.dtype == np.uint64 and len(arr) and int(arr.max()) > np.iinfo(np.int64).max:
+        raise CodecContractError(
+            f"decoder returned integers outside the int64 range (up to {int(arr.max())})"
+        )
+    return arr if arr.dtype == np.int64 else arr.astype(np.int64)
+
+
+def symbols_from_decoder(value: object, n: int) -> np.ndarray:
+    """Validate a decoder's output: exactly ``n`` integers, as an int64 array.
+
+    Accepted: numpy integer arrays, numpy bool arrays and ``bitarray`` (each item
+    one binary symbol, 0 or 1), sequences of ints (a list, a tuple, a ``range``,
+    an object array of Python ints), ``bytes``/``bytearray`` and byte
+    ``memoryview`` (each byte one symbol; a ``memoryview`` of wider items gives
+    its items). Rejected with a :class:`CodecContractError` naming the type
+    returned and what is expected: ``None``, ``str``, mappings, sets, iterators
+    and generators (which would be used up by reading them), single values,
+    arrays of more than one dimension, floats and other non-integers (an object
+    array holding a ``bool``, a float or ``None`` names the first such item), and
+    any length other than ``n``.
+    """
+    arr = decoded_array(value, n)
     if len(arr) != n:
         raise CodecContractError(f"decoder returned {len(arr)} symbols; expected n={n}")
-    if arr.dtype != np.int64:
-        if arr.dtype == np.uint64 and len(arr) and int(arr.max()) > np.iinfo(np.int64).max:
-            raise CodecContractError("decoder returned integers outside the int64 range")
-        arr = arr.astype(np.int64)
     return arr
 
 

@@ -119,8 +119,9 @@ class RateFloorHarness:
         ``options`` are the :class:`~pytest_ratefloor.checks.CheckOptions`:
         ``n`` (default 100 000), ``seed`` (0), ``floor`` (``"entropy"``),
         ``rel``/``abs`` (default ``rel=0.01``), ``edge_cases`` (``True``),
-        ``corruption`` (``False``) and ``isolate`` (the run's setting). With ``corruption=True`` the decoder must
-        then also survive damaged streams of the same encoding (on at most
+        ``corruption`` (``False``) and ``isolate`` (the run's setting). With
+        ``corruption=True`` the decoder must then also survive damaged
+        streams of the same encoding (on at most
         10 000 symbols of the sample; see
         :func:`pytest_ratefloor.corruption.assert_survives_corruption` for what
         counts as surviving; damaged streams of failures are saved in the

@@ -212,7 +212,7 @@ def _in_child(work: Callable[[], T], case: str) -> T:
         raise CodecMisbehaviour(_ended_message(case, status, last_step))
     outcome = pickle.loads(result)
     if outcome[0] == "ok":
-        return outcome[1]  # type: ignore[no-any-return]
+        return outcome[1]
     _, exc, cause = outcome
     if not isinstance(exc, Exception):  # KeyboardInterrupt, SystemExit, GeneratorExit
         raise CodecMisbehaviour(_base_exception_message(case, exc, last_step))

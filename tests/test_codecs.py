@@ -305,18 +305,25 @@ def test_shape_records_are_checked() -> None:
 
 # ---------------------------------------------------------- replay statements
 
-def test_each_adapter_writes_its_own_replay_statement() -> None:
+def test_each_adapter_describes_its_own_replay_call() -> None:
+    # which of the user's objects a replay line calls, and how; naming it is the
+    # corruption package's (tests/test_corruption_integrity.py runs the lines)
     from pytest_ratefloor.codes import Codebook
 
-    stream = as_codec((u8_encode, u8_decode))
-    assert stream.replay_statement("P", 7) == f"import {__name__}; {__name__}.u8_decode(P, 7)"
-    local = StreamCodec(u8_encode, lambda d, n: d)
-    assert local.replay_statement("P", 7) == "decode(P, 7)"
-    zlib_codec = ByteCodec(zlib.compress, zlib.decompress, packing="u8")
-    assert zlib_codec.replay_statement("P", 7) == "import zlib; zlib.decompress(P)"
-    assert ByteCodec(zlib.compress, lambda b: b).replay_statement("P", 7) == "decompress(P)"
-    book = as_codec(Codebook({0: "0", 1: "1"}))
-    assert book.replay_statement("P", 7) == "codebook.decode(P, 7)"
+    stream = as_codec((u8_encode, u8_decode)).replay_call("P", 7)
+    assert (stream.target, stream.role, stream.method) == (u8_decode, "decode", None)
+    assert stream.call("dec") == "dec(P, 7)"
+    zlib_call = ByteCodec(zlib.compress, zlib.decompress, packing="u8").replay_call("P", 7)
+    assert (zlib_call.target, zlib_call.role) == (zlib.decompress, "decompress")
+    assert zlib_call.call("zlib.decompress") == "zlib.decompress(P)"
+    book = Codebook({0: "0", 1: "1"}, name="coin")
+    book_call = as_codec(book).replay_call("P", 7)
+    assert (book_call.target, book_call.role, book_call.method) == (book, "codebook", "decode")
+    assert book_call.call("cb") == "cb.decode(P, 7)"
+    assert book_call.rebuild == "Codebook({0: '0', 1: '1'}, name='coin')"
+    assert eval(book_call.rebuild, {"Codebook": Codebook}).codewords == book.codewords
+    big = Codebook({s: format(s, "06b") for s in range(64)})
+    assert as_codec(big).replay_call("P", 7).rebuild is None  # too long to write out
 
 
 def test_codebook_as_codec_uses_the_codebook() -> None:

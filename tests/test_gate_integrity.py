@@ -15,7 +15,6 @@ import os
 import subprocess
 import sys
 import time
-from pathlib import Path
 
 import pytest
 from test_plugin import (
@@ -48,7 +47,7 @@ def test_a_run_from_a_subfolder_finds_the_projects_ledger(
     (pytester.path / ".git").mkdir()  # the project's top folder
     tests = pytester.mkpydir("tests")
     (tests / "__init__.py").unlink()
-    (tests / "rfcase.py").write_text((make_project.__globals__["RFCASE"]))
+    (tests / "rfcase.py").write_text(make_project.__globals__["RFCASE"])
     (tests / "test_rf_gated.py").write_text(TESTS)
     monkeypatch.chdir(tests)
     result = pytester.runpytest(*INNER, "--ratefloor-record")
@@ -263,3 +262,12 @@ def test_marker_arguments_are_checked(pytester: pytest.Pytester, marker: str,
     result = run(pytester)
     assert result.ret == pytest.ExitCode.USAGE_ERROR
     result.stderr.fnmatch_lines([message])
+
+
+def test_under_xdist_recording_also_keeps_only_passed_cases(pytester: pytest.Pytester) -> None:
+    pytest.importorskip("xdist")
+    ledger = make_project(pytester, CHEATS)
+    result = run(pytester, "-n", "2", "--ratefloor-record")
+    result.assert_outcomes(passed=1, failed=2)
+    assert list(ledger_bits(ledger)) == ["alpha"]
+    assert json.loads(ledger.read_text())["cases"].popitem()[1]["n"] == 4000

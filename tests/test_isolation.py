@@ -120,7 +120,7 @@ def test_a_non_daemon_thread_left_running_is_named(isolate: bool) -> None:
         return zlib.decompress(data)
 
     try:
-        with pytest.raises(CodecMisbehaviour, match="non-daemon thread.*leaky-flusher"):
+        with pytest.raises(CodecMisbehaviour, match=r"non-daemon thread.*leaky-flusher"):
             check(_codec(leaky), SOURCE, n=N, rel=0.5, edge_cases=False, isolate=isolate)
     finally:
         stop.set()

@@ -53,9 +53,6 @@ from pytest_ratefloor.codes.decodability import (
     assert_uniquely_decodable,
 )
 from pytest_ratefloor.codes.optimal import (
-    _package_merge as _package_merge,
-)
-from pytest_ratefloor.codes.optimal import (
     GOLOMB_MAX_M,
     entropy_bits,
     excess_by_symbol,
@@ -66,6 +63,9 @@ from pytest_ratefloor.codes.optimal import (
     length_limited_lengths,
     redundancy,
     rice_parameter,
+)
+from pytest_ratefloor.codes.optimal import (
+    _package_merge as _package_merge,
 )
 from pytest_ratefloor.codes.properties import (
     Witness as Witness,

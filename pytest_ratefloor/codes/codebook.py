@@ -28,7 +28,7 @@ from bitarray import bitarray, decodetree, frozenbitarray
 
 from pytest_ratefloor.validation import integer, message, sample_size, show
 
-__all__ = ["MAX_CODEWORD_BITS", "Codebook", "CodeLike", "IntArray"]
+__all__ = ["MAX_CODEWORD_BITS", "CodeLike", "Codebook", "IntArray"]
 
 #: bitarray's decode tree handles codewords up to this many bits; longer codes fall
 #: back to a (slower) pure-Python decoder.
@@ -108,9 +108,9 @@ def _parse_pair(sym: int, word: tuple[Any, Any] | list[Any], where: str) -> tupl
     ``[1, MAX_CODEWORD_BITS]``, and the value within ``length`` bits."""
     what = f"codeword {show(word)} of symbol {sym}"
     value = integer(word[0], f"value of {what}", where=where)
-    length = integer(
-        word[1], f"length of {what}", minimum=1, maximum=MAX_CODEWORD_BITS, where=where
-    )
+    length = integer(word[1], f"length of {what}", minimum=1, where=where)
+    if length > MAX_CODEWORD_BITS:
+        raise ValueError(message(f"length of {what}", _LENGTH_RULE, length, where))
     if value < 0 or value >> length:
         raise ValueError(
             f"{where}: value of {what} must be an integer in [0, 2**{length} - 1] "
@@ -429,19 +429,20 @@ def _concatenation(cb: Codebook) -> bitarray:
     return out
 
 
-def _symbol_array(values: npt.ArrayLike, what: str) -> IntArray:
+def _symbol_array(values: npt.ArrayLike, what: str, *, bools: bool = True) -> IntArray:
     """``values`` as a 1-D int64 array (``what`` names the argument in messages).
 
-    ``TypeError`` for a string or an array of non-integers (floats and bools
-    included: a bool is not a symbol; an empty array of any dtype is accepted);
-    ``ValueError`` for a shape other than 1-D or an unsigned value beyond the signed
-    64-bit range.
+    ``TypeError`` for a string or an array of non-integers (floats included; an empty
+    array of any dtype is accepted); ``ValueError`` for a shape other than 1-D or an
+    unsigned value beyond the signed 64-bit range. Bools read as 0 and 1, as in a
+    sample of a binary source, unless ``bools=False`` (the symbols and lengths that
+    define a table, where a bool, like a bool key, is a mistake).
     """
     rule = "a 1-D array of integers"
     if isinstance(values, (str, bytes)):
         raise TypeError(f"{what} must be {rule}, got {show(values)}")
     arr = np.asarray(values)
-    if arr.size and arr.dtype.kind not in "iu":
+    if arr.size and arr.dtype.kind not in ("iub" if bools else "iu"):
         first = arr.reshape(-1)[0]
         raise TypeError(
             f"{what} must be {rule}, got dtype {arr.dtype} (first value {show(first)})"

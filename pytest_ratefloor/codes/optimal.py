@@ -186,9 +186,13 @@ def golomb_expected_length(p: float, m: int) -> float:
     bits, b = ⌈log2 m⌉). With q = 1 − p the quotient is geometric, E = q^m/(1−q^m),
     and P(remainder < c) = (1 − q^c)/(1 − q^m), so
     L = 1 + q^m/(1−q^m) + b − (1 − q^c)/(1 − q^m).
+
+    ``m`` is an integer in ``[1, GOLOMB_MAX_M]`` (``TypeError``/``ValueError``).
     """
     pf = _geometric_p(p)
-    mm = integer(m, "m", minimum=1, maximum=GOLOMB_MAX_M)
+    mm = integer(m, "m", minimum=1)
+    if mm > GOLOMB_MAX_M:
+        raise ValueError(message("m", "an integer <= GOLOMB_MAX_M = 2**63 - 1", m))
     b = (mm - 1).bit_length()  # ⌈log2 m⌉
     c = (1 << b) - mm
     if pf == 1.0:  # q = 0: only x = 0 occurs
@@ -206,17 +210,16 @@ def golomb_parameter(p: float) -> int:
     m = ⌈log(1+q) / (−log q)⌉ with q = 1−p (the m with q^m + q^(m+1) ≤ 1 < q^(m−1) + q^m).
     p = 1 gives m = 1. The formula is evaluated in floating point, so its neighbours
     are compared by exact expected length to settle rounding at the boundaries
-    (where two values of m tie, the smaller is returned).
+    (where two values of m tie, the smaller is returned). ``ValueError`` for a ``p``
+    so small that m would exceed :data:`GOLOMB_MAX_M`.
     """
     pf = _geometric_p(p)
     if pf == 1.0:
         return 1
     ratio = math.log(2.0 - pf) / -math.log1p(-pf)
     if not ratio < GOLOMB_MAX_M:  # inf for the smallest p
-        raise ValueError(message(
-            "p", f"a probability whose Golomb parameter m ≈ ln 2 / p is at most "
-            f"GOLOMB_MAX_M = 2**63 - 1", p,
-        ))
+        rule = "a probability whose Golomb parameter m ≈ ln 2 / p is at most GOLOMB_MAX_M"
+        raise ValueError(message("p", f"{rule} = 2**63 - 1", p))
     guess = max(1, math.ceil(ratio))
     candidates = [m for m in (guess - 1, guess, guess + 1) if 1 <= m <= GOLOMB_MAX_M]
     return min(candidates, key=lambda m: (golomb_expected_length(pf, m), m))

@@ -337,8 +337,8 @@ def canonical_codebook(
             raise TypeError(f"lengths must be {rule}, got {show(lengths)}") from None
         if not pair:
             raise ValueError(f"lengths must be {rule}, got {show(lengths)}")
-        syms = _symbol_array(lengths[0], "symbols")
-        lens = _symbol_array(lengths[1], "lengths")
+        syms = _symbol_array(lengths[0], "symbols", bools=False)
+        lens = _symbol_array(lengths[1], "lengths", bools=False)
         if syms.shape != lens.shape:
             raise ValueError(
                 f"symbols and lengths must be the same size, got {syms.size} and {lens.size}"

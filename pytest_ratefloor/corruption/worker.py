@@ -36,6 +36,7 @@ from pytest_ratefloor.codecs import (
     CodecContractError,
     Encoded,
     PayloadShape,
+    decoded_array,
     encoded_from_stream,
 )
 from pytest_ratefloor.corruption.schedule import Corruption
@@ -270,26 +271,21 @@ def _guard_memory(limit: int | None) -> tuple[str, int | None]:
 
 
 def _same_symbols(result: object, expected: np.ndarray) -> tuple[bool, str]:
-    """Whether a decode result equals the original symbols, and if not, how it differs."""
+    """Whether a decode result equals the original symbols, and if not, how it differs.
+    Output that is no sequence of integers is named as the codec adapters name it."""
     try:
-        got = np.asarray(result)
-    except Exception as exc:
-        return False, f"returned {type(result).__name__} that is not a sequence of symbols ({exc})"
-    if got.ndim != 1:
-        return False, f"returned {type(result).__name__} of shape {got.shape}"
+        got = decoded_array(result, expected.shape[0])
+    except CodecContractError as exc:
+        return False, f"returned without an error, but {exc}"
     if got.shape[0] != expected.shape[0]:
         return False, f"returned {got.shape[0]} symbols instead of {expected.shape[0]}"
-    try:
-        equal = got == expected
-    except Exception as exc:
-        return False, f"returned values that cannot be compared with symbols ({exc})"
+    equal = got == expected
     if np.all(equal):
         return True, ""
     index = int(np.argmin(equal))
-    value = got[index].item() if isinstance(got[index], np.generic) else got[index]
     return False, (
         f"returned {got.shape[0]} symbols without an error; first difference at "
-        f"index {index}: expected {expected[index]}, got {value!r}"
+        f"index {index}: expected {expected[index]}, got {int(got[index])!r}"
     )
 
 

@@ -28,8 +28,9 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Literal
 
-from pytest_ratefloor.ledger import Environment, entry_json, write_atomic
+from pytest_ratefloor.ledger import Environment, entry_json
 from pytest_ratefloor.measurement import Measurement
+from pytest_ratefloor.recording import write_atomic
 from pytest_ratefloor.verdicts import VERDICTS, Colour, Comparison
 
 #: Version of the JSON report layout.

@@ -28,9 +28,10 @@ import pytest
 
 from pytest_ratefloor import report
 from pytest_ratefloor.errors import LedgerError, NewerLedgerError, UnreadableLedgerError
-from pytest_ratefloor.ledger import UNREADABLE_SUFFIX, Ledger, clean_stale_temporaries
-from pytest_ratefloor.ledger import record as record_ledger
+from pytest_ratefloor.ledger import UNREADABLE_SUFFIX, Ledger
 from pytest_ratefloor.measurement import Measurement
+from pytest_ratefloor.recording import clean_stale_temporaries
+from pytest_ratefloor.recording import record as record_ledger
 from pytest_ratefloor.settings import Settings, marker_slack, read_settings
 from pytest_ratefloor.verdicts import Comparison, LedgerRun
 

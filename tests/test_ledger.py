@@ -26,10 +26,9 @@ from pytest_ratefloor.ledger import (
     Environment,
     Ledger,
     entry_json,
-    keep_copy,
-    write_atomic,
 )
 from pytest_ratefloor.measurement import CaseKey, Measurement
+from pytest_ratefloor.recording import keep_copy, write_atomic
 from pytest_ratefloor.verdicts import LedgerRun, compare
 
 # h(0.1) = 0.4689955935892812 bits (binary entropy; cross-checked with scipy below)

@@ -22,11 +22,11 @@ from typing import Any
 import pytest
 
 from pytest_ratefloor import ledger as ledger_module
+from pytest_ratefloor import recording as recording_module
 from pytest_ratefloor.errors import LedgerError, NewerLedgerError, UnreadableLedgerError
-from pytest_ratefloor.ledger import (
-    LEDGER_KIND,
-    Environment,
-    Ledger,
+from pytest_ratefloor.ledger import LEDGER_KIND, Environment, Ledger
+from pytest_ratefloor.measurement import Measurement
+from pytest_ratefloor.recording import (
     clean_stale_temporaries,
     ledger_lock,
     lock_path,
@@ -34,7 +34,6 @@ from pytest_ratefloor.ledger import (
     stale_temporaries,
     write_atomic,
 )
-from pytest_ratefloor.measurement import Measurement
 from pytest_ratefloor.verdicts import compare, listed
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -594,7 +593,7 @@ def test_a_lock_file_removed_under_a_waiter_is_not_trusted(
 
 def test_lock_files_without_fcntl(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
     # where fcntl is missing (Windows) the lock is an exclusively created file
-    monkeypatch.setattr(ledger_module, "_fcntl", None)
+    monkeypatch.setattr(recording_module, "_fcntl", None)
     path = tmp_path / "ratefloor-ledger.json"
     record(path, [case("a")], environment=ENV)
     assert listing(tmp_path) == ["ratefloor-ledger.json"]
@@ -642,7 +641,8 @@ def run_python(code: str, *args: str) -> subprocess.Popen[str]:
 KILLED_WRITER = """
 import os, sys
 from pathlib import Path
-from pytest_ratefloor.ledger import Environment, record
+from pytest_ratefloor.ledger import Environment
+from pytest_ratefloor.recording import record
 from pytest_ratefloor.measurement import Measurement
 env = Environment(plugin="0.test", numpy="0.test", python="3.test", platform="Test-x")
 m = Measurement(codec="killed", source="bernoulli(p=0.1)", n=1000, seed=0, bits=1,
@@ -673,7 +673,8 @@ def test_a_writer_killed_mid_write_leaves_the_old_ledger_and_no_obstacle(
 CONCURRENT_WRITER = """
 import sys, time
 from pathlib import Path
-from pytest_ratefloor.ledger import Environment, record
+from pytest_ratefloor.ledger import Environment
+from pytest_ratefloor.recording import record
 from pytest_ratefloor.measurement import Measurement
 path, tag, rounds, go = Path(sys.argv[1]), sys.argv[2], int(sys.argv[3]), Path(sys.argv[4])
 env = Environment(plugin="0.test", numpy="0.test", python="3.test", platform="Test-x")

@@ -307,7 +307,7 @@ def test_failed_write_keeps_the_old_ledger(pytester: pytest.Pytester,
 
 KILL_CONFTEST = '''
 import os, signal
-import pytest_ratefloor.ledger as ledger_module
+import pytest_ratefloor.recording as recording_module
 
 _real_fsync = os.fsync
 
@@ -316,7 +316,7 @@ def _die(fd):
     os.kill(os.getpid(), signal.SIGKILL)
 
 def pytest_sessionfinish(session):
-    ledger_module.os.fsync = _die
+    recording_module.os.fsync = _die
 '''
 
 

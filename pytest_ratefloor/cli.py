@@ -21,8 +21,8 @@ Exit status:
   the file), an unreadable data file, a bad argument.
 
 Codec names, source specs and paths are shown through
-:func:`~pytest_ratefloor.report.terminal_text` (text) and
-:func:`~pytest_ratefloor.report.markdown_text` (Markdown); the JSON listing
+:func:`~pytest_ratefloor.escaping.terminal_text` (text) and
+:func:`~pytest_ratefloor.escaping.markdown_text` (Markdown); the JSON listing
 keeps them raw and never holds NaN or Infinity.
 """
 
@@ -40,19 +40,10 @@ from pathlib import Path
 
 from pytest_ratefloor import validation
 from pytest_ratefloor.errors import CommandLineError, LedgerError
+from pytest_ratefloor.escaping import json_safe, markdown_text, md_name, terminal_text
 from pytest_ratefloor.layouts import LAYOUTS
 from pytest_ratefloor.ledger import Ledger, entry_json
-from pytest_ratefloor.report import (
-    CAUTION,
-    align,
-    finite,
-    json_safe,
-    markdown_tables,
-    markdown_text,
-    md_name,
-    signed_pct,
-    terminal_text,
-)
+from pytest_ratefloor.report import CAUTION, align, finite, markdown_tables, signed_pct
 from pytest_ratefloor.verdicts import VERDICTS, Comparison, compare, counts_of, listed
 
 #: Layout of ``ratefloor show --format json``.

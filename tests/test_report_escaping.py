@@ -18,9 +18,10 @@ import pytest
 
 from pytest_ratefloor import report
 from pytest_ratefloor.cli import main
+from pytest_ratefloor.escaping import markdown_text, md_name, plot_text, terminal_text
 from pytest_ratefloor.ledger import LEDGER_KIND, Ledger
 from pytest_ratefloor.measurement import Measurement
-from pytest_ratefloor.report import RunOutcome, markdown_text, plot_text, terminal_text
+from pytest_ratefloor.report import RunOutcome
 from pytest_ratefloor.verdicts import LedgerRun
 
 ESC = "\x1b"
@@ -143,12 +144,12 @@ def test_markdown_text_renders_as_the_literal_text() -> None:
 
 
 def test_md_name_keeps_a_code_span_only_for_plainly_safe_text() -> None:
-    assert report.md_name("uniform(k=4)") == "`uniform(k=4)`"
-    assert report.md_name("*not emphasis*") == "`*not emphasis*`"  # literal in a code span
+    assert md_name("uniform(k=4)") == "`uniform(k=4)`"
+    assert md_name("*not emphasis*") == "`*not emphasis*`"  # literal in a code span
     for raw in HOSTILE.values():
-        assert not report.md_name(raw).startswith("`")
-        assert report.md_name(raw) == markdown_text(raw)
-    assert report.md_name("a`b") == "a\\`b"
+        assert not md_name(raw).startswith("`")
+        assert md_name(raw) == markdown_text(raw)
+    assert md_name("a`b") == "a\\`b"
 
 
 def test_plot_text_escapes_mathtext() -> None:

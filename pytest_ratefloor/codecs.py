@@ -232,17 +232,13 @@ class ReplayCall:
     or the codebook; ``method`` the method called on it (``"decode"`` for a
     codebook), or ``None`` when ``target`` itself is called; ``args`` the text of
     the arguments; ``role`` the variable name a replay uses when the object has
-    no name it can reach (``decode``, ``decompress``, ``codebook``). ``rebuild``
-    is an expression that makes an equal object from scratch (with the imports
-    in ``imports``), when the adapter knows one, e.g. a small codebook's table.
+    no name it can reach (``decode``, ``decompress``, ``codebook``).
     """
 
     target: object
     args: str
     role: str
     method: str | None = None
-    rebuild: str | None = None
-    imports: tuple[str, ...] = ()
 
     def call(self, name: str) -> str:
         """The call on the object named by the expression ``name``."""
@@ -583,11 +579,6 @@ class ByteCodec:
         return ReplayCall(self._decompress, payload, role="decompress")
 
 
-#: A codebook of at most this many codewords is written out in full in a replay
-#: line when it has no name the line can use (a longer table would bury the line).
-REPLAY_TABLE_MAX = 32
-
-
 class CodebookCodec:
     """A :class:`~pytest_ratefloor.codes.Codebook` used as a codec.
 
@@ -622,21 +613,8 @@ class CodebookCodec:
         return self
 
     def replay_call(self, payload: str, n: int) -> ReplayCall:
-        """``codebook.decode(payload, n)``; a table of up to :data:`REPLAY_TABLE_MAX`
-        codewords can also be rebuilt from its text."""
-        book = self.codebook
-        rebuild = None
-        if len(book) <= REPLAY_TABLE_MAX and hasattr(book, "word"):
-            table = ", ".join(f"{s}: {book.word(s)!r}" for s in book.symbols)
-            rebuild = f"Codebook({{{table}}}, name={self.name!r})"
-        return ReplayCall(
-            book,
-            f"{payload}, {n}",
-            role="codebook",
-            method="decode",
-            rebuild=rebuild,
-            imports=("from pytest_ratefloor.codes import Codebook",),
-        )
+        """``codebook.decode(payload, n)``."""
+        return ReplayCall(self.codebook, f"{payload}, {n}", role="codebook", method="decode")
 
 
 def _is_codebook(obj: object) -> bool:

@@ -114,7 +114,7 @@ def test_what_is_accepted(value: object, expected: list[int]) -> None:
 
 def test_decoded_array_checks_everything_but_the_length() -> None:
     assert decoded_array([1, 2], 5).tolist() == [1, 2]
-    with pytest.raises(CodecContractError, match="^decoder returned 2 symbols; expected n=5$"):
+    with pytest.raises(CodecContractError, match=r"^decoder returned 2 symbols; expected n=5$"):
         symbols_from_decoder([1, 2], 5)
     with pytest.raises(CodecContractError, match="expected a sequence or array of 5 integers"):
         decoded_array((x for x in [1, 2]), 5)

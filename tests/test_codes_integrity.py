@@ -39,12 +39,12 @@ def test_a_bool_is_no_symbol_for_lookups_or_canonical_tables() -> None:
     book = Codebook(PREFIX_FREE)
     assert 1 in book
     assert True not in book
-    with pytest.raises(TypeError, match="^codebook 'codebook': symbol must be an integer, got "
-                                        "True$"):
+    with pytest.raises(TypeError, match=r"^codebook 'codebook': symbol must be an integer, got "
+                                        r"True$"):
         book.word(True)
-    with pytest.raises(TypeError, match="^symbol must be an integer, got True$"):
+    with pytest.raises(TypeError, match=r"^symbol must be an integer, got True$"):
         canonical_codebook({True: 1, 2: 1})
-    with pytest.raises(TypeError, match="^length of symbol 0 must be an integer, got True$"):
+    with pytest.raises(TypeError, match=r"^length of symbol 0 must be an integer, got True$"):
         canonical_codebook({0: True, 1: 1})
     with pytest.raises(TypeError, match=r"^symbols must be a 1-D array of integers, got dtype "
                                         r"bool \(first value True\)$"):
@@ -118,30 +118,30 @@ def test_a_bad_max_length_blames_the_parameter(check, bad: int) -> None:  # type
     # a code that is fine in every other respect: the error is about max_length
     with pytest.raises(ValueError, match=f"^max_length must be an integer >= 1, got {bad}$"):
         check(Codebook(PREFIX_FREE), max_length=bad)
-    with pytest.raises(TypeError, match="^max_length must be an integer, got True$"):
+    with pytest.raises(TypeError, match=r"^max_length must be an integer, got True$"):
         check(Codebook(PREFIX_FREE), max_length=True)
 
 
 def test_the_parameter_is_checked_before_the_code_is_judged() -> None:
     # a code that is not prefix-free, with a bad cap: the cap is named, not the code
-    with pytest.raises(ValueError, match="^max_length must be an integer >= 1, got -1$"):
+    with pytest.raises(ValueError, match=r"^max_length must be an integer >= 1, got -1$"):
         assert_prefix_free({0: "0", 1: "01"}, max_length=-1)
 
 
 def test_the_other_size_parameters_of_the_package() -> None:
-    with pytest.raises(ValueError, match="^max_length must be an integer >= 1, got -1$"):
+    with pytest.raises(ValueError, match=r"^max_length must be an integer >= 1, got -1$"):
         codes.length_limited_lengths([0.5, 0.5], max_length=-1)
-    with pytest.raises(TypeError, match="^max_length must be an integer, got True$"):
+    with pytest.raises(TypeError, match=r"^max_length must be an integer, got True$"):
         codes.length_limited_lengths([0.5, 0.5], max_length=True)
     # a huge cap is simply no constraint
     assert codes.length_limited_lengths([0.5, 0.25, 0.25], 2**40).tolist() == [1, 2, 2]
-    with pytest.raises(ValueError, match="^limit must be an integer >= 1, got 0$"):
+    with pytest.raises(ValueError, match=r"^limit must be an integer >= 1, got 0$"):
         codes.ambiguity({0: "0", 1: "01"}, limit=0)
-    with pytest.raises(TypeError, match="^limit must be an integer, got True$"):
+    with pytest.raises(TypeError, match=r"^limit must be an integer, got True$"):
         codes.assert_uniquely_decodable({0: "0", 1: "01"}, limit=True)
-    with pytest.raises(ValueError, match="^top must be an integer >= 0, got -1$"):
+    with pytest.raises(ValueError, match=r"^top must be an integer >= 0, got -1$"):
         codes.excess_by_symbol(PREFIX_FREE, [0, 1, 2], [0.5, 0.25, 0.25], top=-1)
-    with pytest.raises(ValueError, match="^n must be an integer >= 0, got -1$"):
+    with pytest.raises(ValueError, match=r"^n must be an integer >= 0, got -1$"):
         Codebook(PREFIX_FREE).decode(bitarray("0"), -1)
 
 

@@ -406,3 +406,24 @@ def test_replay_of_a_bytecodec_builtin_and_bound_decompressor(tmp_path: Path) ->
     assert "; always_exits(load_damaged(" in line
     with pytest.raises(SystemExit):
         exec(line, {"always_exits": always_exits})
+
+
+def test_a_codebook_is_written_out_only_when_small_and_nameless() -> None:
+    from pytest_ratefloor.codecs import as_codec
+    from pytest_ratefloor.codes import Codebook
+    from pytest_ratefloor.corruption.replay import TABLE_MAX, replay_lines
+
+    saved = Path("saved.bin")
+    [line] = replay_lines(as_codec(Codebook({0: "0", 1: "1"}, name="coin")), saved, 7)
+    assert line.endswith(
+        "from pytest_ratefloor.codes import Codebook; "
+        "Codebook({0: '0', 1: '1'}, name='coin').decode(load_damaged('saved.bin'), 7)"
+    )
+    table = Codebook({s: format(s, "06b") for s in range(TABLE_MAX + 1)})
+    line, note = replay_lines(as_codec(dict(table.codewords)), saved, 7)
+    assert line.endswith("; codebook.decode(load_damaged('saved.bin'), 7)")
+    assert note.startswith("(codebook: Codebook('codebook', 33 symbols, lengths 6..6 bits)")
+    # a name in reach is used for a table of any size
+    line, note = replay_lines(as_codec(table), saved, 7)
+    assert line.endswith("; table.decode(load_damaged('saved.bin'), 7)")
+    assert "where table is local" in note

@@ -9,9 +9,11 @@ replay file.
 
 What counts as surviving
     For every damaged stream the decoder must return within ``timeout``
-    seconds and either raise an ordinary exception (any ``Exception`` other
-    than ``MemoryError``) or return something. A wrong result is acceptable,
-    because a format without an integrity check cannot know. With
+    seconds and either raise an ordinary exception (any ``Exception``; a
+    ``MemoryError`` too when it is raised before the worker has grown, e.g. to
+    refuse a header that asks for 6·10^18 bytes) or return something. A wrong
+    result is acceptable, because a format without an integrity check cannot
+    know. With
     ``must_detect=True`` (formats that promise detection, e.g. with a
     checksum) returning anything other than the original symbols is a
     failure; returning the original exactly (as decoders that ignore trailing
@@ -19,9 +21,12 @@ What counts as surviving
 
     A failure is one of: ``hang`` (no answer within the timeout), ``crash``
     (the interpreter died: a signal such as SIGSEGV/SIGABRT, or an exit),
-    ``memory`` (``MemoryError`` once the worker's address space grew past
-    ``memory_limit``, or the worker was killed by SIGKILL, which is what the
-    kernel's out-of-memory killer sends), ``exit`` (the decoder raised
+    ``memory`` (``MemoryError`` after the worker really grew: by at least
+    :data:`~pytest_ratefloor.corruption.memory.GROWTH_SHARE` of
+    ``memory_limit`` (of the default limit when there is none), as measured
+    from its address space, or its peak resident size where that is all there
+    is; or the worker was killed by SIGKILL, which is what the kernel's
+    out-of-memory killer sends), ``exit`` (the decoder raised
     ``SystemExit``/``KeyboardInterrupt``, which would end a test session) and
     ``silent`` (must-detect mode only: wrong data returned without an error).
 
@@ -30,7 +35,13 @@ Isolation
     and reports each outcome over a pipe; the parent waits at most
     ``timeout`` for each report. A hung worker is killed, a dead one is
     reaped, the trial is recorded as failed, and a fresh worker continues
-    with the next trial. On Linux (and other non-macOS systems that have it)
+    with the next trial. The worker starts a session (and process group) of
+    its own before anything else, so every process the decoder starts belongs
+    to it; whenever a worker is torn down (a hang, a death, the end of the
+    run) the whole group is killed with SIGKILL before the worker is reaped,
+    and nothing the decoder started outlives the check (except a process that
+    left the group on purpose by starting its own session). On Linux (and
+    other non-macOS systems that have it)
     the worker is started with ``fork``: it inherits the decoder, so closures
     and lambdas defined in test files work. Elsewhere (macOS, where ``fork``
     is unsafe with system libraries, and Windows) it is started with
@@ -67,9 +78,13 @@ Bit-level payloads
 
 Where things are
     ``schedule`` (the :class:`Corruption` record, the damage kinds,
-    :func:`corruption_schedule`), ``worker`` (the isolated worker, the memory
-    guard, :func:`run_corruption_trials` and its records), ``replay`` (saved
-    damaged streams, :func:`load_damaged`, replay statements) and ``check``
+    :func:`corruption_schedule`), ``worker`` (the isolated worker,
+    :func:`run_corruption_trials` and its records), ``memory`` (the memory
+    guard, and the measures that tell growth from refusal), ``replay`` (saved
+    damaged streams, :func:`load_damaged`, and the replay lines of a failure,
+    which run as printed: the decoder is named by its import path, by the
+    name the calling test has for it, or, when it has none in reach, a note
+    says what to bind first) and ``check``
     (:func:`assert_survives_corruption`, and ``survive_damage`` for a codec
     and an encoding that ``ratefloor.check`` already made).
 """

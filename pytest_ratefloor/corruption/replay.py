@@ -22,7 +22,8 @@ calls is named by something that reaches it, tried in this order:
    passed): the line runs in that module or function, and a note says which;
 4. a module-level name in the module that defined it (``import m; m.CODEC.decode``);
 5. for a bound method, the same for its instance (``codec.decode``); for a
-   partial, the same for its function; for a small codebook, its table.
+   partial, the same for its function; for a codebook of up to
+   :data:`TABLE_MAX` codewords, its table written out.
 
 A decoder reached by none of these (a lambda or closure with no name in reach)
 is called under the adapter's variable name (``decode``, ``decompress``,
@@ -46,6 +47,7 @@ from pathlib import Path
 from typing import Any
 
 from pytest_ratefloor.codecs import Codec, PayloadShape, ReplayCall
+from pytest_ratefloor.codes import Codebook
 
 __all__ = ["load_damaged", "replay_lines", "save_damaged", "stem_for"]
 
@@ -54,6 +56,10 @@ _LOAD = "from pytest_ratefloor.corruption import load_damaged"
 
 #: Frames of the caller searched for a name of the decoder, nearest first.
 _CALLER_FRAMES = 4
+
+#: A codebook of at most this many codewords is written out in full in a replay
+#: line when it has no name the line can use (a longer table would bury the line).
+TABLE_MAX = 32
 
 
 def stem_for(codec_name: str, seed: int, trial: int, kind: str) -> str:
@@ -118,9 +124,10 @@ def replay_lines(codec: Codec, path: Path, n: int) -> list[str]:
     (``replay: ...``), and a note when the line holds only in some scope or needs a
     name bound first (see the module docstring)."""
     call = codec.replay_call(f"load_damaged({str(path)!r})", n)
-    found = _reference(call.target, _caller_frames())
-    if found is None and call.rebuild is not None:
-        found = _Reference(call.rebuild, call.imports)
+    try:
+        found = _reference(call.target, _caller_frames()) or _written_table(call.target)
+    except Exception:  # user objects with odd attributes: the failure must still be told
+        found = None
     if found is None:
         return [
             f"replay: {_LOAD}; {call.call(call.role)}",
@@ -169,7 +176,8 @@ def _reference(target: object, frames: list[types.FrameType]) -> _Reference | No
         return found
     owner = getattr(target, "__self__", None)
     method = getattr(target, "__name__", None)
-    if owner is not None and not isinstance(owner, types.ModuleType) and method:
+    if owner is not None and owner is not target and not isinstance(owner, types.ModuleType) \
+            and isinstance(method, str):
         if getattr(owner, method, None) == target:
             base = _reference(owner, frames)
             if base is not None:
@@ -254,6 +262,18 @@ def _partial(target: functools.partial[Any], frames: list[types.FrameType]) -> _
     )
 
 
+def _written_table(target: object) -> _Reference | None:
+    """``Codebook({...}, name=...)`` for a codebook of at most :data:`TABLE_MAX`
+    codewords (its table written out: an equal codebook, built from scratch)."""
+    if not isinstance(target, Codebook) or len(target) > TABLE_MAX:
+        return None
+    table = ", ".join(f"{s}: {target.word(s)!r}" for s in target.symbols)
+    return _Reference(
+        f"Codebook({{{table}}}, name={target.name!r})",
+        ("from pytest_ratefloor.codes import Codebook",),
+    )
+
+
 def _short_path(filename: str) -> str:
     try:
         return os.path.relpath(filename)
@@ -286,4 +306,7 @@ def _describe(target: object) -> str:
         return f"the function {qualname} {where}"
     if isinstance(qualname, str):
         return qualname
+    text = repr(target)
+    if not text.startswith("<") and len(text) <= 100:  # a repr of its own, e.g. a Codebook's
+        return text
     return f"a {type(target).__qualname__} object"

@@ -3,11 +3,13 @@
 Each damaged stream is decoded in one worker process that runs the trials in
 order and reports each outcome over a pipe; the parent waits at most
 ``timeout`` per report, kills a hung worker, reaps a dead one and starts a
-fresh worker for the next trial. The worker's memory is guarded as the
-package docstring of :mod:`pytest_ratefloor.corruption` describes
-(``RLIMIT_AS`` on Linux, the peak resident size elsewhere). The outcome of a
-trial is a :data:`TrialStatus`; :data:`TRIAL_STATUSES` is the one table of
-what each status means and how messages name it.
+fresh worker for the next trial; each worker leads a process group of its
+own, which is killed whole when the worker is torn down. The worker's memory
+is guarded as the package docstring of :mod:`pytest_ratefloor.corruption`
+describes (:mod:`~pytest_ratefloor.corruption.memory`: ``RLIMIT_AS`` on Linux,
+the peak resident size elsewhere). The outcome of a trial is a
+:data:`TrialStatus`; :data:`TRIAL_STATUSES` is the one table of what each
+status means and how messages name it.
 """
 
 from __future__ import annotations
@@ -38,6 +40,14 @@ from pytest_ratefloor.codecs import (
     PayloadShape,
     decoded_array,
     encoded_from_stream,
+)
+from pytest_ratefloor.corruption.memory import (
+    GROWTH_SHARE,
+    MemoryMark,
+    growth,
+    guard_memory,
+    peak_rss,
+    size_text,
 )
 from pytest_ratefloor.corruption.schedule import Corruption
 from pytest_ratefloor.errors import CodecMisbehaviour, CorruptionSetupError
@@ -155,121 +165,6 @@ class _Job:
 # the worker process
 
 
-def _vm_size() -> int | None:
-    """Current address-space size of this process in bytes (Linux), else None."""
-    return _MemoryMark.now().address_space
-
-
-def _peak_rss() -> int | None:
-    """Peak resident size of this process in bytes, where ``resource`` exists."""
-    try:
-        import resource
-    except ImportError:
-        return None
-    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
-    return int(peak) if sys.platform == "darwin" else int(peak) * 1024  # macOS: bytes; else KiB
-
-
-#: A ``MemoryError`` counts as memory growth (not as an ordinary rejection) when the
-#: worker grew by at least this share of the limit first. A buffer that grows by a
-#: factor g each step fails once the next step no longer fits, having grown by more
-#: than limit/g by then (more than limit/(1+g) when old and new are held at once, and
-#: then at a peak above limit/g); CPython's lists and bytearrays grow by about 1/8
-#: (Objects/listobject.c, Objects/bytearrayobject.c), hand-written buffers commonly
-#: by 1.5 or 2 (common practice), so 1/8 catches every such loop with room to spare,
-#: while a decoder that refuses an absurd header with ``raise MemoryError`` at once
-#: has grown by next to nothing.
-GROWTH_SHARE = 1 / 8
-
-
-@dataclass(frozen=True)
-class _MemoryMark:
-    """The worker's memory at one moment: its address space now and at its peak
-    (``/proc/self/status``, Linux), and its peak resident size (``getrusage``);
-    ``None`` where the platform does not tell."""
-
-    address_space: int | None
-    peak_address_space: int | None
-    peak_resident: int | None
-
-    @classmethod
-    def now(cls) -> _MemoryMark:
-        size = peak = None
-        try:
-            with open("/proc/self/status") as fh:
-                for line in fh:
-                    key, _, value = line.partition(":")
-                    if key in ("VmSize", "VmPeak"):
-                        kib = int(value.split()[0]) * 1024  # the file gives kB (proc(5))
-                        if key == "VmSize":
-                            size = kib
-                        else:
-                            peak = kib
-        except (OSError, ValueError, IndexError):
-            pass
-        return cls(size, peak, _peak_rss())
-
-
-def _growth(start: _MemoryMark, before: _MemoryMark, after: _MemoryMark) -> int:
-    """Bytes the worker grew by since ``start`` (its own start), as far as can be told
-    at ``after``: the address space held now (the failed decoder's frames, and what
-    they hold, are still alive while its exception is handled), or the peak address
-    space if this trial (begun at ``before``) raised it; else the rise of the peak
-    resident size during the trial. 0 when nothing can be measured."""
-    grown = 0
-    if start.address_space is not None and after.address_space is not None:
-        grown = after.address_space - start.address_space
-        if (
-            after.peak_address_space is not None
-            and before.peak_address_space is not None
-            and after.peak_address_space > before.peak_address_space
-        ):
-            grown = max(grown, after.peak_address_space - start.address_space)
-    elif after.peak_resident is not None and before.peak_resident is not None:
-        grown = after.peak_resident - before.peak_resident
-    return max(grown, 0)
-
-
-def size_text(size: int) -> str:
-    """``size`` bytes for a message: ``64 MiB``, ``1.5 GiB``, ``300 bytes``."""
-    for unit, scale in (("GiB", 1 << 30), ("MiB", 1 << 20), ("KiB", 1 << 10)):
-        if size >= scale:
-            return f"{size / scale:.4g} {unit}"
-    return f"{size} bytes"
-
-
-def _guard_memory(limit: int | None) -> tuple[str, int | None]:
-    """Limit the worker's memory. Returns the guard used and, for the peak-RSS
-    guard, the RSS ceiling to compare with after each trial."""
-    try:
-        import resource
-    except ImportError:
-        resource = None  # type: ignore[assignment]
-    if resource is not None:
-        with contextlib.suppress(ValueError, OSError):
-            # No core files from decoders that crash on purpose-built damage.
-            resource.setrlimit(
-                resource.RLIMIT_CORE, (0, resource.getrlimit(resource.RLIMIT_CORE)[1])
-            )
-    if limit is None:
-        return "none", None
-    base = _vm_size()
-    if resource is not None and base is not None and sys.platform.startswith("linux"):
-        _soft, hard = resource.getrlimit(resource.RLIMIT_AS)
-        ceiling = base + limit
-        if hard != resource.RLIM_INFINITY:
-            ceiling = min(ceiling, hard)
-        try:
-            resource.setrlimit(resource.RLIMIT_AS, (ceiling, hard))
-            return "address-space", None
-        except (ValueError, OSError):
-            pass
-    rss = _peak_rss()
-    if rss is None:
-        return "none", None
-    return "peak-rss", rss + limit
-
-
 def _same_symbols(result: object, expected: np.ndarray) -> tuple[bool, str]:
     """Whether a decode result equals the original symbols, and if not, how it differs.
     Output that is no sequence of integers is named as the codec adapters name it."""
@@ -298,14 +193,14 @@ def _exception_name(exc: BaseException) -> str:
 
 
 def _one_trial(
-    job: _Job, index: int, rss_ceiling: int | None, start: _MemoryMark
+    job: _Job, index: int, rss_ceiling: int | None, start: MemoryMark
 ) -> tuple[TrialStatus, str]:
     damaged = job.shape.rebuild(job.schedule[index].apply(job.stream))
-    before = _MemoryMark.now()
+    before = MemoryMark.now()
     try:
         result = job.decoder(damaged, job.n)
     except MemoryError as exc:
-        grown = _growth(start, before, _MemoryMark.now())
+        grown = growth(start, before, MemoryMark.now())
         scale = DEFAULT_MEMORY_LIMIT if job.memory_limit is None else job.memory_limit
         if grown < scale * GROWTH_SHARE:
             # Refused at once (e.g. a header asking for 6·10^18 bytes): a rejection.
@@ -318,7 +213,7 @@ def _one_trial(
     except BaseException as exc:  # SystemExit, KeyboardInterrupt, GeneratorExit
         return "exit", f"raised {_exception_name(exc)}({exc!s}), which would end a test session"
     if rss_ceiling is not None:
-        peak = _peak_rss()
+        peak = peak_rss()
         if peak is not None and peak > rss_ceiling:
             return "memory", f"peak resident size reached {size_text(peak)}"
     if job.expected is None:
@@ -349,8 +244,8 @@ def _worker_main(conn: Connection, job: _Job, start: int) -> None:
         # On a fatal signal, print the decoder's Python traceback to file descriptor 2,
         # which pytest captures and shows beside the failure.
         faulthandler.enable(file=sys.__stderr__ or sys.stderr)
-    guard, rss_ceiling = _guard_memory(job.memory_limit)
-    mark = _MemoryMark.now()
+    guard, rss_ceiling = guard_memory(job.memory_limit)
+    mark = MemoryMark.now()
     conn.send(("ready", guard))
     for index in range(start, len(job.schedule)):
         status, detail = _one_trial(job, index, rss_ceiling, mark)

@@ -150,7 +150,7 @@ def _check_source(source: object) -> None:
 
 def _roundtrip(codec: Any, source: Source, plan: CheckPlan) -> RoundTrip:
     __tracebackhide__ = True
-    isolation.step("running the round trip (encoding, decoding, edge cases)")
+    isolation.step("drawing the sample")
     return run_roundtrip(codec, source, plan.n, plan.seed, plan.edge_cases)
 
 

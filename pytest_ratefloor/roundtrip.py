@@ -30,6 +30,7 @@ from pytest_ratefloor.errors import (
     LayoutError,
     RoundTripFailure,
 )
+from pytest_ratefloor.isolation import step
 
 if TYPE_CHECKING:
     from pytest_ratefloor.sources import Source
@@ -66,6 +67,7 @@ class _Run:
 
 def _encode(codec: Codec, symbols: np.ndarray, run: _Run, case: str) -> Encoded:
     __tracebackhide__ = True
+    step(f"encoding {case}")
     try:
         return codec.encode(symbols)
     except CodecContractError as exc:
@@ -90,6 +92,7 @@ def _encode(codec: Codec, symbols: np.ndarray, run: _Run, case: str) -> Encoded:
 
 def _decode(codec: Codec, encoded: Encoded, n: int, run: _Run, case: str) -> np.ndarray:
     __tracebackhide__ = True
+    step(f"decoding {case}")
     try:
         return codec.decode(encoded, n)
     except CodecContractError as exc:

@@ -49,11 +49,12 @@ def test_os_exit_in_the_child_fails_the_case_with_the_status_and_the_step() -> N
     text = str(info.value)
     assert text.startswith("codec 'z' on uniform(k=16), n=2000, seed=0: ")
     assert "ended with exit status 0" in text
-    assert "while running the round trip" in text
+    assert "while decoding the sample (2000 symbols)" in text
 
 
 def test_os_exit_in_process_is_intercepted() -> None:
-    with pytest.raises(CodecMisbehaviour, match=r"called os\._exit\(0\)"):
+    with pytest.raises(CodecMisbehaviour,
+                       match=r"called os\._exit\(0\) while decoding the sample"):
         check(_codec(_exit_in_decoder), SOURCE, n=N, rel=0.5, isolate=False)
     assert os._exit.__name__ == "_exit"  # the real one is back
 

@@ -12,7 +12,9 @@ Failures are ``AssertionError`` subclasses from :mod:`pytest_ratefloor.errors`.
 
 from __future__ import annotations
 
+import dataclasses
 import os
+import warnings
 from collections.abc import Callable
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any, TypedDict, TypeVar
@@ -20,16 +22,18 @@ from typing import TYPE_CHECKING, Any, TypedDict, TypeVar
 from pytest_ratefloor import isolation, validation
 from pytest_ratefloor.codecs import as_codec
 from pytest_ratefloor.edge_cases import edge_case_inputs
-from pytest_ratefloor.errors import RateFloorFailure
-from pytest_ratefloor.floors import Floor, check_floor
+from pytest_ratefloor.errors import NoisyToleranceWarning, RateFloorFailure
+from pytest_ratefloor.floors import DEFAULT_FLOOR, Floor, check_floor
 from pytest_ratefloor.measurement import CaseKey, Measurement, sample_fingerprint
 from pytest_ratefloor.rate import (
     DEFAULT_ABS,
     DEFAULT_REL,
     IMPOSSIBLE_CONFIDENCE_BITS,
+    allowed_excess_bits,
     elias_delta_length,
     impossible_margin,
     measurement_of,
+    noise_warning,
     rate_verdict,
     sample_information,
     tolerance,
@@ -82,7 +86,9 @@ class CheckOptions(TypedDict, total=False):
     """The keyword arguments every check takes; defaults and rules are :class:`CheckPlan`'s.
 
     ``n``: symbols in the sample (default 100 000); ``seed``: the sample's
-    seed (0); ``floor``: the floor the rate is measured from (``"entropy"``);
+    seed (0); ``floor``: the floor the rate is measured from (``"sample"``,
+    the sample's self-information: no sampling noise; see
+    :data:`~pytest_ratefloor.floors.DEFAULT_FLOOR`);
     ``rel``/``abs``: the tolerance over the floor (default ``rel=0.01``);
     ``edge_cases``: also round-trip the edge cases (``True``); ``corruption``:
     also feed the decoder damaged streams (``False``); ``isolate``: run the
@@ -115,7 +121,7 @@ class CheckPlan:
 
     n: int = DEFAULT_N
     seed: int = 0
-    floor: Floor = "entropy"
+    floor: Floor = DEFAULT_FLOOR
     rel: float | None = None
     abs: float | None = None
     edge_cases: bool = True
@@ -206,6 +212,8 @@ def run_check(
         __tracebackhide__ = True
         trip = _roundtrip(codec, source, plan)
         m = _measurement(trip, plan)
+        m = dataclasses.replace(
+            m, tolerance_bits=allowed_excess_bits(m.floor_bits, m.n, plan.rel, plan.abs))
         failure = rate_verdict(m, plan.rel, plan.abs, codec=trip.codec, source=source)
         damage = None
         if plan.corruption and failure is None:
@@ -216,6 +224,9 @@ def run_check(
         return m, failure, damage
 
     m, failure, damage = _guarded(work, codec, source, plan)
+    noisy = noise_warning(m)
+    if noisy is not None:
+        warnings.warn(NoisyToleranceWarning(noisy), stacklevel=2)
     if on_measurement is not None:
         try:
             on_measurement(m)
@@ -231,7 +242,7 @@ def run_check(
 
 
 def measure(
-    codec: Any, source: Source, n: int = DEFAULT_N, seed: int = 0, floor: Floor = "entropy",
+    codec: Any, source: Source, n: int = DEFAULT_N, seed: int = 0, floor: Floor = DEFAULT_FLOOR,
     isolate: bool | None = None,
 ) -> Measurement:
     """Encode ``n`` symbols of ``source`` once and measure the length against ``floor``.
@@ -270,7 +281,7 @@ def assert_rate(
     source: Source,
     n: int = DEFAULT_N,
     seed: int = 0,
-    floor: Floor = "entropy",
+    floor: Floor = DEFAULT_FLOOR,
     rel: float | None = None,
     abs: float | None = None,
     isolate: bool | None = None,

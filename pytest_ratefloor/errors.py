@@ -39,6 +39,7 @@ __all__ = [
     "LedgerError",
     "NewCaseFailure",
     "NewerLedgerError",
+    "NoisyToleranceWarning",
     "PrefixFailure",
     "RateFailure",
     "RateFloorFailure",
@@ -163,6 +164,15 @@ class CorruptionSetupError(RuntimeError):
 
 class SearchLimitError(RuntimeError):
     """A bounded search (e.g. Sardinas–Patterson) hit its documented limit."""
+
+
+# -- warnings ----------------------------------------------------------------------------
+
+
+class NoisyToleranceWarning(UserWarning):
+    """A check's tolerance is smaller than the sampling noise of its floor (or than one
+    bit): its verdict depends on the luck of one sample. The message names the case,
+    the spread and the ``n`` from which the tolerance would be meaningful."""
 
 
 class CommandLineError(Exception):

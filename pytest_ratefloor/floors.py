@@ -95,6 +95,14 @@ FLOORS: dict[Floor, str] = {
     "adaptive": "the Krichevsky–Trofimov ideal code length of the sample",
 }
 
+#: The floor a check measures from when ``floor=`` is not given: the sample's own
+#: self-information. It has no sampling noise: a correct coder built for the source
+#: sits a few bits above it on every sample, so a tolerance over it separates a good
+#: coder from a worse one whatever the luck of the draw; ``entropy`` (n·H) moves
+#: with the sample by about √(n·V) bits (V the varentropy rate) and at practical n
+#: that is often more than the tolerance. See the README's floors section.
+DEFAULT_FLOOR: Floor = "sample"
+
 HUFFMAN_TAIL = 2.0**-60
 _LN2 = math.log(2.0)
 _huffman_cache: dict[str, float] = {}

@@ -31,7 +31,7 @@ import pytest
 from pytest_ratefloor import checks
 from pytest_ratefloor.checks import DEFAULT_N, CheckOptions, CheckPlan, SaveDir
 from pytest_ratefloor.codecs import as_codec
-from pytest_ratefloor.floors import Floor
+from pytest_ratefloor.floors import DEFAULT_FLOOR, Floor
 from pytest_ratefloor.measurement import Measurement
 
 if TYPE_CHECKING:
@@ -117,7 +117,7 @@ class RateFloorHarness:
         """Round trip (sample and edge cases), rate within tolerance, recorded.
 
         ``options`` are the :class:`~pytest_ratefloor.checks.CheckOptions`:
-        ``n`` (default 100 000), ``seed`` (0), ``floor`` (``"entropy"``),
+        ``n`` (default 100 000), ``seed`` (0), ``floor`` (``"sample"``),
         ``rel``/``abs`` (default ``rel=0.01``), ``edge_cases`` (``True``),
         ``corruption`` (``False``) and ``isolate`` (the run's setting). With
         ``corruption=True`` the decoder must then also survive damaged
@@ -136,7 +136,7 @@ class RateFloorHarness:
         source: Source,
         n: int = DEFAULT_N,
         seed: int = 0,
-        floor: Floor = "entropy",
+        floor: Floor = DEFAULT_FLOOR,
         isolate: bool | None = None,
     ) -> Measurement:
         """Measure and record without a tolerance (the sample must still round-trip)."""

@@ -25,7 +25,24 @@ from typing import TYPE_CHECKING, Any, NamedTuple
 if TYPE_CHECKING:  # numpy is imported where a sample is hashed, not at pytest start-up
     from numpy.typing import ArrayLike
 
-__all__ = ["CaseKey", "Measurement", "figure", "sample_fingerprint"]
+__all__ = [
+    "DETECTION_Z",
+    "NOISY_FLOORS",
+    "CaseKey",
+    "Measurement",
+    "figure",
+    "sample_fingerprint",
+]
+
+#: Floors taken from the source's law rather than from the sample (see
+#: :mod:`pytest_ratefloor.floors`): an ideal coder's length differs from them by
+#: the sample's luck, about √(n·V) bits with V the varentropy rate. The others
+#: (``sample``, ``empirical``, ``adaptive``) are computed on the very sample.
+NOISY_FLOORS = frozenset({"entropy", "huffman"})
+#: One-sided standard normal quantile for 99.9 %: Φ⁻¹(0.999) = 3.0902 (tables;
+#: scipy.stats.norm.ppf(0.999) gives 3.090232306). A coder whose expected excess
+#: is the detectable excess fails on at least 99.9 % of samples.
+DETECTION_Z = 3.090232306167813
 
 
 class CaseKey(NamedTuple):
@@ -88,6 +105,8 @@ class Measurement:
     source_family: str = ""
     source_params: dict[str, float] = field(default_factory=dict)
     alphabet_size: int | None = None
+    #: bits the check allowed over ``floor_bits`` (its tolerance); ``None`` without one
+    tolerance_bits: float | None = None
 
     @property
     def key(self) -> CaseKey:
@@ -115,6 +134,32 @@ class Measurement:
         if self.bits == 0:
             return 1.0 if self.floor_bits <= 0 else math.inf
         return self.floor_rate / self.rate
+
+    @property
+    def floor_spread_bits(self) -> float | None:
+        """Sampling spread of the floor against an ideal coder's length, in bits.
+
+        √n·``spread`` (= √(n·V), V the varentropy rate) for a floor taken from the
+        source's law (:data:`NOISY_FLOORS`); 0 for a floor computed on the sample
+        itself; ``None`` when the run did not record the spread (a ledger entry).
+        """
+        if self.floor not in NOISY_FLOORS:
+            return 0.0
+        if self.spread is None:
+            return None
+        return self.spread * math.sqrt(self.n)
+
+    @property
+    def detectable_excess(self) -> float | None:
+        """The smallest expected excess over the floor (bits/symbol) this case fails on
+        at least 99.9 % of samples: the tolerance plus :data:`DETECTION_Z` sampling
+        spreads of the floor (none for floors computed on the sample). ``None``
+        without a tolerance or a spread.
+        """
+        spread = self.floor_spread_bits
+        if self.tolerance_bits is None or spread is None or not self.n:
+            return None
+        return (self.tolerance_bits + DETECTION_Z * spread) / self.n
 
     def recorded(self) -> Measurement:
         """The form a ledger keeps: figures rounded (see :func:`figure`), run details dropped.

@@ -61,7 +61,7 @@ def pytest_deselected(items: list[pytest.Item]) -> None:
 def ratefloor(request: pytest.FixtureRequest) -> RateFloorHarness:
     """Check a codec against reference sources and gate it on the rate ledger.
 
-    ``ratefloor.check(codec, source, n=100_000, seed=0, floor="entropy", rel=..., abs=...)``
+    ``ratefloor.check(codec, source, n=100_000, seed=0, floor="sample", rel=..., abs=...)``
     runs the round trip and the rate check and records the measurement for the
     ledger (a case needing more bits than its ledger entry fails the test), the
     terminal summary, the reports and JUnit XML properties.

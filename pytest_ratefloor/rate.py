@@ -21,7 +21,7 @@ import numpy as np
 from pytest_ratefloor import validation
 from pytest_ratefloor.errors import ImpossibleRate, RateFailure, RateFloorFailure
 from pytest_ratefloor.floors import FLOORS, Floor, floor_bits
-from pytest_ratefloor.measurement import Measurement, sample_fingerprint
+from pytest_ratefloor.measurement import NOISY_FLOORS, Measurement, sample_fingerprint
 
 if TYPE_CHECKING:
     from pytest_ratefloor.codecs import Codec, Encoded
@@ -31,9 +31,12 @@ __all__ = [
     "DEFAULT_ABS",
     "DEFAULT_REL",
     "IMPOSSIBLE_CONFIDENCE_BITS",
+    "NOISE_SPREADS",
+    "allowed_excess_bits",
     "elias_delta_length",
     "impossible_margin",
     "measurement_of",
+    "noise_warning",
     "rate_verdict",
     "sample_information",
     "tolerance",
@@ -80,6 +83,15 @@ def impossible_margin(bits: int, c: int = IMPOSSIBLE_CONFIDENCE_BITS) -> float:
     return float(c + elias_delta_length(int(bits) + 1))
 
 
+#: A tolerance is meaningful when it exceeds this many sampling spreads of the floor:
+#: an ideal coder exceeds a noisy floor by 3 spreads on 0.13 % of samples (one-sided
+#: normal tail, Φ(−3) = 0.00135; the normal approximation of the sample's
+#: information is the central limit theorem, for chains the Markov-chain CLT).
+NOISE_SPREADS = 3.0
+#: ... and at least one bit: a code length is an integer.
+_ROUNDING_BITS = 1.0
+
+
 def tolerance(rel: float | None, abs: float | None) -> tuple[float, float]:
     """Resolve ``rel``/``abs`` as documented in the module docstring (each >= 0, finite)."""
     if rel is None and abs is None:
@@ -121,6 +133,56 @@ def sample_information(source: Source, sample: np.ndarray) -> float:
     return float(np.dot(counts[present].astype(np.float64), per_symbol))
 
 
+def allowed_excess_bits(floor_bits: float, n: int, rel: float | None,
+                        abs: float | None) -> float:
+    """Bits a length may exceed ``floor_bits`` by: ``max(rel·floor, abs·n)`` (see the
+    module docstring for the defaults)."""
+    rel_, abs_ = tolerance(rel, abs)
+    return max(rel_ * floor_bits, abs_ * n)
+
+
+def noise_warning(m: Measurement) -> str | None:
+    """Why the verdict of ``m`` depends on the luck of its sample, or ``None``.
+
+    The allowed excess (``m.tolerance_bits``) should exceed
+    :data:`NOISE_SPREADS` sampling spreads of the floor (floors taken from the
+    source's law move with the sample by √(n·V) bits, V the varentropy rate;
+    floors computed on the sample do not) and one bit (lengths are integers).
+    The message names the case, the spread and the ``n`` from which the same
+    tolerance would be meaningful (its relative part grows like n, the spread
+    like √n).
+    """
+    spread = m.floor_spread_bits
+    allowed = m.tolerance_bits
+    if allowed is None or spread is None or not m.n:
+        return None
+    if allowed == 0 and spread == 0:
+        return None  # an exact floor asked to be met exactly (a dyadic code): deliberate
+    need_bits = max(NOISE_SPREADS * spread, _ROUNDING_BITS)
+    if allowed >= need_bits:
+        return None
+    per_symbol = allowed / m.n  # the tolerance as bits per symbol: it scales with n
+    variance_rate = (spread * spread) / m.n
+    if per_symbol > 0:
+        n_noise = (NOISE_SPREADS ** 2) * variance_rate / (per_symbol ** 2)
+        n_needed = max(n_noise, _ROUNDING_BITS / per_symbol, float(m.n))
+        advice = f"n >= {math.ceil(n_needed):,} would make this tolerance meaningful"
+    else:
+        advice = "a zero tolerance on a floor with sampling noise is a coin toss; give rel or abs"
+    if spread > 0:
+        why = (f"{NOISE_SPREADS:g} sampling spreads of the {m.floor} floor "
+               f"(spread ±{spread:,.1f} bits = √(n·V), V the varentropy rate)")
+    else:
+        why = "one bit (code lengths are whole bits)"
+    return (
+        f"ratefloor: the tolerance of {m.key.phrase} ({allowed:,.1f} bits over the "
+        f"{m.floor} floor) is smaller than {why}: its verdict depends on the luck of this "
+        f"one sample. {advice}" + (
+            "; or measure from floor='sample', which has no sampling noise"
+            if m.floor in NOISY_FLOORS else "")
+    )
+
+
 def measurement_of(codec: Codec, source: Source, sample: np.ndarray, seed: int,
                    encoded: Encoded, floor: Floor, encode_seconds: float = 0.0,
                    decode_seconds: float = 0.0) -> Measurement:
@@ -143,7 +205,7 @@ def measurement_of(codec: Codec, source: Source, sample: np.ndarray, seed: int,
         floor_bits=float(bits),
         fingerprint=sample_fingerprint(sample, bounds=_declared_range(source)),
         sample_information=information,
-        spread=math.sqrt(max(0.0, float(source.varentropy)) / n) if n else 0.0,
+        spread=math.sqrt(max(0.0, _varentropy_rate(source)) / n) if n else 0.0,
         codec_version=codec.version,
         encode_seconds=encode_seconds,
         decode_seconds=decode_seconds,
@@ -151,6 +213,11 @@ def measurement_of(codec: Codec, source: Source, sample: np.ndarray, seed: int,
         source_params=params,
         alphabet_size=None if source.alphabet_size is None else int(source.alphabet_size),
     )
+
+
+def _varentropy_rate(source: Source) -> float:
+    """The sample information's variance per symbol (the varentropy rate for chains)."""
+    return float(getattr(source, "varentropy_rate", source.varentropy))
 
 
 def _declared_range(source: Source) -> tuple[int, int] | None:
@@ -204,7 +271,7 @@ def rate_verdict(
             "  the decoder must be getting information from outside the stream (shared "
             "state, a side channel, the sample itself), or the bit count is wrong"
         )
-    allowed_bits = m.floor_bits + max(rel_ * m.floor_bits, abs_ * m.n)
+    allowed_bits = m.floor_bits + allowed_excess_bits(m.floor_bits, m.n, rel_, abs_)
     allowed_bits += _FLOAT_SLACK * max(1.0, math.fabs(m.floor_bits))
     if m.bits <= allowed_bits:
         return None

@@ -30,7 +30,7 @@ from pytest_ratefloor.escaping import json_safe, markdown_text, md_name, plot_te
 from pytest_ratefloor.ledger import Environment, entry_json
 from pytest_ratefloor.measurement import Measurement
 from pytest_ratefloor.recording import write_atomic
-from pytest_ratefloor.verdicts import VERDICTS, Colour, Comparison
+from pytest_ratefloor.verdicts import SUSPICIOUS_SPREADS, VERDICTS, Colour, Comparison
 
 #: Version of the JSON report layout.
 REPORT_SCHEMA_VERSION = 1
@@ -195,12 +195,28 @@ def _capped(items: Sequence[str], limit: int | None, more_hint: str) -> list[Lin
     return lines
 
 
+def suspicious_lines(rows: Sequence[Comparison], escape: Callable[[str], str]) -> list[Line]:
+    """A note naming cases whose bits dropped on the same sample by more than the sampling
+    spread (see :attr:`~pytest_ratefloor.verdicts.Comparison.suspicious_drop`)."""
+    flagged = [r for r in rows if r.suspicious_drop]
+    if not flagged:
+        return []
+    out = [Line(f"worth a look: {len(flagged)} case(s) dropped on the same sample by more "
+                f"than {SUSPICIOUS_SPREADS:g} sampling spreads (genuine, or a decoder fed "
+                "from outside the stream):", "yellow")]
+    for r in flagged[:NOT_RECORDED_SHOWN]:
+        out.append(Line(f"  {escape(r.key.label)}: {r.delta_bits:+,} bits", "yellow"))
+    return out
+
+
 def summary_lines(rows: Sequence[Comparison], outcome: RunOutcome, verbose: bool = False,
                   quiet: bool = False) -> list[Line]:
     """The terminal summary: one line per case, then the ledger line and the caution.
 
     Compact: codec, source, entropy, floor, rate, efficiency, change against the
-    ledger. ``verbose`` adds n, seed, bits, ledger bits, excess and timings, and
+    ledger. ``verbose`` adds n, seed, bits, ledger bits, excess, the smallest
+    excess the case detects (``Measurement.detectable_excess``: the tolerance
+    plus 3.09 sampling spreads of a noisy floor) and timings, and
     lists every stale entry and every case left out of a recording (compact lists
     at most five and :data:`NOT_RECORDED_SHOWN`). ``quiet`` leaves out the cases
     whose bits equal the ledger's and shortens the lists, but the line naming the
@@ -215,7 +231,8 @@ def summary_lines(rows: Sequence[Comparison], outcome: RunOutcome, verbose: bool
     if rows:
         header = ["codec", "source", "H b/sym", "floor b/sym", "rate b/sym", "eff."]
         if verbose:
-            header += ["n", "seed", "bits", "ledger bits", "excess b/sym", "enc s", "dec s"]
+            header += ["n", "seed", "bits", "ledger bits", "excess b/sym", "detects b/sym",
+                       "enc s", "dec s"]
         header.append("vs. ledger")
         table = [header]
         for r in rows:
@@ -226,14 +243,16 @@ def summary_lines(rows: Sequence[Comparison], outcome: RunOutcome, verbose: bool
             if verbose:
                 cells += [str(m.n), str(m.seed), f"{m.bits:,}",
                           "–" if r.ledger_bits is None else f"{r.ledger_bits:,}",
-                          _num(m.excess), _num(m.encode_seconds, 3), _num(m.decode_seconds, 3)]
+                          _num(m.excess), _num(m.detectable_excess), _num(m.encode_seconds, 3),
+                          _num(m.decode_seconds, 3)]
             cells.append(delta_text(r))
             table.append(cells)
-        right = {2, 3, 4, 5} | ({6, 7, 8, 9, 10, 11, 12} if verbose else set())
+        right = {2, 3, 4, 5} | ({6, 7, 8, 9, 10, 11, 12, 13} if verbose else set())
         texts = align(table, right)
         lines.append(Line(texts[0]))
         lines += [Line(t, "" if r.status is None else VERDICTS[r.status].colour)
                   for t, r in zip(texts[1:], rows)]
+    lines += suspicious_lines(all_rows, terminal_text)
     ledger_line = _ledger_line(outcome, bool(all_rows))
     if ledger_line is not None:
         lines.append(ledger_line)
@@ -314,6 +333,13 @@ def markdown_report(rows: Sequence[Comparison], outcome: RunOutcome, title: str 
         out.append(markdown_tables(rows, with_ledger=outcome.ledger_path is not None))
     else:
         out += ["No case was measured.", ""]
+    flagged = [r for r in rows if r.suspicious_drop]
+    if flagged:
+        out += [f"Worth a look: dropped on the same sample by more than "
+                f"{SUSPICIOUS_SPREADS:g} sampling spreads (genuine, or a decoder fed from "
+                "outside the stream):", ""]
+        out += [f"- {markdown_text(r.key.label)}: {r.delta_bits:+,} bits" for r in flagged]
+        out.append("")
     if outcome.not_recorded:
         out += ["Not recorded (their tests failed):", ""]
         out += [f"- {markdown_text(label)}: {markdown_text(_first_line(why))}"
@@ -347,11 +373,14 @@ def row_json(r: Comparison) -> dict[str, Any]:
         "n": m.n, "seed": m.seed, "bits": m.bits, "rate": finite(m.rate),
         "entropy": finite(m.entropy), "floor": m.floor, "floor_rate": finite(m.floor_rate),
         "efficiency": finite(m.efficiency), "fingerprint": m.fingerprint,
+        "tolerance_bits": finite(m.tolerance_bits),
+        "floor_spread_bits": finite(m.floor_spread_bits),
+        "detectable_excess": finite(m.detectable_excess),
         "encode_seconds": finite(m.encode_seconds), "decode_seconds": finite(m.decode_seconds),
     }
     if r.status is not None:
         out["ledger"] = {"status": r.status, "bits": r.ledger_bits, "delta_bits": r.delta_bits,
-                         "delta_pct": finite(r.delta_pct)}
+                         "delta_pct": finite(r.delta_pct), "suspicious_drop": r.suspicious_drop}
     return out
 
 

@@ -30,6 +30,7 @@ from pytest_ratefloor.ledger import Ledger
 from pytest_ratefloor.measurement import CaseKey, Measurement
 
 __all__ = [
+    "SUSPICIOUS_SPREADS",
     "VERDICTS",
     "Colour",
     "Comparison",
@@ -78,6 +79,10 @@ VERDICTS: dict[Status, VerdictKind] = {
     )
 }
 assert set(VERDICTS) == set(get_args(Status))
+
+
+#: A drop on the same sample larger than this many sampling spreads is shown for review.
+SUSPICIOUS_SPREADS = 3.0
 
 
 @dataclass(frozen=True)
@@ -134,6 +139,27 @@ class Comparison:
     @property
     def fails(self) -> bool:
         return self.status is not None and VERDICTS[self.status].fails
+
+    @property
+    def suspicious_drop(self) -> bool:
+        """Fewer bits than the ledger, on the very same sample, by more than
+        :data:`SUSPICIOUS_SPREADS` sampling spreads of the sample's information.
+
+        The same sample (same fingerprint) means no luck is involved: the drop is
+        the code's. A genuine improvement can be this large, but so is a decoder
+        that learns from outside the stream, next to which an adaptive coder's
+        excess hides it from the impossible-rate rule: shown for a human to look
+        at, never failed.
+        """
+        current, baseline = self.current, self.baseline
+        if self.status != "improved" or current is None or baseline is None:
+            return False
+        if not current.fingerprint or current.fingerprint != baseline.fingerprint:
+            return False
+        if current.spread is None:
+            return False
+        spread_bits = current.spread * math.sqrt(current.n)
+        return baseline.bits - current.bits > SUSPICIOUS_SPREADS * max(spread_bits, 1.0)
 
 
 def compare(current: Measurement | None, baseline: Measurement | None,

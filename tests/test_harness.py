@@ -41,7 +41,8 @@ def test_check_records_the_measurement_everywhere() -> None:
     assert props["ratefloor.n"] == N
     assert props["ratefloor.bits"] == m.bits
     assert props["ratefloor.rate"] == m.bits / N
-    assert props["ratefloor.floor"] == "entropy"
+    assert props["ratefloor.floor"] == "sample"  # the default floor
+    # uniform(256): every symbol carries exactly 8 bits, so the sample floor is 8 too
     assert props["ratefloor.floor_rate"] == 8.0
     assert props["ratefloor.entropy"] == 8.0
     assert props["ratefloor.efficiency"] == pytest.approx(8.0 * N / m.bits)
@@ -240,10 +241,10 @@ MISBEHAVIOURS = {
     "rate": (
         "codec = StreamCodec(lambda s: s.astype('u1').tobytes(), lambda d, n: list(d), "
         "name='bytewise')",
-        ["*RateFailure: codec 'bytewise' misses the entropy floor on uniform(k=16) "
+        ["*RateFailure: codec 'bytewise' misses the sample floor on uniform(k=16) "
          "(n=500, seed=0)",
          "*measured rate  8.000000 bits/symbol (4000 bits)",
-         "*floor          4.000000 bits/symbol (entropy*",
+         "*floor          4.000000 bits/symbol (sample*",
          "*excess         +4.000000 bits/symbol (+100.00 % over the floor)"],
     ),
     "impossible": (

@@ -2,7 +2,9 @@
 
 :class:`Source` is the abstract base of every family. A source has a canonical
 ``spec`` (stable, short, safe in a test id; equal specs mean equal
-distributions), its ``entropy`` and ``varentropy``, its alphabet bounds, a
+distributions), its ``entropy``, ``varentropy`` (the variance of one symbol's
+information) and ``varentropy_rate`` (the variance per symbol of a long
+sample's information: what sets the sampling spread of a check), its alphabet bounds, a
 ``pmf_table``, the self-information of any symbol sequence, reproducible
 samples, and the two code lengths the floors ask it for:
 :meth:`Source.optimal_code_rate` (the best symbol-by-symbol prefix code) and
@@ -107,8 +109,8 @@ class Source(abc.ABC):
     A subclass implements ``_compute_entropy``, ``_compute_varentropy``,
     ``_sample``, ``_self_information`` and ``_pmf_table``; the public methods
     check their arguments (with :mod:`pytest_ratefloor.validation`) and call
-    them. Sources with memory also override :meth:`optimal_code_rate` and
-    :meth:`adaptive_code_length`.
+    them. Sources with memory also implement ``_compute_varentropy_rate`` and
+    override :meth:`optimal_code_rate` and :meth:`adaptive_code_length`.
     """
 
     def __init__(
@@ -133,6 +135,7 @@ class Source(abc.ABC):
         self.memoryless = memoryless
         self._entropy: float | None = None
         self._varentropy: float | None = None
+        self._varentropy_rate: float | None = None
 
     def __repr__(self) -> str:
         return self.spec
@@ -152,10 +155,36 @@ class Source(abc.ABC):
 
     @property
     def varentropy(self) -> float:
-        """Variance of -log2 P(X) in bits^2 (chains: of -log2 P(X_t | past), see subclass)."""
+        """Variance of -log2 P(X) in bits^2 (chains: of -log2 P(X_t | past), see subclass).
+
+        One symbol's variance (for a source with memory: one step from
+        stationarity); the spread of a long sample is :attr:`varentropy_rate`.
+        """
         if self._varentropy is None:
             self._varentropy = float(self._compute_varentropy())
         return self._varentropy
+
+    @property
+    def varentropy_rate(self) -> float:
+        """lim Var(information of the first n symbols) / n, in bits^2 per symbol.
+
+        The information of a sample of ``n`` symbols (:meth:`information`)
+        spreads around ``n * entropy`` by about ``sqrt(n * varentropy_rate)``
+        bits (its central limit), so this, not :attr:`varentropy`, sets the
+        sampling spread of a check. A memoryless source gives its
+        ``varentropy``: the symbols are independent, so the variances of their
+        information add. A source with memory adds the covariances between
+        the information of different symbols (``varentropy + 2 Σ_{k≥1}
+        Cov(f_0, f_k)`` for the per-symbol information f_t of the stationary
+        source), computed by its ``_compute_varentropy_rate``; it does not
+        depend on how the first symbols are drawn. Computed once, then cached.
+        """
+        if self._varentropy_rate is None:
+            if self.memoryless:
+                self._varentropy_rate = self.varentropy
+            else:
+                self._varentropy_rate = float(self._compute_varentropy_rate())
+        return self._varentropy_rate
 
     def sample(self, n: int, seed: int = 0) -> np.ndarray:
         """``n`` symbols (int64), the same for the same ``seed`` on every platform."""
@@ -237,6 +266,17 @@ class Source(abc.ABC):
 
     @abc.abstractmethod
     def _compute_varentropy(self) -> float: ...
+
+    def _compute_varentropy_rate(self) -> float:
+        """:attr:`varentropy_rate` of a source with memory (``memoryless`` False).
+
+        Memoryless sources never reach this hook; every source with memory
+        must override it. The one-step ``varentropy`` is no answer for them (it
+        misses the covariances between symbols), so the default refuses.
+        """
+        raise NotImplementedError(
+            f"{self.spec}: a source with memory must implement _compute_varentropy_rate"
+        )
 
     @abc.abstractmethod
     def _sample(self, n: int, bitgen: np.random.PCG64) -> np.ndarray: ...

@@ -5,16 +5,20 @@ the entropy *rate*; its stationary distribution comes from
 Grassmann–Taksar–Heyman state reduction. :class:`_ChainSampler` draws any
 chain over states one raw word per symbol (exact integer thresholds per
 row); the order-k empirical sources of
-:mod:`pytest_ratefloor.sources.empirical` use it too. The checks of a
-stochastic matrix (square, rows are pmfs, irreducible) live here, since only
-chains have one.
+:mod:`pytest_ratefloor.sources.empirical` use it too, and so does
+:func:`_chain_varentropy_rate`, the asymptotic variance of a chain's
+information (a Poisson equation solved densely for small chains, on the
+sparse transition graph for large ones). The checks of a stochastic matrix
+(square, rows are pmfs, irreducible) live here, since only chains have one.
 """
 
 from __future__ import annotations
 
+import inspect
 import math
 from bisect import bisect_right
 from collections.abc import Sequence
+from typing import TYPE_CHECKING
 
 import numpy as np
 from numpy.typing import ArrayLike
@@ -34,6 +38,9 @@ from pytest_ratefloor.sources.sampling import (
     _exact_weights,
     _thresholds_from_weights,
 )
+
+if TYPE_CHECKING:
+    from scipy.sparse import csr_matrix
 
 
 class _ChainSampler:
@@ -155,6 +162,148 @@ def _unreachable(adjacent: np.ndarray) -> int | None:
     return int(missing[0]) if missing.size else None
 
 
+# --------------------------------------------------------------------------
+# the varentropy rate of a chain: a Poisson equation on its transition graph
+
+#: Chains of at most this many states solve the Poisson equation with the
+#: dense fundamental matrix: one LU of a matrix of ``states²`` floats
+#: (512 states: 2 MiB, about 10⁸ flops).
+_DENSE_STATES = 512
+#: Most products with the transition matrix the Krylov (GMRES) solve of a
+#: larger chain may take before the sparse direct solve takes over.
+_KRYLOV_PRODUCTS = 2000
+#: Floats the Krylov basis may hold (restart length × states; 32 MiB).
+_KRYLOV_FLOATS = 1 << 22
+#: Residual of the Poisson equation, relative to its right-hand side, that
+#: the Krylov solve aims at and that is accepted from it.
+_KRYLOV_RTOL = 1e-12
+_KRYLOV_ACCEPT = 1e-10
+
+
+def _chain_varentropy_rate(
+    stationary: np.ndarray,
+    origin: np.ndarray,
+    target: np.ndarray,
+    prob: np.ndarray,
+    weight: np.ndarray,
+    info: np.ndarray,
+    entropy: float,
+) -> float:
+    """lim Var(f(e_1) + … + f(e_n)) / n for the edges e_t a stationary chain walks.
+
+    The chain is irreducible over ``stationary.size`` states with stationary
+    distribution ``stationary`` (π). Edge ``e`` leads from state
+    ``origin[e]`` to ``target[e]`` with probability ``prob[e]``, has
+    stationary weight ``weight[e] = π(origin) prob`` and carries ``info[e]``
+    bits (finite); ``entropy`` is H = Σ weight·info. Parallel edges are
+    allowed.
+
+    Martingale decomposition (from memory: the Poisson equation of a Markov
+    chain with Kemeny & Snell's fundamental matrix Z = (I − P + 1π)⁻¹, as in
+    Meyn & Tweedie's central limit theorem for chains): with
+    g(s) = Σ_{e from s} prob·info − H and u solving (I − P) u = g, π·u = 0,
+
+        f(e_t) − H = D_t + u(X_{t−1}) − u(X_t),
+        D_t = f(e_t) + u(X_t) − E[f(e_t) + u(X_t) | X_{t−1}],
+
+    where the D_t are martingale differences and the rest telescopes, so the
+    rate is E[D_t²] = Σ_s π(s) Var_{e from s}[f(e) + u(target e)]: a sum of
+    non-negative terms, never negative by rounding. It equals
+    ``varentropy + 2 Σ_{k≥1} Cov(f_0, f_k)`` (also for periodic chains, where
+    the sum is taken in Cesàro's sense) and does not depend on the initial
+    distribution.
+    """
+    states = stationary.size
+    g = np.bincount(origin, weights=prob * info, minlength=states) - entropy
+    u = _poisson_solution(stationary, origin, target, prob, g)
+    value = info + u[target]
+    mean = np.bincount(origin, weights=prob * value, minlength=states)
+    dev = value - mean[origin]
+    return math.fsum((weight * dev * dev).tolist())
+
+
+def _poisson_solution(
+    stationary: np.ndarray,
+    origin: np.ndarray,
+    target: np.ndarray,
+    prob: np.ndarray,
+    g: np.ndarray,
+) -> np.ndarray:
+    """u with (I − P) u = g and π·u = 0, for π·g = 0 (up to rounding).
+
+    Cost: at most :data:`_DENSE_STATES` states, u = Z g by a dense solve with
+    I − P + 1π (O(states³), ≤ 10⁸ flops). Larger chains never build a dense
+    matrix: GMRES on the operator x ↦ x − P x + (π·x) 1 (nonsingular; its
+    inverse is Z), one sparse product per step, so at most
+    :data:`_KRYLOV_PRODUCTS` × (edges + 2 × restart × states) flops with a
+    restart length of at most 64 and a basis of at most
+    :data:`_KRYLOV_FLOATS` floats. A chain that mixes too slowly for that
+    (nearly decomposable) falls back to a sparse LU factorisation (SuperLU)
+    of I − P with the most probable state's row and column removed (u = 0
+    there, then centred); its cost is set by the fill-in, not the edge count,
+    which is why it comes last.
+    """
+    states = stationary.size
+    if not np.any(g):
+        return np.zeros(states)
+    if states <= _DENSE_STATES:
+        dense = np.zeros((states, states))
+        np.add.at(dense, (origin, target), prob)
+        inverse_z = np.eye(states) - dense + stationary[None, :]
+        return np.asarray(np.linalg.solve(inverse_z, g), dtype=np.float64)
+    from scipy import sparse
+
+    P = sparse.csr_matrix((prob, (origin, target)), shape=(states, states))
+    u = _poisson_krylov(P, stationary, g)
+    if u is None:
+        u = _poisson_direct(P, stationary, g)
+    return u
+
+
+def _poisson_krylov(P: csr_matrix, stationary: np.ndarray, g: np.ndarray) -> np.ndarray | None:
+    """Z g by restarted GMRES on x ↦ x − P x + (π·x) 1, or None if not converged in budget."""
+    from scipy.sparse.linalg import LinearOperator, gmres
+
+    states = stationary.size
+
+    def apply(x: np.ndarray) -> np.ndarray:
+        x = np.ravel(x)
+        return np.asarray(x - P @ x + float(stationary @ x), dtype=np.float64)
+
+    operator = LinearOperator((states, states), matvec=apply, dtype=np.float64)
+    restart = min(64, max(8, _KRYLOV_FLOATS // states), states)
+    cycles = max(1, _KRYLOV_PRODUCTS // restart)
+    # scipy 1.12 renamed gmres's relative tolerance from tol to rtol
+    name = "rtol" if "rtol" in inspect.signature(gmres).parameters else "tol"
+    tolerance = {name: _KRYLOV_RTOL}
+    u, _ = gmres(operator, g, restart=restart, maxiter=cycles, atol=0.0, **tolerance)
+    u = np.asarray(u, dtype=np.float64)
+    residual = np.linalg.norm(g - apply(u))
+    if not residual <= _KRYLOV_ACCEPT * np.linalg.norm(g):
+        return None
+    return u - float(stationary @ u)
+
+
+def _poisson_direct(P: csr_matrix, stationary: np.ndarray, g: np.ndarray) -> np.ndarray:
+    """u with (I − P) u = g, π·u = 0 by sparse LU with the most probable state pinned to 0.
+
+    Removing one state's row and column leaves a nonsingular matrix for an
+    irreducible chain (the rest is substochastic with an exit reachable
+    from every state); the removed equation holds because π·g = 0.
+    """
+    from scipy import sparse
+    from scipy.sparse.linalg import splu
+
+    states = stationary.size
+    keep = np.ones(states, dtype=bool)
+    keep[int(np.argmax(stationary))] = False
+    system = sparse.identity(states, format="csr") - P
+    reduced = sparse.csc_matrix(system[keep][:, keep])
+    u = np.zeros(states)
+    u[keep] = splu(reduced).solve(g[keep])
+    return u - float(stationary @ u)
+
+
 
 class Markov(Source):
     """A stationary finite-state Markov chain on states/symbols 0..S-1.
@@ -168,8 +317,9 @@ class Markov(Source):
     ``varentropy`` is the per-symbol variance of -log2 P(X_t | X_{t-1}) under
     stationarity; ``varentropy_rate`` is the asymptotic variance per symbol of
     the sample's total information (it adds the autocorrelation terms, via
-    the fundamental matrix Z = (I - P + 1π)^-1), i.e. Var(information of n
-    symbols) ≈ n * varentropy_rate for large n.
+    the Poisson equation with the fundamental matrix Z = (I - P + 1π)^-1, see
+    :func:`_chain_varentropy_rate`), i.e. Var(information of n symbols) ≈
+    n * varentropy_rate for large n, whatever ``initial`` is.
     Sampling is a loop over time steps (one word per symbol, bisection on
     exact integer thresholds of the current row).
     """
@@ -242,17 +392,19 @@ class Markov(Source):
         dev = info - self.entropy
         return math.fsum((joint * dev * dev).ravel().tolist())
 
-    @property
-    def varentropy_rate(self) -> float:
-        """lim Var(information of n symbols) / n, in bits^2 per symbol."""
-        joint, info = self._cond_terms()
-        size = self.transition.shape[0]
-        row_entropy = (self.transition * info).sum(axis=1)  # g_i = E[f | X_{t-1} = i]
-        pi_row = np.tile(self.stationary, (size, 1))
-        fundamental = np.linalg.inv(np.eye(size) - self.transition + pi_row)
-        centred = (fundamental - pi_row) @ row_entropy  # Σ_{m>=0} (P^m - Π) g
-        cross = math.fsum((joint * info * centred[None, :]).ravel().tolist())
-        return self.varentropy + 2.0 * cross
+    def _compute_varentropy_rate(self) -> float:
+        """The chain's own transitions as the edges of :func:`_chain_varentropy_rate`."""
+        origin, target = np.nonzero(self.transition > 0)
+        prob = self.transition[origin, target]
+        return _chain_varentropy_rate(
+            self.stationary,
+            origin,
+            target,
+            prob,
+            self.stationary[origin] * prob,
+            self._neg_log2[origin, target],
+            self.entropy,
+        )
 
     def _sample(self, n: int, bitgen: np.random.PCG64) -> np.ndarray:
         if self._chain is None:

@@ -28,7 +28,7 @@ from pytest_ratefloor.sources.base import (
     _digest,
     _log2_ratio,
 )
-from pytest_ratefloor.sources.chains import _ChainSampler
+from pytest_ratefloor.sources.chains import _chain_varentropy_rate, _ChainSampler
 from pytest_ratefloor.sources.sampling import (
     _draw_in_chunks,
     _InverseCdf,
@@ -136,7 +136,12 @@ class Empirical(Source):
     the linear count over positions k..n-1 by O(k/n)). Sampling starts with a
     k-gram drawn by its frequency and then draws each symbol from the
     counts that followed its context; ``varentropy`` is the per-symbol
-    variance of -log2 P(x | context) under the same frequencies.
+    variance of -log2 P(x | context) under the same frequencies, and
+    ``varentropy_rate`` the asymptotic variance per symbol of a sample's
+    information: the model is a chain on its k-gram contexts (a (k+1)-gram
+    leads from its first k symbols to its last k), solved on that sparse
+    graph for many contexts (see :func:`~pytest_ratefloor.sources.chains._chain_varentropy_rate`).
+    Order 0 is memoryless: its rate is its ``varentropy``.
 
     An estimate from one stretch of data is not a property of its origin:
     it is biased low (a plug-in estimate never sees unseen symbols), more so
@@ -228,6 +233,25 @@ class Empirical(Source):
     def _compute_varentropy(self) -> float:
         dev = self._row_neg_log2 - self.entropy
         return math.fsum((self._counts * dev * dev).tolist()) / self.n
+
+    def _compute_varentropy_rate(self) -> float:
+        """Order k > 0: the context chain, its edges the distinct (k+1)-grams.
+
+        Context w has stationary probability c(w)/n (the data is a ring, so
+        every context is left as often as it is entered) and gram w·x leads
+        to context (w·x)[1:] with probability c(w·x)/c(w) and weight c(w·x)/n.
+        """
+        counts = self._counts.astype(np.float64)
+        ctx_counts = self._ctx_counts.astype(np.float64)
+        return _chain_varentropy_rate(
+            ctx_counts / self.n,
+            self._row_ctx,
+            self._row_next,
+            counts / ctx_counts[self._row_ctx],
+            counts / self.n,
+            self._row_neg_log2,
+            self.entropy,
+        )
 
     def _sample(self, n: int, bitgen: np.random.PCG64) -> np.ndarray:
         if self.order == 0:

@@ -139,7 +139,7 @@ class Measurement:
     def floor_spread_bits(self) -> float | None:
         """Sampling spread of the floor against an ideal coder's length, in bits.
 
-        √n·``spread`` (= √(n·V), V the varentropy rate) for a floor taken from the
+        n·``spread`` (= √(n·V), V the varentropy rate) for a floor taken from the
         source's law (:data:`NOISY_FLOORS`); 0 for a floor computed on the sample
         itself; ``None`` when the run did not record the spread (a ledger entry).
         """
@@ -147,7 +147,7 @@ class Measurement:
             return 0.0
         if self.spread is None:
             return None
-        return self.spread * math.sqrt(self.n)
+        return self.spread * self.n  # spread is √(V/n) bits per symbol
 
     @property
     def detectable_excess(self) -> float | None:

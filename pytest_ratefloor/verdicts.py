@@ -158,7 +158,7 @@ class Comparison:
             return False
         if current.spread is None:
             return False
-        spread_bits = current.spread * math.sqrt(current.n)
+        spread_bits = current.spread * current.n  # spread is √(V/n) bits per symbol
         return baseline.bits - current.bits > SUSPICIOUS_SPREADS * max(spread_bits, 1.0)
 
 

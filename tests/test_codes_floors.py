@@ -351,6 +351,65 @@ def test_rice_parameter_is_the_best_power_of_two(p: float) -> None:
     assert lengths[k] == pytest.approx(min(lengths.values()), rel=1e-15)
 
 
+def fraction_gvv(p: float) -> int:
+    """The Gallager–van Voorhis m (from memory: θ^m + θ^(m+1) ≤ 1 < θ^(m−1) + θ^m),
+    decided in exact rationals: a float is a dyadic rational, so θ = 1 − p is exact."""
+    theta = 1 - Fraction(p)
+    m, power = 1, theta  # power = θ^m
+    while power * (1 + theta) > 1:
+        m, power = m + 1, power * theta
+    return m
+
+
+def fraction_rice(p: float) -> int:
+    """The k of least exact expected Rice length k + 1/(1 − θ^(2^k)) (from memory:
+    k + 1 bits plus the unary quotient, E⌊X/2^k⌋ = θ^(2^k)/(1 − θ^(2^k))), in rationals."""
+    theta = 1 - Fraction(p)
+    lengths, power = [], theta  # power = θ^(2^k)
+    for k in range(max(3, int(math.log2(1 / p)) + 3)):
+        lengths.append(k + 1 / (1 - power))
+        power *= power
+    best = min(lengths)
+    assert lengths.count(best) == 1  # no ties in exact arithmetic
+    return lengths.index(best)
+
+
+# floats p in [1e-3, 1): random, dyadic, and next to the ones the float rule gets wrong
+EXACT_PS = sorted(
+    {float(x) for x in np.random.default_rng(7).uniform(1e-3, 1.0, 60)}
+    | {float(x) for x in 10.0 ** np.random.default_rng(8).uniform(-3, 0, 60)}
+    | {0.5, 0.25, 0.125, 1 - 2**-20, 2**-10, 0.3819660112501051}
+    | {math.nextafter(0.3819660112501051, d) for d in (0.0, 1.0)}
+)
+
+
+def test_golomb_parameter_equals_the_rule_in_exact_rationals() -> None:
+    wrong = [(p, codes.golomb_parameter(p), fraction_gvv(p)) for p in EXACT_PS]
+    assert [row for row in wrong if row[1] != row[2]] == []
+
+
+def test_rice_parameter_is_the_least_exact_expected_length() -> None:
+    wrong = [(p, codes.rice_parameter(p), fraction_rice(p)) for p in EXACT_PS]
+    assert [row for row in wrong if row[1] != row[2]] == []
+
+
+def test_golomb_parameter_where_the_rule_switches_exactly() -> None:
+    # For each small m, floats p on both sides of θ^m + θ^(m+1) = 1 (found by bisection
+    # on exact rationals): the rule switches from m to m + 1 between neighbouring floats.
+    for m in (1, 2, 3, 4, 9, 50):
+        lo, hi = 0.005, 1.0  # fraction_gvv(lo) = 138 > m >= fraction_gvv(hi) = 1
+        while math.nextafter(lo, 1.0) < hi:
+            mid = (lo + hi) / 2
+            if fraction_gvv(mid) > m:
+                lo = mid
+            else:
+                hi = mid
+        assert fraction_gvv(lo) == m + 1
+        assert fraction_gvv(hi) == m
+        assert codes.golomb_parameter(lo) == m + 1
+        assert codes.golomb_parameter(hi) == m
+
+
 GEOMETRIC_P_RULE = r"p must be a finite number in \(0, 1\], got "
 
 

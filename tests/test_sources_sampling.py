@@ -230,6 +230,53 @@ def test_zipf_weights_equal_full_decimal_rounding():
         assert mine[i - 1] == (q << shift if shift >= 0 else q >> -shift), i
 
 
+def zipf_masses(src):
+    """Each symbol's number of words, read off the sampler's integer thresholds."""
+    src.sample(1)
+    table = src._table
+    bounds = [0, *table.thresholds.tolist(), WORD]
+    masses = [0] * src.k
+    for i, v in enumerate(table.values.tolist()[: len(bounds) - 1]):
+        masses[v] = bounds[i + 1] - bounds[i]
+    return masses
+
+
+@pytest.mark.parametrize(
+    ("k", "s"),
+    [(256, 1.1), (3, 0.3), (1000, 2.0), (1000, 60.0), (2, 100.0), (65536, 1.07), (2**20, 1.0)],
+)
+def test_zipf_sampled_masses_meet_the_documented_bound(k, s):
+    # documented (sources.Zipf): |P'(i) - P(i)| <= (1 + 2**-35) (2**-39 P(i) + 2**-64), with
+    # P' = mass / 2**64; exact P(i) = i**-s / Z from mpmath at 50 digits, Z from the Hurwitz
+    # zeta function (Z = zeta(s) - zeta(s, k+1); the harmonic number for s = 1) and, for
+    # small k, also from a direct sum
+    masses = zipf_masses(sources.zipf(k, s))
+    assert sum(masses) == WORD
+    with mpmath.workdps(50):
+        ss = mpmath.mpf(s)
+        z = mpmath.harmonic(k) if s == 1.0 else mpmath.zeta(ss) - mpmath.zeta(ss, k + 1)
+        if k <= 1000:
+            assert abs(z / mpmath.fsum(mpmath.mpf(i) ** -ss for i in range(1, k + 1)) - 1) < 1e-40
+        if k <= 5000:
+            ranks = range(1, k + 1)
+        else:  # every symbol at both ends, a log-spaced selection between
+            middle = np.unique(np.geomspace(1, k, 3000).astype(np.int64)).tolist()
+            ranks = sorted({*range(1, 1001), *middle, *range(k - 1000, k + 1)})
+        slack = 1 + mpmath.mpf(2) ** -35
+        worst = mpmath.mpf(0)
+        for r in ranks:
+            exact = WORD * mpmath.mpf(r) ** -ss / z  # 2**64 P, in words
+            allowed = slack * (exact * mpmath.mpf(2) ** -39 + 1)
+            worst = max(worst, abs(masses[r - 1] - exact) / allowed)
+    assert worst <= 1, float(worst)
+
+
+def test_no_relative_bound_alone_holds_for_zipf():
+    # zipf(2, 100): symbol 1 has probability 1/(2**100 + 1) (by hand), far below one word
+    # in 2**64; the one word it gets is 2**36 times too many, within the absolute 2**-64
+    assert zipf_masses(sources.zipf(2, 100.0)) == [WORD - 1, 1]
+
+
 def test_categorical_thresholds_are_exact_rationals():
     probs = [0.1, 0.2, 0.3, 0.4]
     src = sources.categorical(probs)

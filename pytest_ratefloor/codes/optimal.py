@@ -17,7 +17,11 @@ codeword (what a real prefix-code format must emit).
 
 from __future__ import annotations
 
+import decimal
 import math
+from collections.abc import Callable
+from decimal import Decimal
+from fractions import Fraction
 
 import numpy as np
 import numpy.typing as npt
@@ -204,34 +208,116 @@ def golomb_expected_length(p: float, m: int) -> float:
     return 1.0 + qm / one_minus_qm + b - below / one_minus_qm
 
 
+# Both parameters are the least integer above a ratio of logarithms of θ = 1 − p: the
+# Golomb m is ⌈R⌉ with R = ln(1+θ) / −ln θ, the Rice k the least k with 2^k > S,
+# S = ln φ / −ln θ (φ the golden ratio). Neither ratio is ever an integer (or a power of
+# two) for a float p in (0, 1): θ = a / 2^e with a odd and e >= 1, so
+# θ^n (1+θ) = a^n (2^e + a) / 2^(e(n+1)) has an odd numerator and is not 1, and θ^(2^k)
+# is rational while 1/φ is not. So a precise enough evaluation always decides, and there
+# are no ties to break. A float evaluation decides almost every p; the rest are decided
+# with correctly rounded decimal logarithms of θ taken exactly, at rising precision.
+
+#: Relative error bound of the float ratios: a few ulps of log, log1p and the division
+#: (below 2**-50 wherever the ratio is >= 1/2, the only place rounding can matter), with a
+#: factor 16 to spare for a less careful libm.
+_FLOAT_RATIO_ERROR = 2.0**-46
+_LN_PHI = math.log((1.0 + math.sqrt(5.0)) / 2.0)
+#: Digits that hold 1 − p and 2 − p exactly for every float p (a dyadic fraction with at
+#: most 1074 binary places has at most 1074 decimal places).
+_EXACT_DIGITS = 1100
+
+
+def _least_index(
+    p: float,
+    float_ratio: float,
+    numerator: Callable[[decimal.Context, Decimal], Decimal],
+    index: Callable[[Fraction], int],
+) -> int:
+    """index(ratio) for ratio = numerator(θ) / −ln θ, θ = 1 − p exactly; ``index`` is
+    non-decreasing and the true ratio never sits on one of its steps (see above).
+
+    The float ratio decides when the whole interval its error bound allows maps to one
+    index; otherwise the ratio is evaluated with decimal logarithms (each correctly
+    rounded, so the quotient is within 10 units of its last digit) at 40, 80, 160, ...
+    digits until its interval does.
+    """
+    spread = float_ratio * _FLOAT_RATIO_ERROR
+    low, high = index(Fraction(float_ratio - spread)), index(Fraction(float_ratio + spread))
+    if low == high:
+        return low
+    theta = decimal.Context(prec=_EXACT_DIGITS).subtract(Decimal(1), Decimal(p))
+    digits = 40
+    while True:  # ends: the ratio is never on a step of index (the notes above)
+        ctx = decimal.Context(prec=digits, Emin=decimal.MIN_EMIN, Emax=decimal.MAX_EMAX)
+        ratio = Fraction(ctx.divide(numerator(ctx, theta), ctx.minus(ctx.ln(theta))))
+        slack = ratio * Fraction(1, 10 ** (digits - 2))
+        low, high = index(ratio - slack), index(ratio + slack)
+        if low == high:
+            return low
+        digits *= 2
+
+
+def _golomb_index(ratio: Fraction) -> int:
+    return max(1, math.ceil(ratio))
+
+
+def _rice_index(ratio: Fraction) -> int:
+    return max(0, math.floor(ratio)).bit_length()  # the least k with 2**k > ratio
+
+
+def _ln_one_plus(ctx: decimal.Context, theta: Decimal) -> Decimal:
+    return ctx.ln(decimal.Context(prec=_EXACT_DIGITS).add(Decimal(1), theta))
+
+
+def _ln_phi(ctx: decimal.Context, theta: Decimal) -> Decimal:
+    return ctx.ln(ctx.divide(ctx.add(Decimal(1), ctx.sqrt(Decimal(5))), Decimal(2)))
+
+
 def golomb_parameter(p: float) -> int:
     """Optimal Golomb parameter m for P(x) = (1−p)^x p (Gallager & van Voorhis 1975).
 
-    m = ⌈log(1+q) / (−log q)⌉ with q = 1−p (the m with q^m + q^(m+1) ≤ 1 < q^(m−1) + q^m).
-    p = 1 gives m = 1. The formula is evaluated in floating point, so its neighbours
-    are compared by exact expected length to settle rounding at the boundaries
-    (where two values of m tie, the smaller is returned). ``ValueError`` for a ``p``
-    so small that m would exceed :data:`GOLOMB_MAX_M`.
+    m is the integer with θ^m + θ^(m+1) ≤ 1 < θ^(m−1) + θ^m, θ = 1 − p, i.e.
+    m = ⌈ln(1+θ) / −ln θ⌉; p = 1 gives m = 1. The rule is decided exactly for every
+    float p: θ is taken exactly, and a float evaluation that its error bound cannot
+    settle is redone with correctly rounded decimal logarithms. For a float p < 1 the
+    two sides of the rule are never equal, so m is the unique best Golomb parameter.
+    ``ValueError`` for a ``p`` so small that m would exceed :data:`GOLOMB_MAX_M`.
     """
     pf = _geometric_p(p)
     if pf == 1.0:
         return 1
     ratio = math.log(2.0 - pf) / -math.log1p(-pf)
-    if not ratio < GOLOMB_MAX_M:  # inf for the smallest p
-        rule = "a probability whose Golomb parameter m ≈ ln 2 / p is at most GOLOMB_MAX_M"
+    rule = "a probability whose Golomb parameter m ≈ ln 2 / p is at most GOLOMB_MAX_M"
+    if not ratio < 2 * GOLOMB_MAX_M:  # inf for the smallest p
         raise ValueError(message("p", f"{rule} = 2**63 - 1", p))
-    guess = max(1, math.ceil(ratio))
-    candidates = [m for m in (guess - 1, guess, guess + 1) if 1 <= m <= GOLOMB_MAX_M]
-    return min(candidates, key=lambda m: (golomb_expected_length(pf, m), m))
+    m = _least_index(pf, ratio, _ln_one_plus, _golomb_index)
+    if m > GOLOMB_MAX_M:
+        raise ValueError(message("p", f"{rule} = 2**63 - 1", p))
+    return m
 
 
 def rice_parameter(p: float) -> int:
-    """Best Rice parameter k (Golomb m = 2**k) for P(x) = (1−p)^x p, by exact expected
-    length; the smaller k on ties."""
+    """Best Rice parameter k for P(x) = (1−p)^x p: the k >= 0 whose Rice code (the Golomb
+    code with m = 2**k) has the least expected length among all powers of two.
+
+    That length is k + 1/(1 − θ^(2^k)), θ = 1 − p, so going from k to k + 1 changes it
+    by (1 − x − x²)/(1 − x²) with x = θ^(2^k): the length falls while θ^(2^k) > 1/φ
+    (φ the golden ratio) and rises after. Hence k is the least k with θ^(2^k) < 1/φ,
+    i.e. with 2^k > ln φ / −ln θ; p = 1 gives k = 0. Decided exactly for every float p
+    like :func:`golomb_parameter`; θ^(2^k) is rational and 1/φ is not, so there are
+    never two best k. ``ValueError`` when 2**k would exceed :data:`GOLOMB_MAX_M`.
+    """
     pf = _geometric_p(p)
-    m_opt = golomb_parameter(pf)
-    top = max(1, m_opt.bit_length()) + 1
-    return min(range(top + 1), key=lambda k: (golomb_expected_length(pf, 1 << k), k))
+    if pf == 1.0:
+        return 0
+    ratio = _LN_PHI / -math.log1p(-pf)
+    rule = "a probability whose Rice modulus 2**k (about 0.5 / p to 1 / p) is at most GOLOMB_MAX_M"
+    if not ratio < 2 * GOLOMB_MAX_M:
+        raise ValueError(message("p", f"{rule} = 2**63 - 1", p))
+    k = _least_index(pf, ratio, _ln_phi, _rice_index)
+    if (1 << k) > GOLOMB_MAX_M:
+        raise ValueError(message("p", f"{rule} = 2**63 - 1", p))
+    return k
 
 
 # ------------------------------------------------------------- lengths against a pmf

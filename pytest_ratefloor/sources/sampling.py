@@ -18,7 +18,8 @@ table over the same masses. Either way a word is only ever compared with
 integers, so no libm or SIMD rounding difference can change a sample, and
 one word gives one symbol, so ``sample(n)[:m] == sample(m)``. Each symbol is
 drawn with probability within about ``2**-64`` of its exact probability
-(Zipf: within a relative ``2**-40``, see :class:`~pytest_ratefloor.sources.Zipf`);
+(Zipf: within a relative ``2**-39`` plus ``2**-64``, see
+:class:`~pytest_ratefloor.sources.Zipf`);
 mass below ``2**-64`` in the far tail of an unbounded family is what a single
 64-bit word cannot express, and those symbols are never drawn. Chains (Markov,
 empirical of order k > 0) draw one word per symbol too, in a loop over time

@@ -40,20 +40,36 @@ from pytest_ratefloor.sources.sampling import (
 _SHORT_LIST = 8  # longer pmfs get a hashed spec
 _POISSON_MAX_LAMBDA = 1e5
 _ZIPF_MAX_K = 1 << 20
+# Zipf s above which H < 2^-s (s + 2) and s^2 2^-s are below 2^-1075 (they round to 0)
+_ZIPF_NEGLIGIBLE_S = 1100.0
 
 
 class Zipf(_Memoryless):
     """Symbols 0..k-1 with P(i) ∝ 1/(i+1)^s, 1 <= k <= 2**20, s >= 0 (a truncated Zipf law).
 
-    Entropy and varentropy are finite sums over all k terms (no truncation);
-    the terms are summed with math.fsum, so the relative error is a few ulps
-    (below 1e-15) of float64 powers and logarithms.
+    Entropy and varentropy are finite sums over all k terms (no truncation)
+    of positive terms, summed with math.fsum, so the relative error is a few
+    ulps (below 1e-15) of float64 powers and logarithms, also when nearly all
+    the mass is on symbol 0 and the figures are tiny: they are computed from
+    the tail weights ((i+1)/2)^-s of symbols 1..k-1, scaled by 2^-s only at
+    the end, and log2 Z from log1p of the tail sum (see ``_tail_sums``).
+    For s > 1100 both figures are below half the least subnormal float: 0.
 
     Sampling thresholds come from the weights (i+1)^-s rounded to 40
     significant bits: float64 powers decide the rounding where they are far
     from a rounding boundary, 30-digit decimal powers decide the rest, so the
-    thresholds are the same on every platform. The sampled probabilities are
-    within a relative 2**-40 of the exact ones.
+    thresholds are the same on every platform. Each sampled probability
+    P'(i) = mass(i) / 2**64 satisfies
+    |P'(i) - P(i)| <= (1 + 2**-35) (2**-39 P(i) + 2**-64).
+    Proof sketch: each weight is off by a relative 2**-40 at most (half a
+    unit in the last of 40 bits, the leading bit being 1), then cut to a
+    multiple of 2**-100 (absolute, below 2**-100 each and k 2**-100 <= 2**-80
+    in all, against a total Z >= 1); the total is therefore off by a relative
+    2**-40 (a weighted mean of the weights' errors) plus 2**-80, so a weight
+    over the total is off by a relative 2**-39 (1 + 2**-39) plus 2**-99; and
+    a mass is a difference of two floors floor(2**64 C/W) of cumulative
+    weights, within one word of 2**64 times that quotient. No relative bound
+    alone is possible: a symbol of probability below 2**-64 may get no word.
     """
 
     def __init__(self, k: int, s: float) -> None:
@@ -73,16 +89,60 @@ class Zipf(_Memoryless):
         self._norm = math.fsum(self._weights.tolist())
         self._probs = self._weights / self._norm
         self._table: _InverseCdf | None = None
+        self._tails: tuple[int, float, float, float, float] | None = None
+        self._tail_u = np.zeros(0)
+
+    def _tail_sums(self) -> tuple[int, float, float, float, float]:
+        """Sums over symbols 1..k-1, scaled so that nothing underflows: (n, f, U, A, Z).
+
+        With u_i = ((i+1)/2)^-s (u_1 = 1, and (i+1)/2 is exact) the weights are
+        w_i = 2^-s u_i, and 2^-s = f 2^-n with n = floor(s), f = 2^(n-s) in (1/2, 1].
+        U = sum u_i and A = sum u_i log2(i+1) (both math.fsum of positive terms), and
+        Z = 1 + 2^-s U is the normaliser (w_0 = 1).
+        """
+        if self._tails is None:
+            n = math.floor(self.s)
+            f = 2.0 ** (n - self.s)  # n - s is exact
+            u = np.power(np.arange(2, self.k + 1, dtype=np.float64) / 2.0, -self.s)
+            big_u = math.fsum(u.tolist())
+            big_a = math.fsum((u * self._log2_rank[1:]).tolist())
+            self._tail_u = u
+            self._tails = (n, f, big_u, big_a, 1.0 + math.ldexp(f * big_u, -n))
+        return self._tails
+
+    def _log2_norm(self) -> float:
+        """log2 Z to full relative precision, also when Z is 1 + a tiny tail."""
+        n, f, big_u, _, big_z = self._tail_sums()
+        tail = math.ldexp(f * big_u, -n)
+        if tail >= 1.0:
+            return math.log2(big_z)  # no cancellation; exact for s = 0 and k a power of 2
+        if tail >= 2.0**-1000:
+            return math.log1p(tail) / _LN2
+        return math.ldexp(f * big_u / _LN2, -n)  # log1p(t) = t to far below an ulp
 
     def _compute_entropy(self) -> float:
-        # -log2 P(i) = log2 Z + s log2(i+1)
-        mean_log = math.fsum((self._weights * self._log2_rank).tolist()) / self._norm
-        return math.log2(self._norm) + self.s * mean_log
+        # H = log2 Z + s E[log2(i+1)], E[log2(i+1)] = 2^-s A / Z: two sums of positive terms
+        if self.k == 1 or self.s > _ZIPF_NEGLIGIBLE_S:
+            return 0.0
+        n, f, big_u, big_a, big_z = self._tail_sums()
+        tail = math.ldexp(f * big_u, -n)
+        if tail >= 2.0**-1000:
+            return self._log2_norm() + self.s * math.ldexp(f * big_a, -n) / big_z
+        # log2 Z = 2^-s U / ln 2 here: scale by 2^-n once, after the sum
+        return math.ldexp(f * (big_u / _LN2 + self.s * big_a / big_z), -n)
 
     def _compute_varentropy(self) -> float:
-        mean_log = math.fsum((self._probs * self._log2_rank).tolist())
-        dev = self._log2_rank - mean_log
-        return self.s**2 * math.fsum((self._probs * dev * dev).tolist())
+        # s^2 Var[log2(i+1)], with mean m = 2^-s A / Z and log2(1) = 0:
+        # Var = (2^-s / Z) (sum_{i>=1} u_i (log2(i+1) - m)^2 + 2^-s A^2 / Z^2),
+        # a sum of positive terms scaled by 2^-s only at the end
+        if self.k == 1 or self.s > _ZIPF_NEGLIGIBLE_S:
+            return 0.0
+        n, f, _, big_a, big_z = self._tail_sums()
+        mean = math.ldexp(f * big_a, -n) / big_z
+        dev = self._log2_rank[1:] - mean
+        spread = math.fsum((self._tail_u * dev * dev).tolist())
+        spread += math.ldexp(f * big_a * big_a, -n) / (big_z * big_z)
+        return math.ldexp(f * self.s * self.s * spread, -n) / big_z
 
     def _fixed_point_weights(self) -> list[int]:
         mantissa, exponent = np.frexp(self._weights)
@@ -114,7 +174,7 @@ class Zipf(_Memoryless):
     def _self_information(self, x: np.ndarray) -> np.ndarray:
         inside = (x >= 0) & (x < self.k)
         info = np.full(x.shape, np.inf)
-        info[inside] = math.log2(self._norm) + self.s * self._log2_rank[x[inside]]
+        info[inside] = self._log2_norm() + self.s * self._log2_rank[x[inside]]
         return info
 
     def _pmf_table(self, tail: float) -> tuple[np.ndarray, np.ndarray]:

@@ -28,6 +28,7 @@ if TYPE_CHECKING:
     from pytest_ratefloor.sources import Source
 
 __all__ = [
+    "CODER_OVERHEAD_BITS",
     "DEFAULT_ABS",
     "DEFAULT_REL",
     "IMPOSSIBLE_CONFIDENCE_BITS",
@@ -88,8 +89,12 @@ def impossible_margin(bits: int, c: int = IMPOSSIBLE_CONFIDENCE_BITS) -> float:
 #: normal tail, Φ(−3) = 0.00135; the normal approximation of the sample's
 #: information is the central limit theorem, for chains the Markov-chain CLT).
 NOISE_SPREADS = 3.0
-#: ... and at least one bit: a code length is an integer.
-_ROUNDING_BITS = 1.0
+#: ... and at least the fixed cost of a real coder: lengths are whole bits, and an
+#: arithmetic or range coder spends a few bytes on termination and framing (2 bits
+#: at the very least, Witten–Neal–Cleary 1987, from memory; 32 is common practice
+#: for a flushed range coder). A smaller allowance fails correct coders on every
+#: sample, whatever the floor's noise.
+CODER_OVERHEAD_BITS = 32.0
 
 
 def tolerance(rel: float | None, abs: float | None) -> tuple[float, float]:
@@ -147,7 +152,7 @@ def noise_warning(m: Measurement) -> str | None:
     The allowed excess (``m.tolerance_bits``) should exceed
     :data:`NOISE_SPREADS` sampling spreads of the floor (floors taken from the
     source's law move with the sample by √(n·V) bits, V the varentropy rate;
-    floors computed on the sample do not) and one bit (lengths are integers).
+    floors computed on the sample do not) and :data:`CODER_OVERHEAD_BITS`.
     The message names the case, the spread and the ``n`` from which the same
     tolerance would be meaningful (its relative part grows like n, the spread
     like √n).
@@ -158,14 +163,14 @@ def noise_warning(m: Measurement) -> str | None:
         return None
     if allowed == 0 and spread == 0:
         return None  # an exact floor asked to be met exactly (a dyadic code): deliberate
-    need_bits = max(NOISE_SPREADS * spread, _ROUNDING_BITS)
+    need_bits = max(NOISE_SPREADS * spread, CODER_OVERHEAD_BITS)
     if allowed >= need_bits:
         return None
     per_symbol = allowed / m.n  # the tolerance as bits per symbol: it scales with n
     variance_rate = (spread * spread) / m.n
     if per_symbol > 0:
         n_noise = (NOISE_SPREADS ** 2) * variance_rate / (per_symbol ** 2)
-        n_needed = max(n_noise, _ROUNDING_BITS / per_symbol, float(m.n))
+        n_needed = max(n_noise, CODER_OVERHEAD_BITS / per_symbol, float(m.n))
         advice = f"n >= {math.ceil(n_needed):,} would make this tolerance meaningful"
     else:
         advice = "a zero tolerance on a floor with sampling noise is a coin toss; give rel or abs"
@@ -173,7 +178,8 @@ def noise_warning(m: Measurement) -> str | None:
         why = (f"{NOISE_SPREADS:g} sampling spreads of the {m.floor} floor "
                f"(spread ±{spread:,.1f} bits = √(n·V), V the varentropy rate)")
     else:
-        why = "one bit (code lengths are whole bits)"
+        why = (f"the {CODER_OVERHEAD_BITS:g} bits a correct coder spends on termination and "
+               "framing")
     return (
         f"ratefloor: the tolerance of {m.key.phrase} ({allowed:,.1f} bits over the "
         f"{m.floor} floor) is smaller than {why}: its verdict depends on the luck of this "

@@ -24,7 +24,7 @@ from pytest_ratefloor.checks import check
 from pytest_ratefloor.errors import NoisyToleranceWarning
 from pytest_ratefloor.floors import DEFAULT_FLOOR
 from pytest_ratefloor.measurement import DETECTION_Z, NOISY_FLOORS, Measurement
-from pytest_ratefloor.rate import NOISE_SPREADS, noise_warning
+from pytest_ratefloor.rate import CODER_OVERHEAD_BITS, NOISE_SPREADS, noise_warning
 from pytest_ratefloor.verdicts import SUSPICIOUS_SPREADS, compare
 
 
@@ -79,9 +79,14 @@ def test_the_warning_names_the_case_the_spread_and_the_n_that_suffices() -> None
     assert noise_warning(below) is not None
 
 
-def test_the_sample_floor_warns_only_below_one_bit() -> None:
-    assert noise_warning(_case(floor="sample", n=1000, p=0.01, rel=0.01)) is not None
-    assert noise_warning(_case(floor="sample", n=2000, p=0.01, rel=0.01)) is None
+def test_the_sample_floor_warns_only_below_a_coders_fixed_cost() -> None:
+    # bernoulli(0.01): H = 0.0808 bits, so 1 % of n·H is 32 bits at n ≈ 39,600
+    text = noise_warning(_case(floor="sample", n=10_000, p=0.01, rel=0.01))
+    assert text is not None
+    assert "32 bits a correct coder spends on termination" in text
+    needed = int(text.split("n >= ")[1].split(" ")[0].replace(",", ""))
+    assert needed == math.ceil(CODER_OVERHEAD_BITS / (0.01 * _case(p=0.01).entropy))
+    assert noise_warning(_case(floor="sample", n=needed, p=0.01, rel=0.01)) is None
     exact = dataclasses.replace(_case(floor="sample"), tolerance_bits=0.0)
     assert noise_warning(exact) is None  # an exact code asked to be exact: deliberate
 

@@ -6,6 +6,8 @@ Every check takes the same arguments, validated once into a :class:`CheckPlan`
 tolerance applies, the rate verdict (:mod:`pytest_ratefloor.rate`). With
 ``corruption=True`` the decoder must also survive damaged streams of the very
 encoding the round trip made (:mod:`pytest_ratefloor.corruption`).
+:func:`plan_for_case` merges one case's own options over shared ones (what
+``gate(sources={source: {...}})`` does for each source).
 
 Failures are ``AssertionError`` subclasses from :mod:`pytest_ratefloor.errors`.
 """
@@ -13,15 +15,22 @@ Failures are ``AssertionError`` subclasses from :mod:`pytest_ratefloor.errors`.
 from __future__ import annotations
 
 import dataclasses
+import enum
 import os
 import warnings
-from collections.abc import Callable
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass
-from typing import TYPE_CHECKING, Any, TypedDict, TypeVar
+from typing import TYPE_CHECKING, Any, Final, TypedDict, TypeVar
 
 from pytest_ratefloor import isolation, validation
 from pytest_ratefloor.codecs import as_codec
-from pytest_ratefloor.edge_cases import edge_case_inputs
+from pytest_ratefloor.edge_cases import (
+    EDGE_CASE_SETS,
+    EdgeCaseLengths,
+    EdgeCaseSetting,
+    edge_case_inputs,
+    edge_case_lengths,
+)
 from pytest_ratefloor.errors import NoisyToleranceWarning, RateFloorFailure
 from pytest_ratefloor.floors import DEFAULT_FLOOR, Floor, check_floor
 from pytest_ratefloor.measurement import CaseKey, Measurement, sample_fingerprint
@@ -47,13 +56,18 @@ if TYPE_CHECKING:
 
 __all__ = [
     "CORRUPTION_N",
+    "DAMAGE_OPTIONS",
     "DEFAULT_ABS",
     "DEFAULT_N",
     "DEFAULT_REL",
     "IMPOSSIBLE_CONFIDENCE_BITS",
+    "OPTION_NAMES",
     "ROUNDTRIP_N",
+    "TOLERANCE_OPTIONS",
+    "UNSET",
     "CheckOptions",
     "CheckPlan",
+    "DamageSettings",
     "assert_rate",
     "assert_roundtrip",
     "check",
@@ -61,6 +75,8 @@ __all__ = [
     "elias_delta_length",
     "impossible_margin",
     "measure",
+    "merge_options",
+    "plan_for_case",
     "rate_verdict",
     "run_check",
     "sample_fingerprint",
@@ -81,19 +97,32 @@ _T = TypeVar("_T")
 #: Where damaged streams of a failed corruption check are saved (called only on failure).
 SaveDir = Callable[[], "str | os.PathLike[str] | None"]
 
+#: The two options that make one tolerance: a case that gives either replaces both.
+TOLERANCE_OPTIONS: Final = ("rel", "abs")
+#: The settings of the damaged-stream check: each needs ``corruption=True``.
+DAMAGE_OPTIONS: Final = ("must_detect", "trials", "timeout", "memory_limit")
+
+
+class _Unset(enum.Enum):
+    """The value of a damaged-stream setting that was not given (its default applies)."""
+
+    UNSET = "unset"
+
+    def __repr__(self) -> str:
+        return "UNSET"
+
+
+#: A :class:`CheckPlan` damaged-stream setting that was not given.
+UNSET: Final = _Unset.UNSET
+
 
 class CheckOptions(TypedDict, total=False):
-    """The keyword arguments every check takes; defaults and rules are :class:`CheckPlan`'s.
+    """The keyword arguments every check takes; defaults, rules and costs are :class:`CheckPlan`'s.
 
-    ``n``: symbols in the sample (default 100 000); ``seed``: the sample's
-    seed (0); ``floor``: the floor the rate is measured from (``"sample"``,
-    the sample's self-information: no sampling noise; see
-    :data:`~pytest_ratefloor.floors.DEFAULT_FLOOR`);
-    ``rel``/``abs``: the tolerance over the floor (default ``rel=0.01``);
-    ``edge_cases``: also round-trip the edge cases (``True``); ``corruption``:
-    also feed the decoder damaged streams (``False``); ``isolate``: run the
-    codec in a forked child so that it cannot end or stall the test session
-    (default: on where ``fork`` is safe; see :mod:`pytest_ratefloor.isolation`).
+    ``n``, ``seed``, ``floor``, ``rel``, ``abs``, ``edge_cases`` (``True``,
+    ``False``, a maximum length or ``"short"``/``"long"``), ``corruption``
+    and its settings ``must_detect``, ``trials``, ``timeout``,
+    ``memory_limit`` (each only with ``corruption=True``), ``isolate``.
     """
 
     n: int
@@ -101,22 +130,131 @@ class CheckOptions(TypedDict, total=False):
     floor: Floor
     rel: float | None
     abs: float | None
-    edge_cases: bool
+    edge_cases: EdgeCaseSetting
     corruption: bool
     isolate: bool | None
+    must_detect: bool
+    trials: int
+    timeout: float
+    memory_limit: int | None
+
+
+class DamageSettings(TypedDict):
+    """The settings :func:`pytest_ratefloor.corruption.survive_damage` is called with."""
+
+    must_detect: bool
+    trials: int
+    timeout: float
+    memory_limit: int | None
+
+
+_EDGE_CASES_RULE = ("True, False, a maximum length (an integer >= 1) or one of "
+                    + ", ".join(repr(name) for name in EDGE_CASE_SETS))
+_DAMAGE_RULE = "given only with corruption=True (a setting of the damaged-stream check)"
+
+
+def _edge_cases(value: object) -> EdgeCaseSetting:
+    """The ``edge_cases`` option, checked: a flag, a maximum length or a set's name."""
+    if isinstance(value, str):
+        return validation.choice(value, "edge_cases", tuple(EDGE_CASE_SETS))
+    try:
+        return validation.flag(value, "edge_cases")
+    except TypeError:
+        pass
+    try:
+        return validation.integer(value, "edge_cases", minimum=1)
+    except TypeError:
+        raise TypeError(validation.message("edge_cases", _EDGE_CASES_RULE, value)) from None
 
 
 @dataclass(frozen=True)
 class CheckPlan:
-    """The arguments of one check, validated once.
+    """The arguments of one check, validated once, and what each costs.
 
-    ``n`` (integer >= 1), ``seed`` (integer >= 0), ``floor`` (one of
-    :data:`~pytest_ratefloor.floors.FLOORS`), ``rel``/``abs`` (the tolerance,
-    see :mod:`pytest_ratefloor.rate`), ``edge_cases`` and ``corruption``
-    (``bool``), ``isolate`` (``bool``, or ``None``: the run's setting,
-    ini ``ratefloor_isolate``, on by default). A wrong type raises
-    ``TypeError``, a bad value ``ValueError``, each naming the argument and
-    the value.
+    A wrong type raises ``TypeError``, a bad value ``ValueError``, each
+    naming the argument and the value. Costs are for one check; "a round
+    trip" is one encode and one decode.
+
+    ``n`` (integer >= 1, default 100 000)
+        Symbols in the sample. The sample is drawn, encoded and decoded
+        once (the measurement reuses that encoding), and the codec contract
+        costs two more encodes of its first 4 096 symbols: time grows
+        linearly in ``n``.
+    ``seed`` (integer >= 0, default 0)
+        The sample's seed (and the damage schedule's). Costs nothing.
+    ``floor`` (one of :data:`~pytest_ratefloor.floors.FLOORS`, default ``"sample"``)
+        The floor the rate is measured from. The sample's self-information is
+        computed for every check (the impossible-rate rule needs it), so
+        ``"sample"`` and ``"entropy"`` cost nothing more; ``"empirical"`` a
+        histogram of the sample; ``"adaptive"`` a histogram and one log-gamma
+        per symbol value (per context for sources with memory); ``"huffman"``
+        Huffman code lengths of the pmf (about 0.05 s for 2¹⁶ symbols; one
+        code per state or context for sources with memory).
+    ``rel``/``abs`` (numbers >= 0; default ``rel=0.01``, see :mod:`pytest_ratefloor.rate`)
+        The tolerance over the floor. Cost nothing.
+    ``edge_cases`` (default ``True``)
+        Which edge cases (:func:`~pytest_ratefloor.edge_cases.edge_case_inputs`)
+        are round-tripped, each as its own round trip. Measured on zlib-6
+        and ``uniform(256)`` at ``n`` = 100 000, in process: 8 ms for the
+        check without edge cases, 13 ms with ``"short"``, 22 ms with
+        ``"long"``, 23 ms with all of them.
+
+        * ``True``: all, 27 round trips (fewer for a one-symbol support) of
+          337 763 symbols plus the alphabet's size (every symbol once, at
+          most 65 536) — about 3.4 times the default sample, almost all of
+          it in the five long cases: the two 70 000-symbol constant runs and
+          the sample prefixes of 65 535, 65 536 and 65 537 symbols. When
+          ``n`` < 65 537 those prefixes need a draw of 65 537 symbols of
+          their own (about 30 ms for a two-state Markov chain, which samples
+          in a Python loop).
+        * ``False``: none; costs nothing.
+        * a maximum length (integer >= 1): only the cases of at most that
+          many symbols. ``17`` keeps the empty input, one smallest and one
+          largest symbol and the sample prefixes of 1…17 symbols (at most
+          155 symbols); ``1000`` adds the 1 000-symbol alternation of the
+          smallest and largest symbol; "every symbol once" is kept when the
+          maximum is at least its length (the support's size, or 4 096 for
+          the spread of a larger or unbounded alphabet); ``65535``…``65537``
+          add the prefixes of those lengths one by one; ``70000`` or more
+          keeps all.
+        * ``"short"``: the cases of at most 4 096 symbols (``edge_cases=4096``):
+          the empty input, one smallest and one largest symbol, the
+          alternation, every symbol once (when the support has at most 4 096
+          symbols; the 4 096-symbol spread of a larger or unbounded
+          alphabet) and the prefixes of 1…17 symbols: 22 round trips of at
+          most 5 251 symbols in all (1 411 for ``uniform(256)``). It leaves
+          out what catches 16-bit run and length counters overflowing.
+        * ``"long"``: the rest, the cases of more than 4 096 symbols: the two
+          70 000-symbol constant runs, the prefixes of 65 535, 65 536 and
+          65 537 symbols and every symbol once when the support has 4 097 to
+          65 536 symbols: at least 336 608 symbols (and the extra draw when
+          ``n`` < 65 537). ``"short"`` and ``"long"`` together are ``True``.
+    ``corruption`` (``bool``, default ``False``)
+        After the rate passed, feed the decoder damaged copies of the encoding
+        of at most :data:`CORRUPTION_N` (10 000) symbols of the same sample (a
+        prefix; encoded once more when ``n`` is larger) in a forked worker
+        process: ``trials`` decodes plus the worker's start, 23–54 ms for
+        200 trials of a fast decoder (``benchmarks/bench_corruption.py``).
+    ``must_detect`` (``bool``, default ``False``), ``trials`` (integer >= 1,
+    default 200), ``timeout`` (seconds > 0, default 2.0), ``memory_limit``
+    (bytes >= 1 of growth, or ``None`` for no limit; default 1 GiB)
+        The damaged-stream settings, with the names and rules of
+        :func:`~pytest_ratefloor.corruption.assert_survives_corruption`,
+        passed to :func:`~pytest_ratefloor.corruption.survive_damage`.
+        Each is given only with ``corruption=True``: one given without it is
+        a ``ValueError`` (so that ``timeout=10`` is not taken for a limit on
+        the round trip, and never turns on a check nobody asked for); a
+        field not given holds :data:`UNSET` and :attr:`damage` fills in its
+        default. ``must_detect`` costs one comparison of each decoded output
+        with the sample; the time grows linearly in ``trials``; ``timeout``
+        costs time only when a decode hangs, and a run stops after 5 failed
+        trials, so hangs cost at most 5 × ``timeout``; ``memory_limit``
+        costs nothing (an address-space limit on the worker on Linux, a
+        check after each trial elsewhere).
+    ``isolate`` (``bool``, or ``None``: the run's setting, ini ``ratefloor_isolate``, on by default)
+        Run the codec in a forked child (:mod:`pytest_ratefloor.isolation`):
+        one ``fork`` per check, about 4 ms at ``n`` = 10⁵ and 1.02–1.04 times
+        the in-process check at ``n`` = 4·10⁶ (``benchmarks/bench_check.py``).
     """
 
     n: int = DEFAULT_N
@@ -124,9 +262,13 @@ class CheckPlan:
     floor: Floor = DEFAULT_FLOOR
     rel: float | None = None
     abs: float | None = None
-    edge_cases: bool = True
+    edge_cases: EdgeCaseSetting = True
     corruption: bool = False
     isolate: bool | None = None
+    must_detect: bool | _Unset = UNSET
+    trials: int | _Unset = UNSET
+    timeout: float | _Unset = UNSET
+    memory_limit: int | _Unset | None = UNSET
 
     def __post_init__(self) -> None:
         setattr_ = object.__setattr__
@@ -134,10 +276,45 @@ class CheckPlan:
         setattr_(self, "seed", validation.seed(self.seed))
         setattr_(self, "floor", check_floor(self.floor))
         tolerance(self.rel, self.abs)
-        setattr_(self, "edge_cases", validation.flag(self.edge_cases, "edge_cases"))
+        setattr_(self, "edge_cases", _edge_cases(self.edge_cases))
         setattr_(self, "corruption", validation.flag(self.corruption, "corruption"))
         if self.isolate is not None:
             setattr_(self, "isolate", validation.flag(self.isolate, "isolate"))
+        if not isinstance(self.must_detect, _Unset):
+            setattr_(self, "must_detect", validation.flag(self.must_detect, "must_detect"))
+        if not isinstance(self.trials, _Unset):
+            setattr_(self, "trials", validation.integer(self.trials, "trials", minimum=1))
+        if not isinstance(self.timeout, _Unset):
+            setattr_(self, "timeout", validation.seconds(self.timeout, "timeout"))
+        if not isinstance(self.memory_limit, _Unset) and self.memory_limit is not None:
+            setattr_(self, "memory_limit",
+                     validation.integer(self.memory_limit, "memory_limit", minimum=1))
+        if not self.corruption:
+            for name in DAMAGE_OPTIONS:
+                value = getattr(self, name)
+                if not isinstance(value, _Unset):
+                    raise ValueError(validation.message(name, _DAMAGE_RULE, value))
+
+    @property
+    def edge_case_lengths(self) -> EdgeCaseLengths | None:
+        """The lengths of the edge cases run (``None``: none)."""
+        return edge_case_lengths(self.edge_cases)
+
+    @property
+    def damage(self) -> DamageSettings | None:
+        """The damaged-stream settings, defaults filled in (``None`` without ``corruption``)."""
+        if not self.corruption:
+            return None
+        from pytest_ratefloor.corruption.check import DEFAULT_TIMEOUT, DEFAULT_TRIALS
+        from pytest_ratefloor.corruption.worker import DEFAULT_MEMORY_LIMIT
+
+        return DamageSettings(
+            must_detect=False if isinstance(self.must_detect, _Unset) else self.must_detect,
+            trials=DEFAULT_TRIALS if isinstance(self.trials, _Unset) else self.trials,
+            timeout=DEFAULT_TIMEOUT if isinstance(self.timeout, _Unset) else self.timeout,
+            memory_limit=(DEFAULT_MEMORY_LIMIT if isinstance(self.memory_limit, _Unset)
+                          else self.memory_limit),
+        )
 
     @property
     def isolated(self) -> bool:
@@ -157,7 +334,8 @@ def _check_source(source: object) -> None:
 def _roundtrip(codec: Any, source: Source, plan: CheckPlan) -> RoundTrip:
     __tracebackhide__ = True
     isolation.step("drawing the sample")
-    return run_roundtrip(codec, source, plan.n, plan.seed, plan.edge_cases)
+    lengths = plan.edge_case_lengths
+    return run_roundtrip(codec, source, plan.n, plan.seed, False if lengths is None else lengths)
 
 
 def _measurement(trip: RoundTrip, plan: CheckPlan) -> Measurement:
@@ -166,7 +344,7 @@ def _measurement(trip: RoundTrip, plan: CheckPlan) -> Measurement:
                           plan.floor, trip.encode_seconds, trip.decode_seconds)
 
 
-def _survive_damage(trip: RoundTrip, save_dir: SaveDir | None) -> None:
+def _survive_damage(trip: RoundTrip, settings: DamageSettings, save_dir: SaveDir | None) -> None:
     """The damaged-stream check on the round trip's own encoding (a prefix when n is large)."""
     __tracebackhide__ = True
     from pytest_ratefloor.corruption import survive_damage
@@ -174,7 +352,7 @@ def _survive_damage(trip: RoundTrip, save_dir: SaveDir | None) -> None:
     isolation.step("feeding damaged streams to the decoder")
     sample, encoded = trip.prefix(CORRUPTION_N)  # a prefix of the one sample, not a re-draw
     survive_damage(trip.codec, sample, encoded, source=trip.source.spec, seed=trip.seed,
-                   save_dir=save_dir)
+                   save_dir=save_dir, **settings)
 
 
 def _case(codec: Any, source: Source, plan: CheckPlan) -> str:
@@ -216,9 +394,10 @@ def run_check(
             m, tolerance_bits=allowed_excess_bits(m.floor_bits, m.n, plan.rel, plan.abs))
         failure = rate_verdict(m, plan.rel, plan.abs, codec=trip.codec, source=source)
         damage = None
-        if plan.corruption and failure is None:
+        settings = plan.damage
+        if settings is not None and failure is None:
             try:
-                _survive_damage(trip, save_dir)
+                _survive_damage(trip, settings, save_dir)
             except RateFloorFailure as exc:
                 damage = exc
         return m, failure, damage
@@ -258,13 +437,15 @@ def measure(
 
 
 def assert_roundtrip(
-    codec: Any, source: Source, n: int = ROUNDTRIP_N, seed: int = 0, edge_cases: bool = True,
-    isolate: bool | None = None,
+    codec: Any, source: Source, n: int = ROUNDTRIP_N, seed: int = 0,
+    edge_cases: EdgeCaseSetting = True, isolate: bool | None = None,
 ) -> None:
     """Every input decodes back exactly: the sample and (by default) the edge cases.
 
     Also checks the codec contract (raises, wrong type or length, input
-    mutation, determinism); see :func:`edge_case_inputs` for the cases.
+    mutation, determinism); see :func:`edge_case_inputs` for the cases and
+    :class:`CheckPlan` for ``edge_cases`` (``True``, ``False``, a maximum
+    length, ``"short"`` or ``"long"``) and what each costs.
     """
     __tracebackhide__ = True
     plan = CheckPlan(n=n, seed=seed, edge_cases=edge_cases, isolate=isolate)
@@ -306,10 +487,60 @@ def check(
     """Round trip (with edge cases) and rate in one pass over one encoding of the sample.
 
     ``options`` are the :class:`CheckOptions` (``n``, ``seed``, ``floor``,
-    ``rel``, ``abs``, ``edge_cases``, ``corruption``). See :func:`run_check`
-    for ``on_measurement``; with ``corruption=True`` the decoder must also
+    ``rel``, ``abs``, ``edge_cases``, ``corruption``, ``must_detect``,
+    ``trials``, ``timeout``, ``memory_limit``, ``isolate``; rules, defaults
+    and costs in :class:`CheckPlan`). See :func:`run_check` for
+    ``on_measurement``; with ``corruption=True`` the decoder must also
     survive damaged streams (on at most :data:`CORRUPTION_N` symbols of the
-    same sample).
+    same sample), with the damaged-stream settings given here.
     """
     __tracebackhide__ = True
     return run_check(codec, source, CheckPlan(**options), on_measurement)
+
+
+#: Every option a check takes (the fields of :class:`CheckPlan`).
+OPTION_NAMES: Final = tuple(field.name for field in dataclasses.fields(CheckPlan))
+
+
+def merge_options(shared: Mapping[str, Any], own: Mapping[str, Any]) -> dict[str, Any]:
+    """One case's ``own`` options over the ``shared`` ones, key by key, with two rules.
+
+    * The tolerance is one setting: a case that gives ``rel`` or ``abs``
+      replaces both shared values (so ``abs=0.002`` under a shared
+      ``rel=0.02`` is ``abs=0.002`` alone, ``rel`` 0 by the usual rule).
+    * ``corruption=False`` turns the damaged-stream check off for the case
+      together with its shared settings (``must_detect``, ``trials``,
+      ``timeout``, ``memory_limit``), which would otherwise be an error.
+
+    Values are not checked here (:class:`CheckPlan` does that).
+    """
+    merged = dict(shared)
+    if any(name in own for name in TOLERANCE_OPTIONS):
+        for name in TOLERANCE_OPTIONS:
+            merged.pop(name, None)
+    if "corruption" in own and validation.flag(own["corruption"], "corruption") is False:
+        for name in DAMAGE_OPTIONS:
+            merged.pop(name, None)
+    merged.update(own)
+    return merged
+
+
+def plan_for_case(shared: Mapping[str, Any], own: object, where: str) -> CheckPlan:
+    """The plan of one case: its ``own`` options (a mapping) merged over ``shared`` ones.
+
+    ``shared`` are options already checked (e.g. by ``CheckPlan(**shared)``);
+    see :func:`merge_options` for the merge. Every error names the case:
+    ``where`` (e.g. ``"gate source uniform(k=256)"``) leads the message. Not a
+    mapping, or a key that is no option (:data:`OPTION_NAMES`), is a
+    ``TypeError``/``ValueError``; so is a bad value, as :class:`CheckPlan`
+    says, with the key named.
+    """
+    if not isinstance(own, Mapping):
+        raise TypeError(validation.message(
+            "its options", "a mapping of check options such as dict(rel=0.02)", own, where))
+    for key in own:
+        validation.choice(key, "option", OPTION_NAMES, where=where)
+    try:
+        return CheckPlan(**merge_options(shared, own))
+    except (TypeError, ValueError) as exc:
+        raise type(exc)(f"{where}: {exc}") from None

@@ -17,19 +17,20 @@ them again.
 
 ``gate(codec, ...)`` returns a test function parametrized over reference
 sources (default ``sources.standard_suite()``) whose ids are the source
-specs; it uses no markers.
+specs; it uses no markers. Sources given as a mapping carry their own
+options (tolerance, floor, ...) over the gate's.
 """
 
 from __future__ import annotations
 
 import dataclasses
-from collections.abc import Callable, Iterable
+from collections.abc import Callable, Iterable, Mapping
 from typing import TYPE_CHECKING, Any
 
 import pytest
 
 from pytest_ratefloor import checks
-from pytest_ratefloor.checks import DEFAULT_N, CheckOptions, CheckPlan, SaveDir
+from pytest_ratefloor.checks import DEFAULT_N, CheckOptions, CheckPlan, SaveDir, plan_for_case
 from pytest_ratefloor.codecs import as_codec
 from pytest_ratefloor.floors import DEFAULT_FLOOR, Floor
 from pytest_ratefloor.measurement import Measurement
@@ -118,14 +119,20 @@ class RateFloorHarness:
 
         ``options`` are the :class:`~pytest_ratefloor.checks.CheckOptions`:
         ``n`` (default 100 000), ``seed`` (0), ``floor`` (``"sample"``),
-        ``rel``/``abs`` (default ``rel=0.01``), ``edge_cases`` (``True``),
-        ``corruption`` (``False``) and ``isolate`` (the run's setting). With
+        ``rel``/``abs`` (default ``rel=0.01``), ``edge_cases`` (``True``;
+        or ``False``, a maximum length, ``"short"``, ``"long"``),
+        ``corruption`` (``False``) with ``must_detect`` (``False``),
+        ``trials`` (200), ``timeout`` (2.0 s) and ``memory_limit`` (1 GiB),
+        and ``isolate`` (the run's setting); rules and what each costs are
+        in :class:`~pytest_ratefloor.checks.CheckPlan`. With
         ``corruption=True`` the decoder must then also survive damaged
         streams of the same encoding (on at most
         10 000 symbols of the sample; see
         :func:`pytest_ratefloor.corruption.assert_survives_corruption` for what
         counts as surviving; damaged streams of failures are saved in the
-        test's ``tmp_path``). Returns the measurement.
+        test's ``tmp_path``); ``must_detect``, ``trials``, ``timeout`` and
+        ``memory_limit`` are its settings and need ``corruption=True``
+        (given without it they are a ``ValueError``). Returns the measurement.
         """
         __tracebackhide__ = True
         return self.run(codec, source, CheckPlan(**options))
@@ -149,7 +156,7 @@ class RateFloorHarness:
 
 def gate(
     codec: Any,
-    sources: Iterable[Source] | None = None,
+    sources: Iterable[Source] | Mapping[Source, CheckOptions] | None = None,
     **options: Unpack[CheckOptions],
 ) -> Callable[..., None]:
     """A test function that checks ``codec`` on every source (default: the standard suite).
@@ -159,15 +166,43 @@ def gate(
         test_tide_codec = gate(codec, rel=0.02)
 
     ``options`` are those of :meth:`RateFloorHarness.check`
-    (:class:`~pytest_ratefloor.checks.CheckOptions`). The arguments are
-    checked now, so a typo fails at collection.
+    (:class:`~pytest_ratefloor.checks.CheckOptions`; rules and costs in
+    :class:`~pytest_ratefloor.checks.CheckPlan`) and apply to every source.
+
+    ``sources`` is an iterable of sources, or a mapping from each source to
+    its own options, which are merged over the gate's::
+
+        test_flags = gate(codec, sources={
+            sources.bernoulli(0.01): dict(abs=0.002, floor="adaptive"),
+            sources.bernoulli(0.2): dict(corruption=True, must_detect=True),
+            sources.uniform(256): {},          # the gate's options alone
+        }, rel=0.02)
+
+    A source's own option replaces the gate's of the same name, except that
+    the tolerance is one setting — a source that gives ``rel`` or ``abs``
+    replaces both of the gate's (above, ``bernoulli(p=0.01)`` is held to
+    ``abs=0.002`` alone, the others to ``rel=0.02``) — and that
+    ``corruption=False`` also drops the gate's damaged-stream settings for
+    that source (see :func:`~pytest_ratefloor.checks.merge_options`).
+
+    The arguments are checked now, so a typo fails at collection: a bad
+    gate-level option as :class:`~pytest_ratefloor.checks.CheckPlan` says,
+    and for a source's own options an error that starts with
+    ``gate source <spec>:`` and names the key — a key that is no option
+    (``ValueError``, a non-string key ``TypeError``), options that are not a
+    mapping (``TypeError``), or a bad value. Test ids are the source specs
+    either way.
     """
     as_codec(codec)
     plan = CheckPlan(**options)
+    own: Mapping[Source, object] = {}
     if sources is None:
         from pytest_ratefloor.sources import standard_suite
 
         suite = list(standard_suite())
+    elif isinstance(sources, Mapping):
+        suite = list(sources)
+        own = sources
     else:
         suite = list(sources)
     if not suite:
@@ -175,10 +210,12 @@ def gate(
     for s in suite:
         if not isinstance(getattr(s, "spec", None), str):
             raise TypeError(f"gate sources must be reference sources, got {s!r}")
+    plans = {s.spec: plan_for_case(options, own[s], f"gate source {s.spec}") if s in own
+             else plan for s in suite}
 
     @pytest.mark.parametrize("ratefloor_source", suite, ids=[s.spec for s in suite])
     def test_ratefloor_gate(ratefloor: RateFloorHarness, ratefloor_source: Source) -> None:
         __tracebackhide__ = True
-        ratefloor.run(codec, ratefloor_source, plan)
+        ratefloor.run(codec, ratefloor_source, plans[ratefloor_source.spec])
 
     return test_ratefloor_gate

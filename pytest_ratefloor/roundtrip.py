@@ -23,7 +23,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from pytest_ratefloor.codecs import Codec, Encoded, as_codec
-from pytest_ratefloor.edge_cases import edge_case_inputs
+from pytest_ratefloor.edge_cases import ALL_EDGE_CASES, EdgeCaseLengths, edge_case_inputs
 from pytest_ratefloor.errors import (
     CodecContractError,
     CodecMisbehaviour,
@@ -204,10 +204,14 @@ class RoundTrip:
                              f"the first {count} symbols of the sample")
 
 
-def run_roundtrip(codec: Any, source: Source, n: int, seed: int, edge_cases: bool) -> RoundTrip:
+def run_roundtrip(
+    codec: Any, source: Source, n: int, seed: int, edge_cases: bool | EdgeCaseLengths
+) -> RoundTrip:
     """Encode and decode the sample once, check the contract and the edge cases.
 
-    The arguments are already validated (see :class:`pytest_ratefloor.checks.CheckPlan`).
+    ``edge_cases``: ``True`` for all of them, ``False`` for none, or the
+    :class:`~pytest_ratefloor.edge_cases.EdgeCaseLengths` to run. The
+    arguments are already validated (see :class:`pytest_ratefloor.checks.CheckPlan`).
     """
     __tracebackhide__ = True
     bound = as_codec(codec).for_source(source)
@@ -226,9 +230,8 @@ def run_roundtrip(codec: Any, source: Source, n: int, seed: int, edge_cases: boo
         _check_untouched(source, sample, run, case)
         raise
     _check_contract(bound, sample, run)
-    if edge_cases:
-        for name, symbols in edge_case_inputs(
-            source, sample, seed, bound.symbols
-        ):
+    if edge_cases is not False:
+        lengths = ALL_EDGE_CASES if edge_cases is True else edge_cases
+        for name, symbols in edge_case_inputs(source, sample, seed, bound.symbols, lengths):
             _roundtrip_one(bound, symbols, run, name)
     return RoundTrip(bound, source, seed, sample, encoded, encode_seconds, decode_seconds)

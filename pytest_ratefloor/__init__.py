@@ -19,6 +19,7 @@ _EXPORTS: dict[str, str] = {
     # codecs under test
     "StreamCodec": "pytest_ratefloor.codecs",
     "ByteCodec": "pytest_ratefloor.codecs",
+    "CommandCodec": "pytest_ratefloor.command",
     "Codebook": "pytest_ratefloor.codes",
     # checks
     "measure": "pytest_ratefloor.checks",
@@ -77,6 +78,7 @@ if TYPE_CHECKING:  # pragma: no cover - for type checkers only
     from pytest_ratefloor.codes import assert_kraft as assert_kraft
     from pytest_ratefloor.codes import assert_prefix_free as assert_prefix_free
     from pytest_ratefloor.codes import assert_uniquely_decodable as assert_uniquely_decodable
+    from pytest_ratefloor.command import CommandCodec as CommandCodec
     from pytest_ratefloor.corruption import assert_survives_corruption as assert_survives_corruption
     from pytest_ratefloor.errors import (
         AmbiguousCode as AmbiguousCode,

@@ -175,7 +175,7 @@ class CheckPlan:
     naming the argument and the value. Costs are for one check; "a round
     trip" is one encode and one decode.
 
-    ``n`` (integer >= 1, default 100 000)
+    ``n`` (integer >= 1; default 100 000, or the whole file for a corpus source)
         Symbols in the sample. The sample is drawn, encoded and decoded
         once (the measurement reuses that encoding), and the codec contract
         costs two more encodes of its first 4 096 symbols: time grows
@@ -257,7 +257,7 @@ class CheckPlan:
         the in-process check at ``n`` = 4·10⁶ (``benchmarks/bench_check.py``).
     """
 
-    n: int = DEFAULT_N
+    n: int | None = None
     seed: int = 0
     floor: Floor = DEFAULT_FLOOR
     rel: float | None = None
@@ -272,7 +272,8 @@ class CheckPlan:
 
     def __post_init__(self) -> None:
         setattr_ = object.__setattr__
-        setattr_(self, "n", validation.sample_size(self.n))
+        if self.n is not None:
+            setattr_(self, "n", validation.sample_size(self.n))
         setattr_(self, "seed", validation.seed(self.seed))
         setattr_(self, "floor", check_floor(self.floor))
         tolerance(self.rel, self.abs)
@@ -294,6 +295,21 @@ class CheckPlan:
                 value = getattr(self, name)
                 if not isinstance(value, _Unset):
                     raise ValueError(validation.message(name, _DAMAGE_RULE, value))
+
+    def for_source(self, source: Source, default_n: int = DEFAULT_N) -> CheckPlan:
+        """This plan with ``n`` decided: as given, else the whole of a fixed-length
+        source (a corpus file's ``length``), else ``default_n``."""
+        if self.n is not None:
+            return self
+        length = getattr(source, "length", None)
+        n = int(length) if isinstance(length, int) and length > 0 else default_n
+        return dataclasses.replace(self, n=n)
+
+    @property
+    def size(self) -> int:
+        """``n`` once decided (see :meth:`for_source`)."""
+        assert self.n is not None, "CheckPlan.for_source decides n before a check runs"
+        return self.n
 
     @property
     def edge_case_lengths(self) -> EdgeCaseLengths | None:
@@ -335,7 +351,8 @@ def _roundtrip(codec: Any, source: Source, plan: CheckPlan) -> RoundTrip:
     __tracebackhide__ = True
     isolation.step("drawing the sample")
     lengths = plan.edge_case_lengths
-    return run_roundtrip(codec, source, plan.n, plan.seed, False if lengths is None else lengths)
+    return run_roundtrip(codec, source, plan.size, plan.seed,
+                         False if lengths is None else lengths)
 
 
 def _measurement(trip: RoundTrip, plan: CheckPlan) -> Measurement:
@@ -358,7 +375,7 @@ def _survive_damage(trip: RoundTrip, settings: DamageSettings, save_dir: SaveDir
 def _case(codec: Any, source: Source, plan: CheckPlan) -> str:
     """The case in messages about the codec's process (checked before any work)."""
     _check_source(source)
-    return CaseKey(as_codec(codec).name, source.spec, plan.n, plan.seed).phrase
+    return CaseKey(as_codec(codec).name, source.spec, plan.size, plan.seed).phrase
 
 
 def _guarded(work: Callable[[], _T], codec: Any, source: Source, plan: CheckPlan) -> _T:
@@ -385,6 +402,8 @@ def run_check(
     raised after the ledger had its say.
     """
     __tracebackhide__ = True
+    _check_source(source)
+    plan = plan.for_source(source)
 
     def work() -> tuple[Measurement, RateFloorFailure | None, RateFloorFailure | None]:
         __tracebackhide__ = True
@@ -421,8 +440,8 @@ def run_check(
 
 
 def measure(
-    codec: Any, source: Source, n: int = DEFAULT_N, seed: int = 0, floor: Floor = DEFAULT_FLOOR,
-    isolate: bool | None = None,
+    codec: Any, source: Source, n: int | None = None, seed: int = 0,
+    floor: Floor = DEFAULT_FLOOR, isolate: bool | None = None,
 ) -> Measurement:
     """Encode ``n`` symbols of ``source`` once and measure the length against ``floor``.
 
@@ -431,13 +450,15 @@ def measure(
     a short slice; no tolerance is applied and no edge cases are run.
     """
     __tracebackhide__ = True
-    plan = CheckPlan(n=n, seed=seed, floor=floor, edge_cases=False, isolate=isolate)
+    _check_source(source)
+    plan = CheckPlan(n=n, seed=seed, floor=floor, edge_cases=False,
+                     isolate=isolate).for_source(source)
     return _guarded(lambda: _measurement(_roundtrip(codec, source, plan), plan),
                     codec, source, plan)
 
 
 def assert_roundtrip(
-    codec: Any, source: Source, n: int = ROUNDTRIP_N, seed: int = 0,
+    codec: Any, source: Source, n: int | None = None, seed: int = 0,
     edge_cases: EdgeCaseSetting = True, isolate: bool | None = None,
 ) -> None:
     """Every input decodes back exactly: the sample and (by default) the edge cases.
@@ -448,7 +469,9 @@ def assert_roundtrip(
     length, ``"short"`` or ``"long"``) and what each costs.
     """
     __tracebackhide__ = True
-    plan = CheckPlan(n=n, seed=seed, edge_cases=edge_cases, isolate=isolate)
+    _check_source(source)
+    plan = CheckPlan(n=n, seed=seed, edge_cases=edge_cases,
+                     isolate=isolate).for_source(source, ROUNDTRIP_N)
 
     def work() -> None:  # the round trip itself stays in the child: only failures come back
         __tracebackhide__ = True
@@ -460,7 +483,7 @@ def assert_roundtrip(
 def assert_rate(
     codec: Any,
     source: Source,
-    n: int = DEFAULT_N,
+    n: int | None = None,
     seed: int = 0,
     floor: Floor = DEFAULT_FLOOR,
     rel: float | None = None,

@@ -1,26 +1,53 @@
-"""The ``ratefloor`` console script: show a ledger, diff two ledgers, estimate a file's entropy.
+"""The ``ratefloor`` console script: show a ledger, diff two ledgers, prune stale entries,
+estimate a file's entropy.
 
 ::
 
     ratefloor show LEDGER [--format md|json]
     ratefloor diff OLD NEW [--slack REL] [--format text|md] [--allow-dropped]
+    ratefloor prune LEDGER --report REPORT.json [--dry-run]
     ratefloor entropy FILE... [--symbol LAYOUT] [--order K]
+
+``show`` lists each case with its layout (how the codec turned symbols into
+bytes or bits, when the ledger knows it).
+
+``prune`` removes, on purpose, the ledger entries a full pytest run found stale
+(no test measured them). REPORT.json is that run's JSON report
+(``pytest --ratefloor-report REPORT.json``, run against LEDGER): its
+``ledger.stale`` list names the entries. The report is read as strictly as a
+ledger (bounded, strict JSON, its kind and schema, each stale entry checked
+field by field; fields prune does not use are ignored) and is refused when the
+run was partial (``ledger.full_run`` false or ``ledger.partial_reasons``
+non-empty: ``-k``, ``-m``, deselection, named test ids, ``-x``, an interrupted
+run, a lost xdist worker), since such a run cannot tell what is stale. An entry
+is removed only while the ledger still holds it exactly as the report quotes
+it; one recorded again since (other figures) is kept, and one already gone is
+noted. Each removed case is printed (``removed: <case>``); ``--dry-run`` prints
+what would go (``would remove: <case>``) and writes nothing. The write takes
+the ledger's lock, re-reads the file as it is now and replaces it atomically
+(:mod:`pytest_ratefloor.recording`); every other entry and the
+``recorded_with`` block are written back unchanged. A test that failed before
+it measured its case leaves that case stale too: prune from the report of a
+run whose tests passed.
 
 Exit status:
 
 - 0: success. For ``diff``: no case regressed (needs more bits than in OLD,
   beyond ``--slack``), none was resampled (measured on another sample, so not
   comparable) and none was dropped (in OLD, not in NEW); ``--allow-dropped``
-  accepts dropped cases, which are still listed.
+  accepts dropped cases, which are still listed. For ``prune``: done, also when
+  nothing was stale.
 - 1: ``diff`` only: a case regressed, was resampled, or was dropped without
   ``--allow-dropped``. The last line of the output says which, so the command
   can gate a release job.
 - 2: any error, reported as exactly one line on stderr: a ledger that is
   missing, a directory or another non-regular file, corrupt, or rejected by
   :meth:`~pytest_ratefloor.ledger.Ledger.load` for any reason (the line names
-  the file), an unreadable data file, a bad argument.
+  the file), an unreadable data file, a bad argument; for ``prune`` also a
+  report that is unreadable, not a JSON report, of a newer schema, of a partial
+  run or inconsistent, and a ledger lock not obtained in time.
 
-Codec names, source specs and paths are shown through
+Codec names, source specs, layouts, case labels and paths are shown through
 :func:`~pytest_ratefloor.escaping.terminal_text` (text) and
 :func:`~pytest_ratefloor.escaping.markdown_text` (Markdown); the JSON listing
 keeps them raw and never holds NaN or Infinity.
@@ -42,8 +69,24 @@ from pytest_ratefloor import validation
 from pytest_ratefloor.errors import CommandLineError, LedgerError
 from pytest_ratefloor.escaping import json_safe, markdown_text, md_name, terminal_text
 from pytest_ratefloor.layouts import LAYOUTS
-from pytest_ratefloor.ledger import Ledger, entry_json
-from pytest_ratefloor.report import CAUTION, align, finite, markdown_tables, signed_pct
+from pytest_ratefloor.ledger import (
+    Environment,
+    Ledger,
+    entry_json,
+    read_case,
+    read_json_strictly,
+)
+from pytest_ratefloor.measurement import CaseKey, Measurement
+from pytest_ratefloor.recording import ledger_lock, write_atomic
+from pytest_ratefloor.report import (
+    CAUTION,
+    REPORT_KIND,
+    REPORT_SCHEMA_VERSION,
+    align,
+    finite,
+    markdown_tables,
+    signed_pct,
+)
 from pytest_ratefloor.verdicts import VERDICTS, Comparison, compare, counts_of, listed
 
 #: Layout of ``ratefloor show --format json``.
@@ -118,7 +161,8 @@ def show(ledger: Ledger, fmt: str) -> str:
             "ledger": str(ledger.path), "caution": CAUTION,
             "recorded_with": None if env is None else env.to_json(),
             "cases": [
-                {**entry_json(r.case), "efficiency": finite(r.case.efficiency)} for r in rows
+                {**entry_json(r.case), "layout": r.case.layout,
+                 "efficiency": finite(r.case.efficiency)} for r in rows
             ],
         }
         return json.dumps(json_safe(doc), indent=2, sort_keys=True, allow_nan=False) + "\n"
@@ -206,6 +250,152 @@ def render_diff(old: Ledger, new: Ledger, lines: Sequence[Comparison], fmt: str,
     text = [f"ratefloor diff: {terminal_text(str(old.path))} -> {terminal_text(str(new.path))}",
             *align(table, {2, 3, 4, 5, 6, 7}), f"cases: {tally}", result]
     return "\n".join(text) + "\n"
+
+
+# -- prune -----------------------------------------------------------------------------
+
+
+def _report_error(path: str, message: str) -> CommandLineError:
+    return CommandLineError(f"{path}: {message}")
+
+
+def _case_key(obj: object, where: str, path: str) -> CaseKey:
+    """The key of one measured case of a report (only the four naming fields are checked)."""
+    if not isinstance(obj, dict):
+        raise _report_error(path, f"{where} is not a JSON object")
+    codec, source, n, seed = (obj.get(name) for name in ("codec", "source", "n", "seed"))
+    if isinstance(codec, str) and isinstance(source, str) and isinstance(n, int) \
+            and isinstance(seed, int) and not isinstance(n, bool) and not isinstance(seed, bool):
+        return CaseKey(codec, source, n, seed)
+    raise _report_error(path, f"{where} lacks a well-formed codec, source, n or seed")
+
+
+def read_stale_report(path: str) -> list[Measurement]:
+    """The stale entries a full run's JSON report lists, read strictly.
+
+    :raises CommandLineError: (one line naming the report) the file cannot be
+        read as strict JSON, is not a pytest-ratefloor JSON report, has a newer or
+        bad schema, has no ledger block, was written by a partial run, or lists a
+        stale entry that is malformed, repeated or also among the measured cases.
+    """
+    try:
+        doc = read_json_strictly(Path(path), "report")
+    except LedgerError as exc:
+        raise _unreadable(path, str(exc)) from None
+    if not isinstance(doc, dict) or doc.get("kind") != REPORT_KIND:
+        raise _report_error(path, f"not a pytest-ratefloor JSON report (no \"kind\": "
+                                  f"{REPORT_KIND!r})")
+    schema = doc.get("schema")
+    if isinstance(schema, bool) or not isinstance(schema, int) or schema < 1:
+        raise _report_error(path, f"bad report schema {schema!r}")
+    if schema > REPORT_SCHEMA_VERSION:
+        raise _report_error(path, f"report schema {schema} is newer than this pytest-ratefloor "
+                                  f"understands (schema {REPORT_SCHEMA_VERSION}); upgrade it")
+    block = doc.get("ledger")
+    if not isinstance(block, dict):
+        raise _report_error(path, "has no 'ledger' block: the run compared with no ledger")
+    full, reasons = block.get("full_run"), block.get("partial_reasons")
+    if not isinstance(full, bool) or not isinstance(reasons, list) \
+            or not all(isinstance(r, str) for r in reasons):
+        raise _report_error(path, "'ledger' lacks a well-formed 'full_run' (true or false) "
+                                  "and 'partial_reasons' (a list of strings)")
+    if not full or reasons:
+        why = "; ".join(reasons) or "the report says it was not a full run"
+        raise _report_error(path, f"comes from a partial run ({why}), which cannot tell which "
+                                  "entries are stale; prune with the report of a full run")
+    stale, cases = block.get("stale"), doc.get("cases")
+    if not isinstance(stale, list) or not isinstance(cases, list):
+        raise _report_error(path, "lacks the lists 'cases' and 'ledger.stale'")
+    measured = {_case_key(obj, f"case {i}", path) for i, obj in enumerate(cases)}
+    entries: dict[CaseKey, Measurement] = {}
+    for i, obj in enumerate(stale):
+        try:
+            entry = read_case(obj, f"{path}: stale entry {i}")
+        except LedgerError as exc:
+            raise _unreadable(path, str(exc)) from None
+        if entry.key in entries or entry.key in measured:
+            what = "twice" if entry.key in entries else "as stale and as measured"
+            raise _report_error(path, f"lists the case {entry.key.label!r} {what}; "
+                                      "not a report this plugin wrote")
+        entries[entry.key] = entry
+    return list(entries.values())
+
+
+@dataclass(frozen=True)
+class Pruning:
+    """What ``prune`` does to a ledger: the entries that go and what it leaves."""
+
+    #: the ledger with the stale entries removed (its environment block kept)
+    kept: Ledger
+    #: entries removed (or, in a dry run, that would be)
+    removed: tuple[Measurement, ...]
+    #: stale in the report, but recorded again since with other figures: kept
+    changed: tuple[Measurement, ...]
+    #: stale in the report, but no longer in the ledger
+    gone: tuple[Measurement, ...]
+
+
+def plan_pruning(ledger: Ledger, stale: Sequence[Measurement]) -> Pruning:
+    """Remove from ``ledger`` each stale entry it still holds exactly as the report quotes it."""
+    entries = dict(ledger.entries)
+    removed, changed, gone = [], [], []
+    for quoted in sorted(stale, key=lambda m: m.key):
+        held = entries.get(quoted.key)
+        if held is None:
+            gone.append(quoted)
+        elif entry_json(held) == entry_json(quoted):
+            removed.append(entries.pop(quoted.key))
+        else:
+            changed.append(quoted)
+    kept = Ledger(path=ledger.path, entries=entries,
+                  environment=ledger.environment or Environment.current(), exists=ledger.exists)
+    return Pruning(kept, tuple(removed), tuple(changed), tuple(gone))
+
+
+def render_pruning(ledger_path: str, report_path: str, plan: Pruning, dry_run: bool) -> str:
+    """One line per stale entry (what happened to it), then the outcome."""
+    where = terminal_text(ledger_path)
+    lines = [f"ratefloor prune: {where}, stale entries of the full run in "
+             f"{terminal_text(report_path)}"]
+    verb = "would remove" if dry_run else "removed"
+    lines += [f"{verb}: {terminal_text(m.key.label)}" for m in plan.removed]
+    lines += [f"kept (recorded again since the report): {terminal_text(m.key.label)}"
+              for m in plan.changed]
+    lines += [f"not in the ledger: {terminal_text(m.key.label)}" for m in plan.gone]
+    count = len(plan.removed)
+    entries = f"{count} stale entr{'y' if count == 1 else 'ies'}"
+    left = len(plan.kept.entries)
+    if not count:
+        lines.append(f"no stale entry to remove; {where} not written")
+    elif dry_run:
+        lines.append(f"dry run: {entries} would be removed, {left} kept; {where} not written")
+    else:
+        lines.append(f"removed {entries}; {left} kept in {where}")
+    return "\n".join(lines) + "\n"
+
+
+def prune(ledger_path: str, report_path: str, dry_run: bool = False) -> str:
+    """Remove the stale entries of a full run's report from the ledger; the text to print.
+
+    The report and the ledger are read first (errors before any lock). Then,
+    unless ``dry_run``, under the ledger's lock: the ledger is read as it is
+    now, pruned and, if anything goes, replaced atomically.
+
+    :raises CommandLineError: unreadable input, a partial run's report, the lock not
+        obtained (one line each).
+    """
+    stale = read_stale_report(report_path)
+    plan = plan_pruning(_load(ledger_path), stale)
+    if dry_run or not plan.removed:
+        return render_pruning(ledger_path, report_path, plan, dry_run)
+    try:
+        with ledger_lock(Path(ledger_path)) as target:
+            plan = plan_pruning(_load(ledger_path), stale)  # the file as it is now
+            if plan.removed:
+                write_atomic(target, plan.kept.dumps())
+    except LedgerError as exc:  # the lock was not obtained in time
+        raise CommandLineError(str(exc)) from None
+    return render_pruning(ledger_path, report_path, plan, dry_run)
 
 
 # -- entropy ---------------------------------------------------------------------------
@@ -307,7 +497,8 @@ ENTROPY_NOTE = (
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="ratefloor",
-        description="Inspect pytest-ratefloor ledgers and estimate the entropy of data files.",
+        description="Inspect and prune pytest-ratefloor ledgers and estimate the entropy of "
+                    "data files.",
     )
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
     p_show = sub.add_parser("show", help="print a ledger as a release-notes table")
@@ -324,6 +515,15 @@ def build_parser() -> argparse.ArgumentParser:
     p_diff.add_argument("--allow-dropped", action="store_true",
                         help="cases in OLD but not in NEW do not fail the diff "
                              "(they are still listed)")
+    p_prune = sub.add_parser(
+        "prune", help="remove the ledger entries a full run's JSON report lists as stale"
+    )
+    p_prune.add_argument("ledger", metavar="LEDGER")
+    p_prune.add_argument("--report", required=True, metavar="REPORT.json",
+                         help="the JSON report of a full pytest run against LEDGER "
+                              "(pytest --ratefloor-report REPORT.json)")
+    p_prune.add_argument("--dry-run", action="store_true",
+                         help="print what would be removed; write nothing")
     p_ent = sub.add_parser("entropy", help="empirical entropy of files, with zlib/lzma sizes")
     p_ent.add_argument("files", nargs="+", metavar="FILE")
     p_ent.add_argument("--symbol", choices=tuple(LAYOUTS), default="u8",
@@ -347,6 +547,9 @@ def _run(args: argparse.Namespace) -> int:
         sys.stdout.write(render_diff(old, new, lines, args.format, args.allow_dropped))
         status, _ = diff_outcome(lines, args.allow_dropped)
         return status
+    if args.command == "prune":
+        sys.stdout.write(prune(args.ledger, args.report, args.dry_run))
+        return 0
     if args.command == "entropy":
         if args.order < 0:
             raise CommandLineError(f"--order: must be >= 0, got {args.order}")

@@ -1,14 +1,17 @@
 """Adapters that give every codec shape under test one interface.
 
-A codec under test comes in one of three shapes:
+A codec under test comes in one of these shapes:
 
 * ``StreamCodec(encode, decode)`` — the team's own bit/byte stream coder:
   ``encode(symbols) -> bytes | bytearray | memoryview | bitarray | (bytes, nbits)``
   and ``decode(data, n) -> sequence of n ints``;
 * ``ByteCodec(compress, decompress, symbol=...)`` — a general byte
-  compressor (zlib, bz2, lzma, ...): the symbols are packed into bytes first;
+  compressor (zlib, bz2, lzma, ...): the symbols are packed into bytes first
+  (``pass_n=True``: the decompressor is also told ``n``);
 * a ``Codebook`` (a symbol code from :mod:`pytest_ratefloor.codes`), encoded
-  and decoded by bitarray's C prefix-code encoder and decode tree.
+  and decoded by bitarray's C prefix-code encoder and decode tree;
+* ``CommandCodec(encode_cmd, decode_cmd)`` — an encoder and a decoder program
+  (:mod:`pytest_ratefloor.command`).
 
 :func:`as_codec` turns any of them (and an ``(encode, decode)`` pair of
 functions, or an object with those two methods, as a ``StreamCodec``) into a
@@ -28,7 +31,10 @@ Rate accounting: exact bits for a ``bitarray`` or ``(bytes, nbits)``;
 
 Symbol layouts (``ByteCodec(symbol=...)``, ``"auto"`` by default) are described
 in :mod:`pytest_ratefloor.layouts`; ``packing=`` is accepted as the older
-name of the same option.
+name of the same option. Each adapter's read-only ``layout`` says how the
+symbols reach the codec: the layout name for a ``ByteCodec`` (``"auto"`` until
+bound to a source), the command and layout for a ``CommandCodec``, ``None``
+for the adapters that hand the codec the symbols themselves.
 
 Replaying damaged streams (what the corruption check needs from a codec):
 :attr:`Encoded.stream` is the payload as bytes, :attr:`Encoded.shape` (a
@@ -465,6 +471,11 @@ class StreamCodec:
     def __repr__(self) -> str:
         return f"StreamCodec(name={self.name!r}, version={self.version!r})"
 
+    @property
+    def layout(self) -> None:
+        """``None``: the encoder gets the symbols themselves."""
+        return None
+
     def encode(self, symbols: np.ndarray) -> Encoded:
         """Call the user's encoder and validate what it returned."""
         return encoded_from_stream(self._encode(symbols))
@@ -488,18 +499,22 @@ class ByteCodec:
     The symbols are written as bytes first in the layout ``symbol`` (see
     :mod:`pytest_ratefloor.layouts`; ``packing`` is the older name of the same
     option); the rate is ``8 · len(compressed)``. ``symbol="auto"`` is
-    resolved from the source when the checks bind the codec to it.
+    resolved from the source when the checks bind the codec to it. With
+    ``pass_n=True`` the decompressor is called as ``decompress(data, n)``, ``n``
+    the number of symbols, for formats that need the output size from outside
+    the stream (raw deflate with a known length, for one).
     """
 
     def __init__(
         self,
         compress: Callable[[bytes], Any],
-        decompress: Callable[[bytes], Any],
+        decompress: Callable[..., Any],
         name: str | None = None,
         version: str | None = None,
         symbol: str = AUTO,
         *,
         packing: str | None = None,
+        pass_n: bool = False,
     ) -> None:
         validation.function(compress, "ByteCodec compress")
         validation.function(decompress, "ByteCodec decompress")
@@ -514,6 +529,7 @@ class ByteCodec:
             resolve_layout(symbol)
         self._compress = compress
         self._decompress = decompress
+        self.pass_n = validation.flag(pass_n, "ByteCodec pass_n")
         self.name = _check_name(name if name is not None else _callable_name(compress))
         self.version = _check_version(version)
         self.symbols: list[int] | None = None
@@ -527,8 +543,16 @@ class ByteCodec:
         """The older name of :attr:`symbol`."""
         return self.symbol
 
+    @property
+    def layout(self) -> str:
+        """The symbol layout: its name (``"u8"``, ``"zigzag-u16le"``, ...) once bound to a
+        source, ``"auto"`` before when it is left to the source."""
+        return self.symbol
+
     def __repr__(self) -> str:
-        return f"ByteCodec(name={self.name!r}, version={self.version!r}, symbol={self.symbol!r})"
+        extra = ", pass_n=True" if self.pass_n else ""
+        return (f"ByteCodec(name={self.name!r}, version={self.version!r}, "
+                f"symbol={self.symbol!r}{extra})")
 
     def for_source(self, source: Source) -> ByteCodec:
         """This codec as used on ``source``: an ``"auto"`` layout resolved.
@@ -539,7 +563,8 @@ class ByteCodec:
         """
         layout = resolve_layout(self.symbol, source)
         bound = ByteCodec(
-            self._compress, self._decompress, name=self.name, version=self.version, symbol=layout
+            self._compress, self._decompress, name=self.name, version=self.version,
+            symbol=layout, pass_n=self.pass_n,
         )
         lo, hi = source.min_symbol, source.max_symbol
         bound._trusted = lo is not None and hi is not None and LAYOUTS[layout].holds(lo, hi)
@@ -557,9 +582,12 @@ class ByteCodec:
         return Encoded(payload=raw, bits=8 * len(raw))
 
     def decode(self, encoded: Encoded, n: int) -> np.ndarray:
-        """Decompress and read back exactly ``n`` symbols."""
+        """Decompress (told ``n`` with ``pass_n``) and read back exactly ``n`` symbols."""
         layout = resolve_layout(self.symbol)
-        out = self._decompress(encoded.payload)
+        if self.pass_n:
+            out = self._decompress(encoded.payload, n)
+        else:
+            out = self._decompress(encoded.payload)
         raw = _bytes_of(out)
         if raw is None:
             raise CodecContractError(
@@ -575,8 +603,10 @@ class ByteCodec:
         return unpack(raw, n, layout)
 
     def replay_call(self, payload: str, n: int) -> ReplayCall:
-        """The user's ``decompress(payload)`` (the step that meets the damage)."""
-        return ReplayCall(self._decompress, payload, role="decompress")
+        """The user's ``decompress(payload)``, or ``decompress(payload, n)`` with
+        ``pass_n`` (the step that meets the damage)."""
+        args = f"{payload}, {n}" if self.pass_n else payload
+        return ReplayCall(self._decompress, args, role="decompress")
 
 
 class CodebookCodec:
@@ -596,6 +626,11 @@ class CodebookCodec:
 
     def __repr__(self) -> str:
         return f"CodebookCodec(name={self.name!r}, symbols={len(self.codebook)})"
+
+    @property
+    def layout(self) -> None:
+        """``None``: the codebook gets the symbols themselves."""
+        return None
 
     def encode(self, symbols: np.ndarray) -> Encoded:
         """Encode with the codebook; exact bits."""
@@ -626,7 +661,8 @@ def as_codec(obj: object) -> Codec:
 
     Accepts:
 
-    * a ``StreamCodec``/``ByteCodec``/``CodebookCodec`` (returned as is);
+    * a ``StreamCodec``/``ByteCodec``/``CodebookCodec``/``CommandCodec`` (returned
+      as is);
     * a ``Codebook``, or a plain ``{symbol: codeword}`` mapping (made into a
       ``Codebook``);
     * an ``(encode, decode)`` pair of callables (a tuple or a list), wrapped
@@ -637,7 +673,9 @@ def as_codec(obj: object) -> Codec:
 
     :raises TypeError: anything else, or a pair whose items are not both callable.
     """
-    if isinstance(obj, (StreamCodec, ByteCodec, CodebookCodec)):
+    from pytest_ratefloor.command import CommandCodec  # built on this module
+
+    if isinstance(obj, (StreamCodec, ByteCodec, CodebookCodec, CommandCodec)):
         return obj
     if _is_codebook(obj):
         return CodebookCodec(obj)
@@ -666,7 +704,7 @@ def as_codec(obj: object) -> Codec:
             else None,
         )
     raise TypeError(
-        f"cannot use {_type_name(obj)} as a codec; expected StreamCodec, ByteCodec, Codebook, "
-        "a {symbol: codeword} mapping, an (encode, decode) pair of callables, or an object "
-        "with encode(symbols) and decode(data, n)"
+        f"cannot use {_type_name(obj)} as a codec; expected StreamCodec, ByteCodec, "
+        "CommandCodec, Codebook, a {symbol: codeword} mapping, an (encode, decode) pair of "
+        "callables, or an object with encode(symbols) and decode(data, n)"
     )

@@ -199,7 +199,10 @@ def edge_case_inputs(
                 label = "a spread of symbols of the likely range"
             candidates.append((f"edge case '{label}' ({len(everything)} symbols)", everything))
     cases.extend((name, arr) for name, arr in candidates if _valid(source, arr))
-    prefixes = [n for n in (*SHORT_LENGTHS, *WORD_BOUNDARY_LENGTHS) if keeps(n)]
+    # a source of fixed length (a corpus file) has no longer sample to take a prefix of
+    available = getattr(source, "length", None)
+    prefixes = [n for n in (*SHORT_LENGTHS, *WORD_BOUNDARY_LENGTHS) if keeps(n)
+                and (available is None or n <= max(int(available), len(sample)))]
     if prefixes:
         longest = max(prefixes)
         long = sample if len(sample) >= longest else np.asarray(source.sample(longest, seed))

@@ -30,7 +30,7 @@ from typing import TYPE_CHECKING, Any
 import pytest
 
 from pytest_ratefloor import checks
-from pytest_ratefloor.checks import DEFAULT_N, CheckOptions, CheckPlan, SaveDir, plan_for_case
+from pytest_ratefloor.checks import CheckOptions, CheckPlan, SaveDir, plan_for_case
 from pytest_ratefloor.codecs import as_codec
 from pytest_ratefloor.floors import DEFAULT_FLOOR, Floor
 from pytest_ratefloor.measurement import Measurement
@@ -118,7 +118,7 @@ class RateFloorHarness:
         """Round trip (sample and edge cases), rate within tolerance, recorded.
 
         ``options`` are the :class:`~pytest_ratefloor.checks.CheckOptions`:
-        ``n`` (default 100 000), ``seed`` (0), ``floor`` (``"sample"``),
+        ``n`` (default 100 000; a corpus file: all of it), ``seed`` (0), ``floor`` (``"sample"``),
         ``rel``/``abs`` (default ``rel=0.01``), ``edge_cases`` (``True``;
         or ``False``, a maximum length, ``"short"``, ``"long"``),
         ``corruption`` (``False``) with ``must_detect`` (``False``),
@@ -141,7 +141,7 @@ class RateFloorHarness:
         self,
         codec: Any,
         source: Source,
-        n: int = DEFAULT_N,
+        n: int | None = None,
         seed: int = 0,
         floor: Floor = DEFAULT_FLOOR,
         isolate: bool | None = None,

@@ -15,8 +15,8 @@ newline so a release's diff shows one small block per changed case::
         "<codec> | <source spec> | n=<n> | seed=<seed>": {
           "bits": 46968, "codec": "...", "codec_version": "2.1",   # version only if given
           "entropy": 0.468995593589, "fingerprint": "...", "floor": "entropy",
-          "floor_rate": 0.46899, "n": 100000, "rate": 0.46968, "seed": 0,
-          "source": "bernoulli(p=0.1)"
+          "floor_rate": 0.46899, "layout": "u8",                 # layout only if known
+          "n": 100000, "rate": 0.46968, "seed": 0, "source": "bernoulli(p=0.1)"
         }
       },
       "kind": "pytest-ratefloor rate ledger",
@@ -24,6 +24,12 @@ newline so a release's diff shows one small block per changed case::
       "recorded_with": {"numpy": "...", "platform": "...", "plugin": "...", "python": "..."},
       "schema": 1
     }
+
+``codec_version``, ``fingerprint``, ``layout`` and ``rate`` are optional. ``layout``
+(added within schema 1: a file without it stays readable, and an entry without a
+layout is written exactly as before) names how the codec turned symbols into bytes
+or bits — a byte packing such as ``"u8"`` or ``"zigzag-u16le"``, or a short command
+description — and is absent when unknown or when the codec has none.
 
 Only the integer ``bits`` is compared; the floats are for readers and reports and
 are rounded to 12 significant digits so a recording on another machine does not
@@ -87,7 +93,8 @@ _COUNT_LIMIT = 2**63
 _MAX_INT_DIGITS = 4300
 _TOP_FIELDS = ("cases", "kind", "note", "recorded_with", "schema")
 _REQUIRED_FIELDS = ("bits", "codec", "entropy", "floor", "floor_rate", "n", "seed", "source")
-_CASE_FIELDS = tuple(sorted((*_REQUIRED_FIELDS, "codec_version", "fingerprint", "rate")))
+_OPTIONAL_FIELDS = ("codec_version", "fingerprint", "layout", "rate")
+_CASE_FIELDS = tuple(sorted((*_REQUIRED_FIELDS, *_OPTIONAL_FIELDS)))
 _ENVIRONMENT_FIELDS = ("numpy", "platform", "plugin", "python")
 _FILE_KINDS = (
     (stat.S_ISDIR, "a directory"), (stat.S_ISFIFO, "a FIFO"),
@@ -130,6 +137,8 @@ def entry_json(m: Measurement) -> dict[str, Any]:
     }
     if m.codec_version is not None:
         out["codec_version"] = m.codec_version
+    if m.layout:  # absent when unknown: entries without one keep their bytes
+        out["layout"] = m.layout
     return out
 
 
@@ -169,6 +178,24 @@ def _text(obj: dict[str, Any], name: str, where: str, *, empty: bool = False) ->
 def read_entry(label: str, obj: object, path: Path) -> Measurement:
     """Validate one case of a loaded file; errors name the file, the case and the field."""
     where = f"{path}: case {_shown(label)}"
+    entry = read_case(obj, where)
+    if entry.key.label != label:
+        raise UnreadableLedgerError(
+            f"{where} does not match its fields (expected key {_shown(entry.key.label)}); "
+            "was the file edited by hand?"
+        )
+    return entry
+
+
+def read_case(obj: object, where: str) -> Measurement:
+    """Validate one case object (the fields :func:`entry_json` writes) and read it back.
+
+    Used for the ledger's cases and for ledger entries quoted elsewhere (the
+    stale entries of a JSON report). Every message starts with ``where``.
+
+    :raises UnreadableLedgerError: not an object, a missing, unknown or wrongly
+        typed field, or a figure out of range.
+    """
     if not isinstance(obj, dict):
         raise UnreadableLedgerError(f"{where} is not a JSON object")
     unknown = sorted(str(k) for k in obj if k not in _CASE_FIELDS)
@@ -196,19 +223,14 @@ def read_entry(label: str, obj: object, path: Path) -> Measurement:
     if not math.isfinite(floor_bits):
         raise UnreadableLedgerError(f"{where} has a bad 'floor_rate': {floor_rate!r} "
                                     f"(floor_rate * n overflows for n={n})")
-    entry = Measurement(
+    return Measurement(
         codec=_text(obj, "codec", where), source=_text(obj, "source", where), n=n, seed=seed,
         bits=bits, entropy=entropy, floor=floor, floor_bits=floor_bits,
         fingerprint=_text(obj, "fingerprint", where, empty=True) if "fingerprint" in obj else "",
         codec_version=(_text(obj, "codec_version", where, empty=True)
                        if "codec_version" in obj else None),
+        layout=_text(obj, "layout", where) if "layout" in obj else None,
     )
-    if entry.key.label != label:
-        raise UnreadableLedgerError(
-            f"{where} does not match its fields (expected key {_shown(entry.key.label)}); "
-            "was the file edited by hand?"
-        )
-    return entry
 
 
 @dataclass(frozen=True)
@@ -258,30 +280,47 @@ class Environment:
 # -- reading: bounded bytes, strict JSON ----------------------------------------------
 
 
-def _checked_file(path: Path, st: os.stat_result) -> None:
+def _checked_file(path: Path, st: os.stat_result, what: str = "ledger") -> None:
     """Refuse anything but a regular file of at most :data:`MAX_LEDGER_BYTES`."""
     if not stat.S_ISREG(st.st_mode):
-        what = next((name for test, name in _FILE_KINDS if test(st.st_mode)), "a special file")
-        raise UnreadableLedgerError(f"{path}: is {what}, not a ledger file")
+        kind = next((name for test, name in _FILE_KINDS if test(st.st_mode)), "a special file")
+        raise UnreadableLedgerError(f"{path}: is {kind}, not a {what} file")
     if st.st_size > MAX_LEDGER_BYTES:
-        raise _too_large(path, f"{st.st_size:,} bytes")
+        raise _too_large(path, f"{st.st_size:,} bytes", what)
 
 
-def _too_large(path: Path, size: str) -> UnreadableLedgerError:
+def _too_large(path: Path, size: str, what: str = "ledger") -> UnreadableLedgerError:
     return UnreadableLedgerError(
-        f"{path}: is {size}, over the ledger size limit of {MAX_LEDGER_BYTES:,} bytes "
-        "(MAX_LEDGER_BYTES); not a ledger?"
+        f"{path}: is {size}, over the {what} size limit of {MAX_LEDGER_BYTES:,} bytes "
+        f"(MAX_LEDGER_BYTES); not a {what}?"
     )
 
 
-def _read_bounded(path: Path) -> bytes | None:
+def read_json_strictly(path: Path, what: str) -> Any:
+    """Another file of the project's (``what`` names it: ``"report"``) read like a ledger.
+
+    The same bounds and strictness as the ledger: a regular file of at most
+    :data:`MAX_LEDGER_BYTES`, UTF-8 without a byte order mark, JSON without
+    repeated names, ``NaN``/``Infinity``, over-long integers or deep nesting.
+    What the document must hold is the caller's to check.
+
+    :raises UnreadableLedgerError: missing, or any of the above (one line naming the file).
+    """
+    path = Path(path)
+    data = _read_bounded(path, what)
+    if data is None:
+        raise UnreadableLedgerError(f"{path}: no such file")
+    return _strict_json(_decoded(data, path), path, what)
+
+
+def _read_bounded(path: Path, what: str = "ledger") -> bytes | None:
     """The file's bytes (``None`` if missing), read without blocking and at most limit+1.
 
     ``stat`` first refuses a FIFO or device; the file is then opened non-blocking
     and checked again through its descriptor, so a swap in between is caught too.
     """
     try:
-        _checked_file(path, os.stat(path))
+        _checked_file(path, os.stat(path), what)
         fd = os.open(path, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0)
                      | getattr(os, "O_NOCTTY", 0) | getattr(os, "O_BINARY", 0))
     except FileNotFoundError:
@@ -290,7 +329,7 @@ def _read_bounded(path: Path) -> bytes | None:
         raise UnreadableLedgerError(f"{path}: cannot be read ({exc.strerror or exc})") from None
     chunks: list[bytes] = []
     try:
-        _checked_file(path, os.fstat(fd))
+        _checked_file(path, os.fstat(fd), what)
         got, limit = 0, MAX_LEDGER_BYTES
         while got <= limit:
             chunk = os.read(fd, min(limit + 1 - got, 1 << 20))
@@ -303,7 +342,7 @@ def _read_bounded(path: Path) -> bytes | None:
     finally:
         os.close(fd)
     if got > limit:  # grew after the check, or a file whose size stat does not know
-        raise _too_large(path, f"more than {limit:,} bytes")
+        raise _too_large(path, f"more than {limit:,} bytes", what)
     return b"".join(chunks)
 
 
@@ -321,7 +360,7 @@ def _decoded(data: bytes, path: Path) -> str:
         ) from None
 
 
-def _strict_json(text: str, path: Path) -> Any:
+def _strict_json(text: str, path: Path, what: str = "ledger") -> Any:
     """``json.loads`` refusing repeated names, NaN/Infinity, long integers and deep nesting."""
     repeats: dict[int, tuple[dict[str, Any], str]] = {}
 
@@ -352,7 +391,7 @@ def _strict_json(text: str, path: Path) -> Any:
         doc = json.loads(text, object_pairs_hook=pairs, parse_constant=constant,
                          parse_int=integer)
     except json.JSONDecodeError as exc:
-        # a ledger always ends with its closing brace; without it, the write was cut short
+        # the project's files always end with a closing brace; without it, a write was cut short
         hint = "" if text.rstrip().endswith("}") else " (the file ends early: truncated?)"
         raise UnreadableLedgerError(
             f"{path}: not valid JSON at line {exc.lineno} column {exc.colno}: {exc.msg}{hint}"
@@ -361,7 +400,7 @@ def _strict_json(text: str, path: Path) -> Any:
         raise UnreadableLedgerError(f"{path}: JSON nested too deeply to read; corrupt?") from None
     except ValueError as exc:  # e.g. int conversion limits of the interpreter
         reason = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
-        raise UnreadableLedgerError(f"{path}: not a readable ledger ({reason})") from None
+        raise UnreadableLedgerError(f"{path}: not a readable {what} ({reason})") from None
     if repeats:
         where, name = _first_repeat(doc, repeats)
         # RFC 8259 §4: names within an object should be unique, else behaviour is unpredictable

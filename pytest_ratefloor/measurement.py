@@ -85,7 +85,8 @@ class Measurement:
 
     The fields after ``fingerprint`` describe the run that produced the
     figures; a case read back from a ledger does not have them
-    (``sample_information`` and ``spread`` are then ``None``).
+    (``sample_information`` and ``spread`` are then ``None``), except
+    ``codec_version`` and ``layout``, which the ledger keeps.
     """
 
     codec: str
@@ -107,6 +108,10 @@ class Measurement:
     alphabet_size: int | None = None
     #: bits the check allowed over ``floor_bits`` (its tolerance); ``None`` without one
     tolerance_bits: float | None = None
+    #: how the codec turned symbols into bytes or bits: a byte packing such as ``"u8"`` or
+    #: ``"zigzag-u16le"``, a short command description, or ``None`` (unknown, or a codec that
+    #: has none). Unlike the other run details it is kept in the ledger.
+    layout: str | None = None
 
     @property
     def key(self) -> CaseKey:
@@ -164,6 +169,7 @@ class Measurement:
     def recorded(self) -> Measurement:
         """The form a ledger keeps: figures rounded (see :func:`figure`), run details dropped.
 
+        The codec version and the layout are kept (an empty layout reads as none).
         Loading a ledger gives back exactly this record.
         """
         n = int(self.n)
@@ -173,6 +179,7 @@ class Measurement:
             bits=int(self.bits), entropy=figure(float(self.entropy)), floor=str(self.floor),
             floor_bits=floor_rate * n, fingerprint=str(self.fingerprint),
             codec_version=None if self.codec_version is None else str(self.codec_version),
+            layout=str(self.layout) if self.layout else None,
         )
 
     def to_record(self) -> dict[str, Any]:

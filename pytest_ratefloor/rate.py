@@ -192,9 +192,18 @@ def noise_warning(m: Measurement) -> str | None:
 def measurement_of(codec: Codec, source: Source, sample: np.ndarray, seed: int,
                    encoded: Encoded, floor: Floor, encode_seconds: float = 0.0,
                    decode_seconds: float = 0.0) -> Measurement:
-    """The case record of one encoded sample: bits, floor, information, fingerprint."""
+    """The case record of one encoded sample: bits, floor, information, fingerprint.
+
+    ``codec`` is the codec as bound to the source (``for_source``), so its
+    ``layout`` — the byte packing or command it used, when it has one — is the
+    one this encoding went through.
+    """
     information = sample_information(source, sample)
     bits = floor_bits(floor, source, sample, sample_information=information)
+    # a fixed sample (a corpus file) is data, not a draw from the model its information is
+    # computed under: a compressor that uses context goes legitimately below it, so it is
+    # no hard limit and the impossible-rate rule does not apply
+    hard_limit = None if getattr(source, "fixed_sample", False) else information
     params: dict[str, float] = {
         str(k): (int(v) if isinstance(v, (int, np.integer)) else float(v))
         for k, v in dict(source.params).items()
@@ -210,7 +219,7 @@ def measurement_of(codec: Codec, source: Source, sample: np.ndarray, seed: int,
         floor=floor,
         floor_bits=float(bits),
         fingerprint=sample_fingerprint(sample, bounds=_declared_range(source)),
-        sample_information=information,
+        sample_information=hard_limit,
         spread=math.sqrt(max(0.0, _varentropy_rate(source)) / n) if n else 0.0,
         codec_version=codec.version,
         encode_seconds=encode_seconds,
@@ -218,7 +227,25 @@ def measurement_of(codec: Codec, source: Source, sample: np.ndarray, seed: int,
         source_family=str(source.family),
         source_params=params,
         alphabet_size=None if source.alphabet_size is None else int(source.alphabet_size),
+        layout=_layout_of(codec),
     )
+
+
+def _layout_of(codec: Codec) -> str | None:
+    """The bound codec's ``layout`` when it is non-empty UTF-8 text; ``None`` otherwise.
+
+    Adapters without the attribute, and a value that is not text (a
+    user-written codec may hold anything there), give ``None``: the ledger
+    then records no layout rather than an unreadable one.
+    """
+    layout = getattr(codec, "layout", None)
+    if not isinstance(layout, str) or not layout:
+        return None
+    try:
+        layout.encode("utf-8")
+    except UnicodeEncodeError:  # a lone surrogate cannot be written to the ledger
+        return None
+    return str(layout)
 
 
 def _varentropy_rate(source: Source) -> float:

@@ -7,7 +7,12 @@ here recomputes a figure the case record or the comparison already holds.
 The same Markdown table serves the ``--ratefloor-report`` file, the GitHub job
 summary and ``ratefloor show``.
 
-Codec names, source specs, codec versions, floor names and ledger paths come
+Each case shows its ``layout`` — how the codec turned symbols into bytes or
+bits (a byte packing such as ``u8``, or a command), ``–`` when unknown: a
+column of the ``-v`` summary, a column of a Markdown codec table when any of its
+cases has one, and a field of the JSON report (``null`` when unknown).
+
+Codec names, source specs, codec versions, layouts, floor names and ledger paths come
 from users' code or from a ledger file, so they are untrusted text: every
 place that shows one passes it through :func:`terminal_text` (terminal and
 plain-text output), :func:`markdown_text` (Markdown) or :func:`plot_text`
@@ -120,6 +125,11 @@ def counts_text(counts: Mapping[str, int]) -> str:
     return ", ".join(parts)
 
 
+def _layout_cell(m: Measurement, escape: Callable[[str], str]) -> str:
+    """The layout (escaped: it comes from the codec or a ledger file), ``–`` when unknown."""
+    return escape(m.layout) if m.layout else "–"
+
+
 def _floor_cell(m: Measurement, escape: Callable[[str], str]) -> str:
     """The floor rate, with the floor's name (escaped: a ledger file may hold any text)."""
     text = _num(m.floor_rate)
@@ -214,7 +224,7 @@ def summary_lines(rows: Sequence[Comparison], outcome: RunOutcome, verbose: bool
     """The terminal summary: one line per case, then the ledger line and the caution.
 
     Compact: codec, source, entropy, floor, rate, efficiency, change against the
-    ledger. ``verbose`` adds n, seed, bits, ledger bits, excess, the smallest
+    ledger. ``verbose`` adds n, seed, the layout, bits, ledger bits, excess, the smallest
     excess the case detects (``Measurement.detectable_excess``: the tolerance
     plus 3.09 sampling spreads of a noisy floor) and timings, and
     lists every stale entry and every case left out of a recording (compact lists
@@ -231,8 +241,8 @@ def summary_lines(rows: Sequence[Comparison], outcome: RunOutcome, verbose: bool
     if rows:
         header = ["codec", "source", "H b/sym", "floor b/sym", "rate b/sym", "eff."]
         if verbose:
-            header += ["n", "seed", "bits", "ledger bits", "excess b/sym", "detects b/sym",
-                       "enc s", "dec s"]
+            header += ["n", "seed", "layout", "bits", "ledger bits", "excess b/sym",
+                       "detects b/sym", "enc s", "dec s"]
         header.append("vs. ledger")
         table = [header]
         for r in rows:
@@ -241,13 +251,13 @@ def summary_lines(rows: Sequence[Comparison], outcome: RunOutcome, verbose: bool
             cells = [terminal_text(name), terminal_text(m.source), _num(m.entropy),
                      _floor_cell(m, terminal_text), _num(m.rate), _pct(m.efficiency)]
             if verbose:
-                cells += [str(m.n), str(m.seed), f"{m.bits:,}",
+                cells += [str(m.n), str(m.seed), _layout_cell(m, terminal_text), f"{m.bits:,}",
                           "–" if r.ledger_bits is None else f"{r.ledger_bits:,}",
                           _num(m.excess), _num(m.detectable_excess), _num(m.encode_seconds, 3),
                           _num(m.decode_seconds, 3)]
             cells.append(delta_text(r))
             table.append(cells)
-        right = {2, 3, 4, 5} | ({6, 7, 8, 9, 10, 11, 12, 13} if verbose else set())
+        right = {2, 3, 4, 5} | ({6, 7, 9, 10, 11, 12, 13, 14} if verbose else set())
         texts = align(table, right)
         lines.append(Line(texts[0]))
         lines += [Line(t, "" if r.status is None else VERDICTS[r.status].colour)
@@ -265,7 +275,8 @@ def summary_lines(rows: Sequence[Comparison], outcome: RunOutcome, verbose: bool
         count = len(outcome.stale)
         lines.append(Line(
             f"stale: {count} ledger entr{'y' if count == 1 else 'ies'} not measured by this "
-            "full run (kept in the ledger; delete by hand if the case is gone):", "yellow"))
+            "full run (kept in the ledger; if the case is gone, 'ratefloor prune LEDGER "
+            "--report REPORT.json' with this run's JSON report removes it):", "yellow"))
         lines += _capped([terminal_text(e.key.label) for e in outcome.stale],
                          None if verbose else 5, " (-v lists all)")
     elif outcome.partial_reasons:
@@ -286,7 +297,12 @@ def md_cell(text: str) -> str:
 
 
 def markdown_tables(rows: Sequence[Comparison], with_ledger: bool = True) -> str:
-    """One table per codec (sorted), cases sorted by source, n, seed."""
+    """One table per codec (sorted), cases sorted by source, n, seed.
+
+    A codec's table has a ``layout`` column (after ``seed``) when any of its
+    cases knows its layout; the other tables look as they did before layouts
+    were recorded.
+    """
     by_codec: dict[tuple[str, str | None], list[Comparison]] = {}
     for r in rows:
         by_codec.setdefault((r.case.codec, r.case.codec_version), []).append(r)
@@ -302,10 +318,14 @@ def markdown_tables(rows: Sequence[Comparison], with_ledger: bool = True) -> str
         title = f"### Codec {md_name(codec)}"
         if version:
             title += f" (version {md_cell(version)})"
-        out += [title, "", "| " + " | ".join(header) + " |", "| " + " | ".join(align) + " |"]
+        laid_out = any(r.case.layout for r in group)
+        names = [*header[:3], "layout", *header[3:]] if laid_out else header
+        marks = [*align[:3], "---", *align[3:]] if laid_out else align
+        out += [title, "", "| " + " | ".join(names) + " |", "| " + " | ".join(marks) + " |"]
         for r in sorted(group, key=lambda r: r.key):
             m = r.case
-            cells = [md_name(m.source), str(m.n), str(m.seed), _num(m.entropy),
+            layout = [_layout_cell(m, md_name)] if laid_out else []
+            cells = [md_name(m.source), str(m.n), str(m.seed), *layout, _num(m.entropy),
                      _floor_cell(m, markdown_text), _num(m.rate), _pct(m.efficiency)]
             if with_ledger:
                 cells.append(delta_text(r))  # figures and verdict names only
@@ -372,7 +392,7 @@ def row_json(r: Comparison) -> dict[str, Any]:
         "source_family": m.source_family, "source_params": dict(m.source_params),
         "n": m.n, "seed": m.seed, "bits": m.bits, "rate": finite(m.rate),
         "entropy": finite(m.entropy), "floor": m.floor, "floor_rate": finite(m.floor_rate),
-        "efficiency": finite(m.efficiency), "fingerprint": m.fingerprint,
+        "efficiency": finite(m.efficiency), "fingerprint": m.fingerprint, "layout": m.layout,
         "tolerance_bits": finite(m.tolerance_bits),
         "floor_spread_bits": finite(m.floor_spread_bits),
         "detectable_excess": finite(m.detectable_excess),
@@ -388,7 +408,11 @@ def json_report(rows: Sequence[Comparison], outcome: RunOutcome,
                 environment: Environment | None = None) -> dict[str, Any]:
     """The versioned JSON report (builtin types only, no non-finite float: see :func:`json_safe`).
 
-    Strings are kept raw: ``json.dumps`` escapes whatever they hold.
+    Strings are kept raw: ``json.dumps`` escapes whatever they hold. With a
+    ledger, ``ledger.full_run`` and ``ledger.partial_reasons`` say whether the
+    run could tell which entries are stale, and ``ledger.stale`` quotes each
+    stale entry in its ledger form (:func:`~pytest_ratefloor.ledger.entry_json`);
+    ``ratefloor prune`` reads exactly these and refuses a partial run's report.
     """
     env = environment or Environment.current()
     doc: dict[str, Any] = {

@@ -219,6 +219,8 @@ class GateSession:
             reasons.append("stopped early")
         if self.lost_workers:
             reasons.append("xdist worker lost")
+        if session.testsfailed:  # a test that failed before measuring would look stale
+            reasons.append(f"{session.testsfailed} test(s) failed")
         return reasons
 
     def _write_outputs(self) -> tuple[list[Comparison], report.RunOutcome]:

@@ -176,6 +176,57 @@ def test_byte_codec_for_source_resolves_auto_once() -> None:
     assert bound.decode(encoded, 10).tolist() == symbols.tolist()
 
 
+def raw_deflate(data: bytes) -> bytes:
+    packer = zlib.compressobj(9, zlib.DEFLATED, -15)  # raw deflate: no header, no checksum
+    return packer.compress(data) + packer.flush()
+
+
+def raw_inflate(data: bytes, n: int) -> bytes:
+    return zlib.decompress(data, -15, bufsize=n)
+
+
+def test_byte_codec_pass_n_tells_the_decompressor_the_symbol_count() -> None:
+    from pytest_ratefloor.checks import check
+
+    seen: list[int] = []
+
+    def inflate(data: bytes, n: int) -> bytes:
+        seen.append(n)
+        return raw_inflate(data, n)
+
+    codec = ByteCodec(raw_deflate, inflate, name="raw-deflate", pass_n=True)
+    source = sources.geometric(0.3)
+    m = check(codec, source, n=20_000, rel=0.5, isolate=False)
+    sample = np.asarray(source.sample(20_000, 0), dtype=np.uint8)
+    assert m.bits == 8 * len(raw_deflate(sample.tobytes()))  # the same bytes, deflated here
+    assert {0, 20_000} <= set(seen)  # the sample's n, and the empty edge case's
+    bound = codec.for_source(source)
+    assert bound.layout == "u8"
+    assert bound.pass_n
+    assert bound.decode(bound.encode(np.arange(5)), 5).tolist() == [0, 1, 2, 3, 4]
+    call = bound.replay_call("P", 7)
+    assert (call.target, call.call("inflate")) == (inflate, "inflate(P, 7)")
+    assert "pass_n=True" in repr(bound)
+    with pytest.raises(TypeError, match=r"^ByteCodec pass_n must be True or False, got 1$"):
+        ByteCodec(raw_deflate, inflate, pass_n=1)  # type: ignore[arg-type]
+
+
+def test_layout_says_how_the_symbols_reach_the_codec() -> None:
+    from pytest_ratefloor.codes import Codebook
+
+    codec = ByteCodec(zlib.compress, zlib.decompress, name="z")
+    assert codec.layout == "auto"
+    assert codec.for_source(sources.uniform(256)).layout == "u8"
+    assert codec.for_source(sources.bernoulli(0.5)).layout == "bits"
+    assert codec.for_source(sources.uniform(1000)).layout == "u16le"
+    assert codec.for_source(sources.two_sided_geometric(0.99)).layout == "zigzag-u16le"
+    assert ByteCodec(zlib.compress, zlib.decompress, symbol="u32le").layout == "u32le"
+    assert StreamCodec(u8_encode, u8_decode).layout is None
+    assert as_codec(Codebook({0: "0", 1: "1"})).layout is None
+    with pytest.raises(AttributeError):
+        codec.layout = "u8"  # type: ignore[misc]
+
+
 def test_as_codec_shapes() -> None:
     stream = StreamCodec(zlib.compress, zlib.decompress, name="s")
     assert as_codec(stream) is stream

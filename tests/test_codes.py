@@ -109,9 +109,10 @@ def test_bad_table_values_are_value_errors_naming_symbol_and_codeword(
 @pytest.mark.parametrize(
     ("mapping", "needle"),
     [
-        ({"a": "0"}, "symbol must be an integer, got 'a'"),
-        ({1.0: "0"}, "symbol must be an integer, got 1.0"),
-        ({True: "0"}, "symbol must be an integer, got True"),  # a bool is not a number
+        # any hashable key is a symbol (tests/test_codes_symbols.py), a bool never is
+        ({True: "0"}, "symbol must not be a bool (Python takes True for 1"),
+        ({"a": True}, "codeword of symbol 'a' must be a '0'/'1' string"),
+        ({("t", 1): [0.5, 1]}, "value of codeword [0.5, 1] of symbol ('t', 1) must be an"),
         (
             {7: 3.5},
             "codeword of symbol 7 must be a '0'/'1' string, a bitarray or a (value, length) "
@@ -159,6 +160,19 @@ class RepeatedKeys(Mapping):
 
     def items(self):  # type: ignore[override]
         return [(np.int64(3), "0"), (3, "1")]
+
+
+class ListKeyed(Mapping):
+    """A mapping whose one key is a list (unhashable: no dict can hold it)."""
+
+    def __getitem__(self, key: object) -> int:
+        return 1
+
+    def __iter__(self) -> Iterator[object]:
+        return iter([["x"]])
+
+    def __len__(self) -> int:
+        return 1
 
 
 def test_a_symbol_listed_twice_is_a_value_error() -> None:
@@ -502,8 +516,10 @@ def test_canonical_codebook_refuses_overfull_lengths() -> None:
 def test_canonical_codebook_refuses_wrong_types() -> None:
     with pytest.raises(TypeError, match=r"length of symbol 0 must be an integer, got 1\.5"):
         codes.canonical_codebook({0: 1.5, 1: 1})  # type: ignore[dict-item]
-    with pytest.raises(TypeError, match="symbol must be an integer, got 'a'"):
-        codes.canonical_codebook({"a": 1, 1: 1})  # type: ignore[dict-item]
+    with pytest.raises(TypeError, match=r"length of symbol 'a' must be an integer, got 1\.5"):
+        codes.canonical_codebook({"a": 1.5, 1: 1})
+    with pytest.raises(TypeError, match="symbol must be hashable, got"):
+        codes.canonical_codebook(ListKeyed())
     with pytest.raises(TypeError, match=r"lengths must be a 1-D array of integers, got dtype"):
         codes.canonical_codebook((np.array([0, 1]), np.array([1.0, 1.0])))
     with pytest.raises(TypeError, match=r"lengths must be a \{symbol: length\} mapping or a"):

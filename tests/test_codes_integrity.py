@@ -23,27 +23,42 @@ from pytest_ratefloor.codes import (
 
 PREFIX_FREE = {0: "0", 1: "10", 2: "11"}
 
+#: The one refusal of a bool symbol, in integer tables and in tables of other symbols.
+BOOL_REFUSED = (
+    "symbol must not be a bool (Python takes True for 1 and False for 0, so it would be "
+    "ambiguous with those integers; use 1/0 or a string), got "
+)
+
 
 # ---------------------------------------------------------------- bools
 
 
 @pytest.mark.parametrize("key", [True, False, np.True_], ids=["True", "False", "numpy"])
-def test_a_bool_symbol_is_refused_by_name(key: object) -> None:
-    # {True: "0", 2: "1"} must not become symbol 1 (True == 1 in Python)
-    with pytest.raises(TypeError, match=f"^codebook 'codebook': symbol must be an integer, "
-                                        f"got {bool(key)}$"):
-        Codebook({key: "0", 2: "1"})
+@pytest.mark.parametrize("other", [2, "a"], ids=["beside-int", "beside-str"])
+def test_a_bool_symbol_is_refused_by_name(key: object, other: object) -> None:
+    # {True: "0", 2: "1"} must not become symbol 1 (True == 1 in Python), and beside
+    # 'a' a bool would be ambiguous with 1 all the same: refused in every table
+    expected = f"^codebook 'codebook': {re.escape(BOOL_REFUSED)}{bool(key)}$"
+    for table in ({key: "0", other: "1"}, {other: "1", key: "0"}):
+        with pytest.raises(TypeError, match=expected):
+            Codebook(table)
 
 
 def test_a_bool_is_no_symbol_for_lookups_or_canonical_tables() -> None:
     book = Codebook(PREFIX_FREE)
     assert 1 in book
     assert True not in book
-    with pytest.raises(TypeError, match=r"^codebook 'codebook': symbol must be an integer, got "
-                                        r"True$"):
+    with pytest.raises(TypeError, match=f"^codebook 'codebook': {re.escape(BOOL_REFUSED)}True$"):
         book.word(True)
-    with pytest.raises(TypeError, match=r"^symbol must be an integer, got True$"):
-        canonical_codebook({True: 1, 2: 1})
+    text = Codebook({"a": "0", 1: "10", "c": "11"})
+    assert 1 in text
+    assert True not in text
+    assert np.True_ not in text
+    with pytest.raises(TypeError, match=f"^codebook 'codebook': {re.escape(BOOL_REFUSED)}True$"):
+        text.word(True)
+    for lengths in ({True: 1, 2: 1}, {"a": 1, True: 1}):
+        with pytest.raises(TypeError, match=f"^{re.escape(BOOL_REFUSED)}True$"):
+            canonical_codebook(lengths)
     with pytest.raises(TypeError, match=r"^length of symbol 0 must be an integer, got True$"):
         canonical_codebook({0: True, 1: 1})
     with pytest.raises(TypeError, match=r"^symbols must be a 1-D array of integers, got dtype "

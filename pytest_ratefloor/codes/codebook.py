@@ -10,17 +10,33 @@ Codewords are bit strings written most-significant bit first: ``"0110"``, a
 ``bitarray`` (its logical bit order, whatever its endianness) or ``(value, length)``
 meaning the low ``length`` bits of ``value``, MSB first. A bad table raises
 ``TypeError`` (a symbol or codeword of the wrong type) or ``ValueError`` (a right
-type with a bad value), naming the symbol and the codeword. A symbol is an integer,
-never a ``bool`` (``{True: "0"}`` is refused, not read as symbol 1), and a codeword
-is at most :data:`MAX_CODEWORD_BITS` bits long.
+type with a bad value), naming the symbol and the codeword. A codeword is at most
+:data:`MAX_CODEWORD_BITS` bits long.
+
+Symbols are the team's own keys: integers, characters, strings, bytes, tuples, any
+hashable value, so a text or tokeniser table is analysed as it is keyed. Two rules:
+
+* a ``bool`` is never a symbol, in any table (``{True: "0"}`` is refused by name):
+  Python takes ``True`` for ``1`` (equal, same hash), so ``True`` beside ``'a'``
+  would be ambiguous with symbol ``1`` and ``{True: ..., 1: ...}`` one entry;
+* an integer symbol is a sample value, within the signed 64-bit range, and only a
+  table keyed by integers alone encodes or decodes samples (``encode``/``decode``,
+  a codec in a check); the analysis (prefix-freeness, Kraft, unique decodability,
+  canonical order, length caps) takes any table. Integer tables keep their fast
+  array path; other tables keep their keys in a list.
+
+Symbol order (``Codebook.symbols``, ties between witnesses, the canonical
+assignment): ascending when the symbols compare with one another (all numbers, all
+strings, all bytes, tuples of those), otherwise the order the table lists them in
+(e.g. a table mixing ``int`` and ``str`` keys). Messages show symbols with ``repr``:
+``'a'``, ``b'a'``, ``('a', 1)``, ``7``.
 """
 
 from __future__ import annotations
 
 import itertools
-import operator
-from collections.abc import Mapping
-from typing import Any, NoReturn, Union
+from collections.abc import Hashable, Iterable, Mapping
+from typing import Any, Generic, NoReturn, TypeVar, Union
 
 import numpy as np
 import numpy.typing as npt
@@ -45,42 +61,106 @@ MAX_CODEWORD_BITS = 1 << 16
 _INT64_MIN = -(2**63)
 _INT64_MAX = 2**63 - 1
 
-CodeLike = Union["Codebook", Mapping[Any, Any]]
+K = TypeVar("K", bound=Hashable)
+
+CodeLike = Union["Codebook[Any]", Mapping[Any, Any]]
 IntArray = npt.NDArray[np.int64]
+
+
+class _NotAnInteger(TypeError):
+    """A table key that is no integer: the table is keyed by other symbols."""
+
+
+def _is_bool(value: object) -> bool:
+    return isinstance(value, (bool, np.bool_))
+
+
+def _bool_refused(key: object, where: str | None) -> TypeError:
+    """The one refusal of a bool symbol, in every table and lookup."""
+    head = f"{where}: " if where else ""
+    return TypeError(
+        f"{head}symbol must not be a bool (Python takes True for 1 and False for 0, so it "
+        f"would be ambiguous with those integers; use 1/0 or a string), got {show(key)}"
+    )
 
 
 def _symbol_of(key: object, where: str | None = None) -> int:
     """A table key as a Python int: an integer (numpy integers accepted) in the signed
-    64-bit range. ``TypeError`` for a bool, float, string or other non-integer."""
+    64-bit range. ``TypeError`` for a bool; :class:`_NotAnInteger` (a ``TypeError``)
+    for any other non-integer, which a caller may take as a table of other symbols."""
     if type(key) is int or isinstance(key, np.integer):  # the common cases, fast
         sym = int(key)
         if _INT64_MIN <= sym <= _INT64_MAX:
             return sym
-    sym = integer(key, "symbol", where=where)  # the type, and the message for either error
+    elif _is_bool(key):
+        raise _bool_refused(key, where)
+    try:
+        sym = integer(key, "symbol", where=where)  # other integral types
+    except TypeError as exc:
+        raise _NotAnInteger(str(exc)) from None
     if not _INT64_MIN <= sym <= _INT64_MAX:
         head = f"{where}: " if where else ""
         raise ValueError(f"{head}symbol must be an integer in the signed 64-bit range, got {sym}")
     return sym
 
 
+def _key_of(key: object, where: str | None = None) -> Hashable:
+    """A table key of any kind: an integer as by :func:`_symbol_of` (bools refused),
+    a numpy scalar as the Python value it holds, anything else as it is (hashable)."""
+    try:
+        return _symbol_of(key, where)
+    except _NotAnInteger:
+        pass
+    if isinstance(key, np.generic):  # np.str_('a') is 'a', np.float64(0.5) is 0.5
+        key = key.item()
+    try:
+        hash(key)
+    except TypeError:
+        raise TypeError(message("symbol", "hashable", key, where)) from None
+    return key
+
+
+def _symbol_order(keys: list[Any]) -> list[int]:
+    """Positions of ``keys`` in symbol order: ascending when they compare with one
+    another, else the order given (keys of kinds Python cannot order, e.g. int and str)."""
+    try:
+        return sorted(range(len(keys)), key=keys.__getitem__)
+    except TypeError:
+        return list(range(len(keys)))
+
+
+def _index_of(keys: list[Any], where: str | None) -> dict[Any, int]:
+    """key → position; ``ValueError`` naming a symbol listed twice."""
+    index: dict[Any, int] = {}
+    for i, k in enumerate(keys):
+        if index.setdefault(k, i) != i:
+            head = f"{where}: " if where else ""
+            raise ValueError(f"{head}symbols must be distinct, got {show(k)} twice")
+    return index
+
+
+def _key_kind(key: object) -> str:
+    return type(key).__name__
+
+
 _CODEWORD_RULE = "a '0'/'1' string, a bitarray or a (value, length) pair"
 _LENGTH_RULE = f"an integer in [1, {MAX_CODEWORD_BITS}] (MAX_CODEWORD_BITS)"
 
 
-def _check_length(sym: int, length: int, where: str) -> None:
+def _check_length(sym: object, length: int, where: str) -> None:
     """Refuse a codeword longer than :data:`MAX_CODEWORD_BITS`, naming the symbol."""
     if length > MAX_CODEWORD_BITS:
-        raise ValueError(message(f"length of the codeword of symbol {sym}", _LENGTH_RULE,
+        raise ValueError(message(f"length of the codeword of symbol {show(sym)}", _LENGTH_RULE,
                                  length, where))
 
 
-def _parse_codeword(sym: int, word: object, where: str) -> tuple[int, int]:
+def _parse_codeword(sym: object, word: object, where: str) -> tuple[int, int]:
     """(value, length) of one table entry, MSB first; errors name the symbol and the
     codeword (``where`` says which table)."""
     if isinstance(word, str):
         if word == "" or word.replace("0", "").replace("1", ""):
             raise ValueError(
-                f"{where}: codeword of symbol {sym} must be a non-empty string of the "
+                f"{where}: codeword of symbol {show(sym)} must be a non-empty string of the "
                 f"characters '0' and '1', got {show(word)}"
             )
         _check_length(sym, len(word), where)
@@ -88,7 +168,8 @@ def _parse_codeword(sym: int, word: object, where: str) -> tuple[int, int]:
     if isinstance(word, bitarray):
         if len(word) == 0:
             raise ValueError(
-                f"{where}: codeword of symbol {sym} must be a non-empty bitarray, got {show(word)}"
+                f"{where}: codeword of symbol {show(sym)} must be a non-empty bitarray, "
+                f"got {show(word)}"
             )
         _check_length(sym, len(word), where)
         return int(word.to01(), 2), len(word)
@@ -100,13 +181,15 @@ def _parse_codeword(sym: int, word: object, where: str) -> tuple[int, int]:
         ):
             return value, length
         return _parse_pair(sym, word, where)
-    raise TypeError(f"{where}: codeword of symbol {sym} must be {_CODEWORD_RULE}, got {show(word)}")
+    raise TypeError(
+        f"{where}: codeword of symbol {show(sym)} must be {_CODEWORD_RULE}, got {show(word)}"
+    )
 
 
-def _parse_pair(sym: int, word: tuple[Any, Any] | list[Any], where: str) -> tuple[int, int]:
+def _parse_pair(sym: object, word: tuple[Any, Any] | list[Any], where: str) -> tuple[int, int]:
     """A ``(value, length)`` codeword checked in full: both integers, length in
     ``[1, MAX_CODEWORD_BITS]``, and the value within ``length`` bits."""
-    what = f"codeword {show(word)} of symbol {sym}"
+    what = f"codeword {show(word)} of symbol {show(sym)}"
     value = integer(word[0], f"value of {what}", where=where)
     length = integer(word[1], f"length of {what}", minimum=1, where=where)
     if length > MAX_CODEWORD_BITS:
@@ -123,35 +206,60 @@ def _word_text(value: int, length: int) -> str:
     return format(value, f"0{length}b")
 
 
-class Codebook:
-    """A symbol code: every integer symbol mapped to a codeword.
+def _keyed_table(
+    items: Iterable[tuple[Any, Any]], where: str
+) -> tuple[list[Any], IntArray, list[int], dict[Any, int]]:
+    """A table of any symbols: (keys in symbol order, lengths, values, key → position)."""
+    keys: list[Any] = []
+    values: list[int] = []
+    lengths: list[int] = []
+    for key, word in items:
+        sym = _key_of(key, where)
+        value, length = _parse_codeword(sym, word, where)
+        keys.append(sym)
+        values.append(value)
+        lengths.append(length)
+    order = _symbol_order(keys)
+    keys = [keys[i] for i in order]
+    index = _index_of(keys, where)
+    return keys, np.array(lengths, dtype=np.int64)[order], [values[i] for i in order], index
+
+
+class Codebook(Generic[K]):
+    """A symbol code: every symbol mapped to a codeword.
 
     ``mapping`` is ``{symbol: codeword}`` where a codeword is ``"0110"``, a
     ``bitarray`` or ``(value, length)`` (the low ``length`` bits of ``value``, most
-    significant first). Symbols are integers (numpy integers are stored as ``int``)
-    within the signed 64-bit range. A bad entry raises ``TypeError`` (a symbol or
-    codeword of the wrong type) or ``ValueError`` (an empty codeword, a character other
-    than '0'/'1', a value that does not fit its length), naming the symbol and codeword.
+    significant first). A symbol is any hashable value but a ``bool``: an integer
+    (numpy integers are stored as ``int``) within the signed 64-bit range, a
+    character, a string, bytes, a tuple... (numpy scalars are stored as the Python
+    value they hold). A bad entry raises ``TypeError`` (a bool symbol, a codeword of
+    the wrong type) or ``ValueError`` (an empty codeword, a character other than
+    '0'/'1', a value that does not fit its length), naming the symbol and codeword.
     Two symbols sharing one codeword are accepted here: that is a defect of the code,
     reported by :func:`assert_prefix_free`, not a malformed table.
 
     As a codec, ``encode(symbols)`` returns a ``bitarray`` and ``decode(bits, n)``
-    returns exactly ``n`` symbols (int64). Decoding needs a prefix-free code.
+    returns exactly ``n`` symbols (int64). Decoding needs a prefix-free code, and both
+    need a table keyed by integers (samples are integer arrays): another table raises
+    ``TypeError`` saying so. Every analysis takes any table.
 
     Attributes: ``name``, ``codewords`` (symbol → frozenbitarray, big-endian),
-    ``symbols`` (ascending), ``lengths`` (symbol → length), ``max_length``,
-    ``version`` (``None``: a table has no release of its own). Treat them as
-    read-only; the table is built once.
+    ``symbols`` (in symbol order: ascending when the symbols compare with one
+    another, else as the table lists them), ``lengths`` (symbol → length),
+    ``max_length``, ``version`` (``None``: a table has no release of its own). Treat
+    them as read-only; the table is built once.
     """
 
     version: str | None = None
 
-    def __init__(self, mapping: CodeLike, name: str = "codebook") -> None:
+    def __init__(self, mapping: Mapping[K, Any] | Codebook[K], name: str = "codebook") -> None:
         if not isinstance(name, str):
             raise TypeError(f"codebook name must be a string, got {show(name)}")
         self.name = name
         if isinstance(mapping, Codebook):
-            self._set_table(mapping._symbols, mapping._lengths, mapping._pyvalues)
+            self._set_table(mapping._ints, mapping._keys, mapping._lengths, mapping._pyvalues,
+                            mapping._index)
             return
         where = f"codebook {name!r}"
         if not isinstance(mapping, Mapping):
@@ -164,12 +272,17 @@ class Codebook:
         syms: list[int] = []
         values: list[int] = []
         lengths: list[int] = []
-        for key, word in mapping.items():
-            sym = _symbol_of(key, where)
-            value, length = _parse_codeword(sym, word, where)
-            syms.append(sym)
-            values.append(value)
-            lengths.append(length)
+        try:  # integer symbols: the array path (a table may hold 2^20 of them)
+            for key, word in mapping.items():
+                sym = _symbol_of(key, where)
+                value, length = _parse_codeword(sym, word, where)
+                syms.append(sym)
+                values.append(value)
+                lengths.append(length)
+        except _NotAnInteger:  # a key of another kind: the table of any symbols
+            keys, lens, vals, index = _keyed_table(mapping.items(), where)
+            self._set_table(None, keys, lens, vals, index)
+            return
         sym_arr = np.array(syms, dtype=np.int64)
         order = np.argsort(sym_arr, kind="stable")
         sym_arr = sym_arr[order]
@@ -179,6 +292,7 @@ class Codebook:
         idx = order.tolist()
         self._set_table(
             sym_arr,
+            None,
             np.array(lengths, dtype=np.int64)[order],
             [values[i] for i in idx],
         )
@@ -191,33 +305,110 @@ class Codebook:
         lengths: IntArray,
         name: str,
         values64: npt.NDArray[np.uint64] | None = None,
-    ) -> Codebook:
-        """Fast path for tables built here (symbols ascending, entries already valid)."""
-        self = cls.__new__(cls)
+    ) -> Codebook[int]:
+        """Fast path for integer tables built here (symbols ascending, entries valid)."""
+        self: Codebook[int] = Codebook.__new__(Codebook)
         self.name = name
-        self._set_table(symbols, lengths, values)
+        self._set_table(symbols, None, lengths, values)
         self._values64 = values64
         return self
 
-    def _set_table(self, symbols: IntArray, lengths: IntArray, values: list[int]) -> None:
-        self._symbols = symbols
+    @classmethod
+    def _from_keys(
+        cls, keys: list[Any], values: list[int], lengths: IntArray, name: str
+    ) -> Codebook[Any]:
+        """Fast path for tables of other symbols built here (``keys`` normalised and in
+        symbol order, entries valid)."""
+        self: Codebook[Any] = Codebook.__new__(Codebook)
+        self.name = name
+        self._set_table(None, keys, lengths, values, _index_of(keys, f"codebook {name!r}"))
+        return self
+
+    def _set_table(
+        self,
+        ints: IntArray | None,
+        keys: list[Any] | None,
+        lengths: IntArray,
+        values: list[int],
+        index: dict[Any, int] | None = None,
+    ) -> None:
+        # Exactly one of ``ints`` (integer symbols, ascending) and ``keys`` (any symbols,
+        # in symbol order, with ``index``: key → position) is set. Entries are stored in
+        # symbol order, so a position stands for a symbol in every analysis.
+        self._ints = ints
+        self._keys = keys
+        self._index = index
         self._lengths = lengths
         self._pyvalues = values
         self._max_length = int(lengths.max())
-        self._codewords: dict[int, bitarray] | None = None
-        self._encode_table: dict[int, bitarray] | None = None
+        self._codewords: dict[Any, bitarray] | None = None
+        self._encode_table: dict[Any, bitarray] | None = None
         self._tree: decodetree | None = None
         self._values64: npt.NDArray[np.uint64] | None = None
 
+    # ---- symbols
+    def _integers(self, doing: str) -> IntArray:
+        """The integer symbols, ascending; ``TypeError`` saying what needs them for a
+        table keyed by other symbols."""
+        if self._ints is not None:
+            return self._ints
+        keys = self._keys or []
+        key = next((k for k in keys if type(k) is not int), keys[0] if keys else None)
+        raise TypeError(
+            f"codebook {self.name!r}: {doing} needs integer symbols; this table is keyed "
+            f"by {_key_kind(key)} such as {show(key)}"
+        )
+
+    @property
+    def _symbols(self) -> IntArray:
+        """The integer symbols as an array (ascending), for analyses against a pmf of
+        integer symbols; ``TypeError`` for a table keyed by other symbols."""
+        return self._integers("measuring against a pmf of integer symbols")
+
+    def _key(self, position: int) -> Any:
+        """The symbol stored at ``position`` (symbol order), as the user keyed it."""
+        if self._keys is not None:
+            return self._keys[position]
+        assert self._ints is not None
+        return int(self._ints[position])
+
+    def _symbol_list(self) -> list[Any]:
+        if self._keys is not None:
+            return list(self._keys)
+        assert self._ints is not None
+        return list(self._ints.tolist())
+
+    def _position(self, symbol: object) -> int:
+        """Where ``symbol`` is stored: ``TypeError`` for a bool (never a symbol) or an
+        unhashable value, ``KeyError`` when the table has no such symbol."""
+        if _is_bool(symbol):
+            raise _bool_refused(symbol, f"codebook {self.name!r}")
+        if self._index is not None:
+            key = symbol.item() if isinstance(symbol, np.generic) else symbol
+            found = self._index.get(key)
+            if found is None:
+                raise KeyError(symbol)
+            return found
+        assert self._ints is not None
+        try:
+            sym = _symbol_of(symbol)
+        except (TypeError, ValueError):  # no integer, or none a table can hold
+            hash(symbol)  # an unhashable value is a TypeError, as a dict lookup says
+            raise KeyError(symbol) from None
+        i = int(np.searchsorted(self._ints, sym))
+        if i >= self._ints.size or int(self._ints[i]) != sym:
+            raise KeyError(symbol)
+        return i
+
     # ---- attributes (built lazily: a 2^20-entry table stays cheap to analyse)
     @property
-    def codewords(self) -> dict[int, bitarray]:
+    def codewords(self) -> dict[K, bitarray]:
         """symbol → codeword as a big-endian ``frozenbitarray``."""
         if self._codewords is None:
             self._codewords = {s: frozenbitarray(w) for s, w in self._codec_table().items()}
         return self._codewords
 
-    def _codec_table(self) -> dict[int, bitarray]:
+    def _codec_table(self) -> dict[Any, bitarray]:
         """symbol → codeword as private (plain, never handed out) bitarrays for
         bitarray's encode and decodetree: slices of one concatenation, so a 2^20-entry
         table costs about a second rather than the several of frozen copies."""
@@ -226,50 +417,47 @@ class Codebook:
             ends = np.cumsum(self._lengths).tolist()
             starts = [0, *ends[:-1]]
             self._encode_table = {
-                s: whole[a:b] for s, a, b in zip(self._symbols.tolist(), starts, ends)
+                s: whole[a:b] for s, a, b in zip(self._symbol_list(), starts, ends)
             }
         return self._encode_table
 
     @property
-    def symbols(self) -> list[int]:
-        """The symbols, ascending."""
-        return list(self._symbols.tolist())
+    def symbols(self) -> list[K]:
+        """The symbols in symbol order: ascending when they compare with one another
+        (integers always), else as the table lists them."""
+        return self._symbol_list()
+
+    def sample_symbols(self) -> list[int]:
+        """The symbols as sample values (ascending ints): what a codec built on this
+        table encodes. ``TypeError`` for a table keyed by other symbols (``"encoding
+        samples needs integer symbols; this table is keyed by str such as 'a'"``)."""
+        return list(self._integers("encoding samples").tolist())
 
     @property
-    def lengths(self) -> dict[int, int]:
+    def lengths(self) -> dict[K, int]:
         """symbol → codeword length in bits."""
-        return dict(zip(self._symbols.tolist(), self._lengths.tolist()))
+        return dict(zip(self._symbol_list(), self._lengths.tolist()))
 
     @property
     def max_length(self) -> int:
         """The longest codeword, in bits."""
         return self._max_length
 
-    def word(self, symbol: int) -> str:
-        """The codeword of ``symbol`` as '0'/'1' text (KeyError if it has none;
-        TypeError for a non-integer such as a ``bool``)."""
-        integer(symbol, "symbol", where=f"codebook {self.name!r}")
-        if symbol not in self:
-            raise KeyError(symbol)
-        i = int(np.searchsorted(self._symbols, symbol))
-        if i >= self._symbols.size or int(self._symbols[i]) != symbol:
-            raise KeyError(symbol)
+    def word(self, symbol: K) -> str:
+        """The codeword of ``symbol`` as '0'/'1' text (``KeyError`` if it has none;
+        ``TypeError`` for a ``bool``, never a symbol, or an unhashable value)."""
+        i = self._position(symbol)
         return _word_text(self._pyvalues[i], int(self._lengths[i]))
 
     def __len__(self) -> int:
-        return int(self._symbols.size)
+        return len(self._pyvalues)
 
     def __contains__(self, symbol: object) -> bool:
-        if isinstance(symbol, (bool, np.bool_)):  # a bool is not a symbol
-            return False
         try:
-            sym = operator.index(symbol)  # type: ignore[arg-type]
-        except TypeError:
+            self._position(symbol)
+        except (KeyError, TypeError):  # a bool is not a symbol; nor is an unhashable value
             return False
-        if not _INT64_MIN <= sym <= _INT64_MAX:
-            return False
-        i = int(np.searchsorted(self._symbols, sym))
-        return i < self._symbols.size and int(self._symbols[i]) == sym
+        return True
 
     def __repr__(self) -> str:
         return (
@@ -291,7 +479,10 @@ class Codebook:
 
     # ---- the codec
     def encode(self, symbols: npt.ArrayLike) -> bitarray:
-        """Concatenate the codewords of ``symbols`` (1-D integers) into a bitarray."""
+        """Concatenate the codewords of ``symbols`` (1-D integers) into a bitarray.
+
+        ``TypeError`` for a table keyed by other symbols than integers."""
+        ints = self._integers("encoding samples")
         arr = _symbol_array(symbols, "symbols")
         out = bitarray(endian="big")
         if arr.size == 0:
@@ -299,13 +490,13 @@ class Codebook:
         try:
             out.encode(self._codec_table(), arr.tolist())
         except ValueError:
-            missing = ~np.isin(arr, self._symbols)
+            missing = ~np.isin(arr, ints)
             if not bool(missing.any()):
                 raise
             i = int(np.flatnonzero(missing)[0])
             raise ValueError(
                 f"symbol {int(arr[i])} at index {i} has no codeword in codebook {self.name!r} "
-                f"({len(self)} symbols, {int(self._symbols[0])}..{int(self._symbols[-1])})"
+                f"({len(self)} symbols, {int(ints[0])}..{int(ints[-1])})"
             ) from None
         return out
 
@@ -318,7 +509,9 @@ class Codebook:
         when the code is not prefix-free, when the bits before the ``n``-th symbol match
         no codeword, or when the stream ends early; ``n`` is an integer >= 0 and
         ``bits`` a bitarray or bytes (``TypeError``/``ValueError`` otherwise).
+        ``TypeError`` for a table keyed by other symbols than integers.
         """
+        self._integers("decoding samples")
         count = sample_size(n, minimum=0)
         if isinstance(bits, (bytes, bytearray, memoryview)):
             stream = bitarray(endian="big")
@@ -360,7 +553,8 @@ class Codebook:
     def _consumed_bits(self, decoded: list[int]) -> int:
         if not decoded:
             return 0
-        idx = np.searchsorted(self._symbols, np.array(decoded, dtype=np.int64))
+        ints = self._integers("decoding samples")
+        idx = np.searchsorted(ints, np.array(decoded, dtype=np.int64))
         return int(self._lengths[idx].sum())
 
     def _raise_stuck(self, stream: bitarray, decoded: list[int], count: int) -> NoReturn:
@@ -391,7 +585,7 @@ class Codebook:
                 f"codebook {self.name!r} cannot be decoded symbol by symbol: "
                 f"{_prefix_phrase(witness)} (not prefix-free)"
             )
-        table = dict(zip(self._texts(), self._symbols.tolist()))
+        table = dict(zip(self._texts(), self._integers("decoding samples").tolist()))
         widths = sorted(set(self._lengths.tolist()))
         text = stream.to01()
         out: list[int] = []
@@ -410,8 +604,8 @@ class Codebook:
         return np.array(out, dtype=np.int64)
 
 
-def _concatenation(cb: Codebook) -> bitarray:
-    """All codewords, ascending by symbol, back to back in one big-endian bitarray."""
+def _concatenation(cb: Codebook[Any]) -> bitarray:
+    """All codewords, in symbol order, back to back in one big-endian bitarray."""
     values = cb._values_u64()
     out = bitarray(endian="big")
     if values is None:  # beyond 64 bits: go through text
@@ -456,7 +650,7 @@ def _symbol_array(values: npt.ArrayLike, what: str, *, bools: bool = True) -> In
     return arr.astype(np.int64, copy=False)
 
 
-def _as_codebook(code: CodeLike) -> Codebook:
+def _as_codebook(code: CodeLike) -> Codebook[Any]:
     """``code`` as a :class:`Codebook` (a mapping is parsed; ``TypeError`` otherwise)."""
     if isinstance(code, Codebook):
         return code

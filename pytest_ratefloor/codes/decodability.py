@@ -7,6 +7,9 @@ and rebuilds the two parses of a shortest ambiguous bit string;
 (:class:`~pytest_ratefloor.errors.AmbiguousCode`). Prefix-free codes pass at once. The
 search is bounded by :data:`SP_SUFFIX_LIMIT` dangling suffixes
 (:class:`~pytest_ratefloor.errors.SearchLimitError` past it).
+
+The search runs on positions in the table; parses are given back in the table's own
+symbols (any hashable keys), and the failure message shows them with ``repr``.
 """
 
 from __future__ import annotations
@@ -16,10 +19,10 @@ import itertools
 from bisect import bisect_left
 from typing import Any
 
-from pytest_ratefloor.codes.codebook import CodeLike, _as_codebook
+from pytest_ratefloor.codes.codebook import Codebook, CodeLike, _as_codebook
 from pytest_ratefloor.codes.properties import prefix_witness
 from pytest_ratefloor.errors import AmbiguousCode, SearchLimitError
-from pytest_ratefloor.validation import integer
+from pytest_ratefloor.validation import integer, show
 
 #: Default bound of the Sardinas–Patterson search: the number of distinct dangling
 #: suffixes it may settle before giving up with :class:`SearchLimitError`. The
@@ -33,27 +36,33 @@ _DONE, _STATE = 0, 1
 
 def ambiguity(
     code: CodeLike, limit: int = SP_SUFFIX_LIMIT
-) -> tuple[str, list[int], list[int]] | None:
+) -> tuple[str, list[Any], list[Any]] | None:
     """A shortest ambiguous bit string and its two parses, or None if uniquely decodable.
 
     Sardinas & Patterson (1953): a code is uniquely decodable iff no dangling suffix
     is a codeword. Dangling suffixes are explored shortest-total-length first
     (Dijkstra on the length of the longer parse), recording how each arose, so both
-    parses of the shortest ambiguous string can be rebuilt. A prefix-free code
-    returns None at once. Raises :class:`SearchLimitError` after ``limit``
-    distinct dangling suffixes.
+    parses of the shortest ambiguous string can be rebuilt. The parses are lists of
+    the table's own symbols. A prefix-free code returns None at once. Raises
+    :class:`SearchLimitError` after ``limit`` distinct dangling suffixes.
     """
     cb = _as_codebook(code)
-    limit = integer(limit, "limit", minimum=1)
+    found = _ambiguity(cb, integer(limit, "limit", minimum=1))
+    if found is None:
+        return None
+    bits, parse_a, parse_b = found
+    return bits, [cb._key(i) for i in parse_a], [cb._key(i) for i in parse_b]
+
+
+def _ambiguity(cb: Codebook[Any], limit: int) -> tuple[str, list[int], list[int]] | None:
+    """:func:`ambiguity` on positions in the table (a position stands for a symbol)."""
     if prefix_witness(cb) is None:
         return None
     texts = cb._texts()
-    syms = cb._symbols.tolist()
-    text_of = dict(zip(syms, texts))
     first_symbol: dict[str, int] = {}
     heap: list[tuple[Any, ...]] = []
     seq = itertools.count()
-    for sym, w in zip(syms, texts):
+    for sym, w in enumerate(texts):
         if w in first_symbol:  # two symbols, one codeword: ambiguous at once
             heapq.heappush(heap, (len(w), _DONE, next(seq), None, ([first_symbol[w]], [sym])))
         else:
@@ -70,7 +79,7 @@ def ambiguity(
     while heap:
         cost, kind, _, suffix, how = heapq.heappop(heap)
         if kind == _DONE:
-            return _rebuild(how, settled, text_of)
+            return _rebuild(how, settled, texts)
         if suffix in settled:
             continue
         settled[suffix] = how
@@ -108,7 +117,7 @@ def ambiguity(
 
 
 def _rebuild(
-    how: tuple[Any, ...], settled: dict[str, tuple[Any, ...]], text_of: dict[int, str]
+    how: tuple[Any, ...], settled: dict[str, tuple[Any, ...]], text_of: list[str]
 ) -> tuple[str, list[int], list[int]]:
     """Replay the recorded derivation into two parses of one bit string."""
     if how[0] != "end":  # duplicate codeword
@@ -141,14 +150,15 @@ def assert_uniquely_decodable(code: CodeLike, limit: int = SP_SUFFIX_LIMIT) -> N
     ``limit`` dangling suffixes (:class:`SearchLimitError` past it)."""
     __tracebackhide__ = True
     cb = _as_codebook(code)
-    found = ambiguity(cb, limit=limit)
+    found = _ambiguity(cb, integer(limit, "limit", minimum=1))
     if found is None:
         return
     bits, parse_a, parse_b = found
-    text_of = {s: cb.word(s) for s in set(parse_a) | set(parse_b)}
+    texts = cb._texts()
 
     def shown(parse: list[int]) -> str:
-        return f"{parse} = " + "·".join(repr(text_of[s]) for s in parse)
+        symbols = ", ".join(show(cb._key(i)) for i in parse)
+        return f"[{symbols}] = " + "·".join(repr(texts[i]) for i in parse)
 
     raise AmbiguousCode(
         f"codebook {cb.name!r} is not uniquely decodable: the bit string {bits!r} "

@@ -16,6 +16,12 @@
 The one-symbol code with a 1-bit codeword has Kraft sum 1/2 and is the one incomplete
 code ``assert_kraft(..., complete=True)`` accepts: a zero-length codeword would make
 the stream carry no bits, so every real symbol-code format spends at least one bit.
+
+Every function here takes a table of any symbols (integers, characters, strings,
+bytes, tuples; never a ``bool``), and its witnesses and messages name the symbols as
+the table keys them, shown with ``repr``. Ties and the canonical assignment follow
+the symbol order of :mod:`~pytest_ratefloor.codes.codebook` (ascending when the
+symbols compare with one another, else the table's own order).
 """
 
 from __future__ import annotations
@@ -23,6 +29,7 @@ from __future__ import annotations
 import itertools
 from collections.abc import Mapping
 from fractions import Fraction
+from typing import Any
 
 import numpy as np
 import numpy.typing as npt
@@ -33,22 +40,29 @@ from pytest_ratefloor.codes.codebook import (
     CodeLike,
     IntArray,
     _as_codebook,
+    _index_of,
+    _key_of,
+    _NotAnInteger,
     _symbol_array,
     _symbol_of,
+    _symbol_order,
     _word_text,
 )
 from pytest_ratefloor.errors import CodeShapeFailure, KraftFailure, PrefixFailure
 from pytest_ratefloor.validation import integer, show
 
-Witness = tuple[tuple[int, str], tuple[int, str]]
+#: ``((symbol_a, word_a), (symbol_b, word_b))``: the table's own symbols and their
+#: codewords as '0'/'1' text, ``word_a`` a prefix of (or equal to) ``word_b``.
+Witness = tuple[tuple[Any, str], tuple[Any, str]]
 
 
 def prefix_witness(code: CodeLike) -> Witness | None:
     """The first pair of codewords where one is a prefix of (or equal to) the other.
 
     Returns ``((symbol_a, word_a), (symbol_b, word_b))`` with ``word_a`` a prefix of
-    ``word_b`` (possibly equal), or ``None`` for a prefix-free code. "First" means
-    first in lexicographic order of the codewords (ties by symbol).
+    ``word_b`` (possibly equal), or ``None`` for a prefix-free code; the symbols are
+    the table's own keys. "First" means first in lexicographic order of the codewords
+    (ties in symbol order).
 
     O(N log N): sort the codewords lexicographically (as left-aligned integers, ties
     by length); a word is then followed by its extensions, so if ``u`` is a prefix of
@@ -64,10 +78,11 @@ def prefix_witness(code: CodeLike) -> Witness | None:
     lengths = cb._lengths
     top = cb.max_length
     keys = values << (top - lengths).astype(np.uint64)
+    # entries are stored in symbol order, so ties by position are ties by symbol
     if top <= 57:  # key and length fit one uint64 sort key (stable: ties by symbol)
         order = np.argsort((keys << np.uint64(7)) | lengths.astype(np.uint64), kind="stable")
     else:
-        order = np.lexsort((cb._symbols, lengths, keys))
+        order = np.lexsort((np.arange(n), lengths, keys))
     a, b = order[:-1], order[1:]
     diff = lengths[b] - lengths[a]
     shift = np.where(diff > 0, diff, 0).astype(np.uint64)
@@ -77,28 +92,29 @@ def prefix_witness(code: CodeLike) -> Witness | None:
     k = int(np.argmax(hit))
     ia, ib = int(a[k]), int(b[k])
     return (
-        (int(cb._symbols[ia]), _word_text(cb._pyvalues[ia], int(lengths[ia]))),
-        (int(cb._symbols[ib]), _word_text(cb._pyvalues[ib], int(lengths[ib]))),
+        (cb._key(ia), _word_text(cb._pyvalues[ia], int(lengths[ia]))),
+        (cb._key(ib), _word_text(cb._pyvalues[ib], int(lengths[ib]))),
     )
 
 
-def _prefix_witness_text(cb: Codebook) -> Witness | None:
+def _prefix_witness_text(cb: Codebook[Any]) -> Witness | None:
     """:func:`prefix_witness` on '0'/'1' text, for codewords longer than 64 bits."""
     texts = cb._texts()
-    syms = cb._symbols.tolist()
-    ranked = sorted(range(len(texts)), key=lambda i: (texts[i], syms[i]))
+    ranked = sorted(range(len(texts)), key=lambda i: (texts[i], i))  # ties: symbol order
     for i, j in itertools.pairwise(ranked):
         if texts[j].startswith(texts[i]):
-            return (syms[i], texts[i]), (syms[j], texts[j])
+            return (cb._key(i), texts[i]), (cb._key(j), texts[j])
     return None
 
 
 def _prefix_phrase(witness: Witness) -> str:
+    """The witness in words, naming the symbols with ``repr`` (``'a'``, ``7``)."""
     (sa, wa), (sb, wb) = witness
     if wa == wb:
-        return f"symbols {sa} and {sb} share the codeword {wa!r}"
+        return f"symbols {show(sa)} and {show(sb)} share the codeword {wa!r}"
     return (
-        f"the codeword of symbol {sa} ({wa!r}) is a prefix of the codeword of symbol {sb} ({wb!r})"
+        f"the codeword of symbol {show(sa)} ({wa!r}) is a prefix of the codeword of symbol "
+        f"{show(sb)} ({wb!r})"
     )
 
 
@@ -118,7 +134,7 @@ def assert_prefix_free(
         (sa, wa), _ = witness
         raise PrefixFailure(
             f"codebook {cb.name!r} is not prefix-free: {_prefix_phrase(witness)}; "
-            f"a decoder that has read {wa!r} cannot tell whether symbol {sa} has ended"
+            f"a decoder that has read {wa!r} cannot tell whether symbol {show(sa)} has ended"
         )
     _check_shape(cb, cap, canonical)
 
@@ -131,7 +147,7 @@ def _length_cap(max_length: object) -> int | None:
 # ------------------------------------------------------------------------------ Kraft
 
 
-def _length_counts(cb: Codebook) -> dict[int, int]:
+def _length_counts(cb: Codebook[Any]) -> dict[int, int]:
     counts = np.bincount(cb._lengths)
     return {int(ln): int(c) for ln, c in enumerate(counts.tolist()) if c}
 
@@ -144,7 +160,7 @@ def kraft_sum(code: CodeLike) -> Fraction:
     return Fraction(total, 1 << top)
 
 
-def _histogram_text(cb: Codebook, limit: int = 12) -> str:
+def _histogram_text(cb: Codebook[Any], limit: int = 12) -> str:
     items = sorted(_length_counts(cb).items())
     parts = [f"{c}×{ln}" for ln, c in items[:limit]]
     if len(items) > limit:
@@ -152,7 +168,7 @@ def _histogram_text(cb: Codebook, limit: int = 12) -> str:
     return "codewords×bits: " + ", ".join(parts)
 
 
-def _unused_prefix(cb: Codebook) -> str | None:
+def _unused_prefix(cb: Codebook[Any]) -> str | None:
     """A bit string that no codeword starts with or is a prefix of (from the first
     gap in the code space), or None when there is no gap or codewords are too long."""
     values = cb._values_u64()
@@ -195,11 +211,13 @@ def assert_kraft(
     cap = _length_cap(max_length)
     total = kraft_sum(cb)
     if total > 1:
+        witness = prefix_witness(cb)  # an over-full code is never prefix-free
+        pair = f"; not prefix-free either: {_prefix_phrase(witness)}" if witness else ""
         raise KraftFailure(
             f"codebook {cb.name!r} is over-full: Kraft sum Σ2^-ℓ = {total} > 1 "
             f"(over by {total - 1}); by McMillan's theorem no uniquely decodable code "
             f"can have a Kraft sum above 1, so some bit strings have two parses "
-            f"({len(cb)} codewords; {_histogram_text(cb)})"
+            f"({len(cb)} codewords; {_histogram_text(cb)}){pair}"
         )
     single = len(cb) == 1 and cb.max_length == 1
     if complete and total < 1 and not single:
@@ -245,10 +263,10 @@ def _canonical_values_np(lengths: IntArray) -> IntArray | None:
     return np.right_shift(left, top - lengths)
 
 
-def _canonical_mismatch(cb: Codebook) -> tuple[int, str, str | None] | None:
+def _canonical_mismatch(cb: Codebook[Any]) -> tuple[Any, str, str | None] | None:
     """(symbol, its codeword, the canonical one or None if none exists) of the first
     symbol in (length, symbol) order whose codeword is not the canonical one."""
-    order = np.lexsort((cb._symbols, cb._lengths))
+    order = np.argsort(cb._lengths, kind="stable")  # entries are stored in symbol order
     lens = cb._lengths[order]
     canon = _canonical_values_np(lens)
     values = cb._values_u64()
@@ -267,7 +285,7 @@ def _canonical_mismatch(cb: Codebook) -> tuple[int, str, str | None] | None:
             return None
         want, ln, i = exact[first], int(lens[first]), int(order[first])
     expected = _word_text(want, ln) if want < (1 << ln) else None
-    return int(cb._symbols[i]), _word_text(cb._pyvalues[i], ln), expected
+    return cb._key(i), _word_text(cb._pyvalues[i], ln), expected
 
 
 def is_canonical(code: CodeLike) -> bool:
@@ -277,7 +295,7 @@ def is_canonical(code: CodeLike) -> bool:
     return _canonical_mismatch(_as_codebook(code)) is None
 
 
-def _check_shape(cb: Codebook, cap: int | None, canonical: bool) -> None:
+def _check_shape(cb: Codebook[Any], cap: int | None, canonical: bool) -> None:
     """The length cap (``cap``, already validated) and the canonical assignment."""
     __tracebackhide__ = True
     if cap is not None:
@@ -286,10 +304,10 @@ def _check_shape(cb: Codebook, cap: int | None, canonical: bool) -> None:
             i = int(over[0])
             j = int(np.argmax(cb._lengths))
             raise CodeShapeFailure(
-                f"codebook {cb.name!r} breaks the length cap: symbol {int(cb._symbols[i])} "
+                f"codebook {cb.name!r} breaks the length cap: symbol {show(cb._key(i))} "
                 f"has a {int(cb._lengths[i])}-bit codeword but max_length={cap} "
                 f"({over.size} codeword{'s' if over.size != 1 else ''} over the cap; longest "
-                f"{int(cb._lengths[j])} bits, symbol {int(cb._symbols[j])})"
+                f"{int(cb._lengths[j])} bits, symbol {show(cb._key(j))})"
             )
     if canonical:
         bad = _canonical_mismatch(cb)
@@ -298,23 +316,26 @@ def _check_shape(cb: Codebook, cap: int | None, canonical: bool) -> None:
             if want is None:
                 raise CodeShapeFailure(
                     f"codebook {cb.name!r} is not canonical: its lengths admit no canonical "
-                    f"code (Kraft sum {kraft_sum(cb)} > 1); assignment overflows at symbol {sym}"
+                    f"code (Kraft sum {kraft_sum(cb)} > 1); assignment overflows at symbol "
+                    f"{show(sym)}"
                 )
             raise CodeShapeFailure(
-                f"codebook {cb.name!r} is not canonical: symbol {sym} has codeword {got!r} "
+                f"codebook {cb.name!r} is not canonical: symbol {show(sym)} has codeword {got!r} "
                 f"but the canonical code (order of (length, symbol), consecutive values) "
                 f"gives it {want!r}"
             )
 
 
 def canonical_codebook(
-    lengths: Mapping[int, int] | tuple[npt.ArrayLike, npt.ArrayLike],
+    lengths: Mapping[Any, int] | tuple[npt.ArrayLike, npt.ArrayLike],
     name: str = "canonical",
-) -> Codebook:
+) -> Codebook[Any]:
     """The canonical prefix code with the given lengths.
 
     ``lengths`` is ``{symbol: length}`` or ``(symbols, lengths)`` arrays; length 0
     means "no codeword" (as :func:`huffman_lengths` returns for zero probabilities).
+    The mapping may be keyed by any symbols (``{'a': 1, 'b': 2, 'c': 2}``; codewords
+    go in order of (length, symbol), see the module notes); the arrays are integers.
     ``TypeError`` for arguments of the wrong type (a ``bool`` symbol or length
     included); ``ValueError`` for a negative length or one above
     :data:`~pytest_ratefloor.codes.codebook.MAX_CODEWORD_BITS`, a symbol listed
@@ -324,7 +345,10 @@ def canonical_codebook(
     if not isinstance(name, str):
         raise TypeError(f"codebook name must be a string, got {show(name)}")
     if isinstance(lengths, Mapping):
-        syms = np.array([_symbol_of(s) for s in lengths], dtype=np.int64)
+        try:
+            syms = np.array([_symbol_of(s) for s in lengths], dtype=np.int64)
+        except _NotAnInteger:
+            return _canonical_keyed(lengths, name)
         given = list(lengths.values())
         if not all(type(v) is int for v in given):  # check types; signs are checked below
             given = [integer(v, f"length of symbol {s}", minimum=0) for s, v in lengths.items()]
@@ -388,3 +412,41 @@ def canonical_codebook(
         sorted_syms, [exact[i] for i in by_symbol.tolist()], sorted_lens, name
     )
 
+
+def _canonical_keyed(lengths: Mapping[Any, Any], name: str) -> Codebook[Any]:
+    """:func:`canonical_codebook` of a ``{symbol: length}`` mapping keyed by symbols
+    other than integers alone (the same rules and messages, symbols shown by ``repr``)."""
+    keys: list[Any] = []
+    lens: list[int] = []
+    for key, given in lengths.items():
+        sym = _key_of(key)
+        length = integer(given, f"length of symbol {show(sym)}", minimum=0)
+        if length > MAX_CODEWORD_BITS:
+            raise ValueError(
+                f"length of symbol {show(sym)} must be an integer in [0, {MAX_CODEWORD_BITS}] "
+                f"(MAX_CODEWORD_BITS), got {length}"
+            )
+        if length:
+            keys.append(sym)
+            lens.append(length)
+    if not keys:
+        raise ValueError(
+            f"lengths must give at least one symbol a positive length (a code needs a "
+            f"codeword), got {show(lengths)}"
+        )
+    top = max(lens)
+    total = sum(1 << (top - ln) for ln in lens)
+    if total > (1 << top):
+        raise ValueError(
+            f"lengths must have a Kraft sum Σ2^-ℓ <= 1 (else no prefix code exists), "
+            f"got a Kraft sum of {Fraction(total, 1 << top)}"
+        )
+    by_symbol = _symbol_order(keys)
+    keys = [keys[i] for i in by_symbol]
+    lens = [lens[i] for i in by_symbol]
+    _index_of(keys, None)  # a symbol listed twice (a mapping that repeats a key)
+    canonical = sorted(range(len(keys)), key=lens.__getitem__)  # stable: (length, symbol)
+    values = [0] * len(keys)
+    for i, v in zip(canonical, _canonical_values([lens[i] for i in canonical])):
+        values[i] = v
+    return Codebook._from_keys(keys, values, np.array(lens, dtype=np.int64), name)

@@ -31,6 +31,9 @@ data says nothing certain about other data from the same origin.
 
 from __future__ import annotations
 
+import os
+from collections.abc import Sequence
+
 from numpy.typing import ArrayLike
 
 from pytest_ratefloor.sources.base import Source
@@ -44,27 +47,38 @@ from pytest_ratefloor.sources.closed_form import (
 from pytest_ratefloor.sources.closed_form import (
     binary_entropy as binary_entropy,  # for the report's plot; not in __all__
 )
+from pytest_ratefloor.sources.composite import Piecewise, RandomWalk
+from pytest_ratefloor.sources.corpora import MAX_CORPUS_BYTES, Corpus
+from pytest_ratefloor.sources.corpora import corpus as _corpus
+from pytest_ratefloor.sources.corpora import corpus_files as _corpus_files
 from pytest_ratefloor.sources.empirical import Empirical, from_file
 from pytest_ratefloor.sources.summed import Categorical, Poisson, Zipf
 
 __all__ = [
     "Bernoulli",
     "Categorical",
+    "Corpus",
     "Empirical",
     "Geometric",
     "Markov",
+    "Piecewise",
     "Poisson",
+    "RandomWalk",
     "Source",
     "TwoSidedGeometric",
     "Uniform",
     "Zipf",
     "bernoulli",
     "categorical",
+    "corpus",
+    "corpus_files",
     "empirical",
     "from_file",
     "geometric",
     "markov",
+    "piecewise",
     "poisson",
+    "random_walk",
     "standard_suite",
     "two_sided_geometric",
     "uniform",
@@ -114,6 +128,48 @@ def markov(transition: ArrayLike, initial: ArrayLike | None = None) -> Markov:
 def empirical(data: ArrayLike | bytes, order: int = 0) -> Empirical:
     """A source fitted to ``data`` (order-k context model); entropy is an estimate."""
     return Empirical(data, order)
+
+
+def corpus(
+    path: str | os.PathLike[str], symbol: str = "u8", *, max_bytes: int = MAX_CORPUS_BYTES
+) -> Corpus:
+    """One file's own symbols as a source (``sample(n)`` is its first n symbols, any seed).
+
+    Entropy: the order-0 plug-in estimate of the whole file (``is_estimate``);
+    spec ``corpus(name=<base name>,sha=<12 hex of SHA-256>,symbol=<layout>)``.
+    A folder or a glob: :func:`corpus_files`. See :class:`Corpus`.
+    """
+    return _corpus(path, symbol, max_bytes=max_bytes)
+
+
+def corpus_files(
+    pattern: str | os.PathLike[str], symbol: str = "u8", *, max_bytes: int = MAX_CORPUS_BYTES
+) -> list[Corpus]:
+    """One :class:`Corpus` per file of a folder or a glob pattern (a list, sorted by path).
+
+    A plain file gives a list of one. Specs name each file by its path
+    relative to the folder (or the pattern's fixed leading folders).
+    """
+    return _corpus_files(pattern, symbol, max_bytes=max_bytes)
+
+
+def random_walk(step: Source, start: int = 0) -> RandomWalk:
+    """``Xₜ = Xₜ₋₁ + Dₜ``, ``X₀ = start`` (not emitted), steps ``Dₜ`` from ``step``.
+
+    n symbols are n steps: information is exactly the steps' information and
+    the entropy rate is ``step.entropy``. See :class:`RandomWalk`.
+    """
+    return RandomWalk(step, start)
+
+
+def piecewise(pieces: Sequence[tuple[Source, int]], repeat: bool = True) -> Piecewise:
+    """Segments of ``length`` symbols from each ``(source, length)`` in turn, cycled if ``repeat``.
+
+    Entropy: the length-weighted mean over one cycle (``entropy_bits(n)``: the
+    exact n-symbol figure); information: each segment's under its own
+    source. See :class:`Piecewise`.
+    """
+    return Piecewise(pieces, repeat)
 
 
 def standard_suite() -> list[Source]:

@@ -23,6 +23,17 @@ module               holds
 
 Conventions
 -----------
+* Symbols are the team's own keys: integers, characters, strings, bytes, tuples, any
+  hashable value (``{'a': '0', 'b': '01', 'c': '11'}`` fails
+  :func:`assert_prefix_free` with ``'a'`` and ``'b'``). Every analysis takes any table,
+  and witnesses and messages name the symbols with ``repr``. Only encoding and decoding
+  samples (``Codebook.encode``/``decode``, a table used as a codec) needs integer
+  symbols, and says so (``"encoding samples needs integer symbols; this table is keyed
+  by str such as 'a'"``); so do the lengths against a pmf of integer symbols
+  (:func:`expected_length` and its kin). A ``bool`` is never a symbol, in any table:
+  ``True == 1`` in Python, so beside ``'a'`` it would be ambiguous with ``1``. Symbol
+  order (ties, the canonical assignment) is ascending when the symbols compare with one
+  another, else the table's own order.
 * Codewords are bit strings written most-significant bit first: ``"0110"``, a
   ``bitarray`` (its logical bit order, whatever its endianness) or ``(value, length)``
   meaning the low ``length`` bits of ``value``, MSB first. Witnesses in results and

@@ -35,6 +35,7 @@ strings, all bytes, tuples of those), otherwise the order the table lists them i
 from __future__ import annotations
 
 import itertools
+import numbers
 from collections.abc import Hashable, Iterable, Mapping
 from typing import Any, Generic, NoReturn, TypeVar, Union
 
@@ -107,10 +108,10 @@ def _symbol_of(key: object, where: str | None = None) -> int:
 def _key_of(key: object, where: str | None = None) -> Hashable:
     """A table key of any kind: an integer as by :func:`_symbol_of` (bools refused),
     a numpy scalar as the Python value it holds, anything else as it is (hashable)."""
-    try:
+    if type(key) is str or type(key) is bytes:  # the common keys of a text table, fast
+        return key
+    if isinstance(key, (numbers.Integral, np.bool_)):  # numpy integers and bools included
         return _symbol_of(key, where)
-    except _NotAnInteger:
-        pass
     if isinstance(key, np.generic):  # np.str_('a') is 'a', np.float64(0.5) is 0.5
         key = key.item()
     try:

@@ -34,10 +34,9 @@ wrong size is a contract breach (:class:`~pytest_ratefloor.errors.CodecContractE
 as for the other adapters. In the damaged-stream check a decoder program that
 exits with an error status on a damaged stream has *detected* the damage
 (the trial counts as raised), as a decompressor raising an exception would.
-That check sees a :class:`CommandError` as an ordinary exception, so a
-decoder program killed by a signal there (a crash) also counts as raised;
-the error keeps the signal (:attr:`CommandError.signal`) for anyone who
-looks.
+A decoder program killed by a signal there is reported as a crash, and one
+killed for running past this codec's ``timeout`` as a hang (the worker reads
+:attr:`CommandError.signal` and ``timed_out``).
 
 Each program runs in a session, and so a process group, of its own; on a time
 out (or any interruption, Ctrl-C included) the whole group is killed with
@@ -50,8 +49,8 @@ in the caller's group, where that kill reaches it; a time out then kills the
 program itself. So in the damaged-stream check a decoder that hangs for
 longer than the check's per-trial ``timeout`` (2 s by default, below this
 codec's default of 10 s) is reported as a hang and its whole group ended,
-with nothing left behind; keep the codec's ``timeout`` above the check's, or
-a hang ends as a :class:`CommandError` that counts as raised.
+with nothing left behind; with the codec's ``timeout`` below the check's, the
+codec's own time limit ends the program and the trial is a hang all the same.
 
 Processes a check starts — each encode and each decode runs the program once,
 started directly (``fork``/``exec``, no shell), so a small compiled program
@@ -85,7 +84,7 @@ import numpy as np
 
 from pytest_ratefloor import validation
 from pytest_ratefloor.codecs import Encoded, ReplayCall, _check_name, _check_version
-from pytest_ratefloor.errors import CodecContractError, LayoutError
+from pytest_ratefloor.errors import CodecContractError, CommandError, LayoutError
 from pytest_ratefloor.layouts import AUTO, LAYOUTS, pack, packed_size, resolve_layout, unpack
 
 if TYPE_CHECKING:
@@ -123,48 +122,6 @@ N_VARIABLE = "RATEFLOOR_N"
 
 _WHERE = "CommandCodec"
 _LINE_WIDTH = 200
-
-
-class CommandError(Exception):
-    """A program run by a :class:`CommandCodec` failed: it could not be started,
-    exited with a non-zero status or by a signal, wrote to standard error, or
-    ran past its time limit.
-
-    ``command`` is the argv that ran (``{n}`` filled in), ``returncode`` its
-    exit status (negative: the number of the signal that ended it; ``None``:
-    it never started), ``stderr`` what it wrote there, ``timed_out`` whether
-    it was killed for running too long. An ordinary exception: the checks name
-    it as the decoder (or encoder) raising, and the damaged-stream check counts
-    it as the decoder having detected the damage.
-    """
-
-    def __init__(
-        self,
-        message: str,
-        command: Sequence[str] = (),
-        returncode: int | None = None,
-        stderr: bytes = b"",
-        timed_out: bool = False,
-    ) -> None:
-        super().__init__(message)
-        self.command = tuple(command)
-        self.returncode = returncode
-        self.stderr = bytes(stderr)
-        self.timed_out = timed_out
-
-    @property
-    def signal(self) -> int | None:
-        """The number of the signal that ended the program, if one did (and not
-        the SIGKILL of a time out)."""
-        if self.timed_out or self.returncode is None or self.returncode >= 0:
-            return None
-        return -self.returncode
-
-    def __reduce__(self) -> tuple[type[CommandError], tuple[object, ...]]:
-        # The checks send failures from a child process: keep every field.
-        return type(self), (
-            str(self), self.command, self.returncode, self.stderr, self.timed_out
-        )
 
 
 # ---------------------------------------------------------------- arguments

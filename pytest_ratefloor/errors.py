@@ -24,12 +24,15 @@ user's call.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
+
 __all__ = [
     "AmbiguousCode",
     "CodeShapeFailure",
     "CodecContractError",
     "CodecMisbehaviour",
     "CodecTraceback",
+    "CommandError",
     "CommandLineError",
     "CorruptionFailure",
     "CorruptionSetupError",
@@ -146,6 +149,48 @@ class SampleMismatchError(LedgerError):
 
 class LayoutError(ValueError):
     """A symbol does not fit a byte layout, or the layout name is unknown."""
+
+
+class CommandError(Exception):
+    """A program run by a :class:`CommandCodec` failed: it could not be started,
+    exited with a non-zero status or by a signal, wrote to standard error, or
+    ran past its time limit.
+
+    ``command`` is the argv that ran (``{n}`` filled in), ``returncode`` its
+    exit status (negative: the number of the signal that ended it; ``None``:
+    it never started), ``stderr`` what it wrote there, ``timed_out`` whether
+    it was killed for running too long. An ordinary exception: the checks name
+    it as the decoder (or encoder) raising, and the damaged-stream check counts
+    it as the decoder having detected the damage.
+    """
+
+    def __init__(
+        self,
+        message: str,
+        command: Sequence[str] = (),
+        returncode: int | None = None,
+        stderr: bytes = b"",
+        timed_out: bool = False,
+    ) -> None:
+        super().__init__(message)
+        self.command = tuple(command)
+        self.returncode = returncode
+        self.stderr = bytes(stderr)
+        self.timed_out = timed_out
+
+    @property
+    def signal(self) -> int | None:
+        """The number of the signal that ended the program, if one did (and not
+        the SIGKILL of a time out)."""
+        if self.timed_out or self.returncode is None or self.returncode >= 0:
+            return None
+        return -self.returncode
+
+    def __reduce__(self) -> tuple[type[CommandError], tuple[object, ...]]:
+        # The checks send failures from a child process: keep every field.
+        return type(self), (
+            str(self), self.command, self.returncode, self.stderr, self.timed_out
+        )
 
 
 class CodecContractError(Exception):

@@ -116,6 +116,17 @@ elif mode == "noisy":
     sys.stdout.buffer.write(data)
 elif mode == "echo":
     sys.stdout.write(sys.argv[2])
+elif mode == "fragile":  # decodes good streams; dies on a signal at any damage
+    try:
+        sys.stdout.buffer.write(zlib.decompress(data))
+    except zlib.error:
+        import signal
+        os.kill(os.getpid(), signal.SIGSEGV)
+elif mode == "slow-on-damage":  # decodes good streams; hangs past its time limit on damage
+    try:
+        sys.stdout.buffer.write(zlib.decompress(data))
+    except zlib.error:
+        time.sleep(30)
 """
 
 
@@ -348,7 +359,7 @@ def test_damaged_stream_check_runs_on_a_command_codec(rle: str) -> None:
     run = assert_survives_corruption(codec, source, n=3000, trials=40)
     assert len(run.outcomes) == 40
     # a decoder program that exits with an error status has detected the damage
-    assert "pytest_ratefloor.command.CommandError" in run.summary()
+    assert "pytest_ratefloor.errors.CommandError" in run.summary()
 
 
 def test_a_decoder_program_that_hangs_on_damage_is_a_hang_and_is_ended(
@@ -415,3 +426,24 @@ def test_commands_and_settings_are_checked() -> None:
             CommandCodec(**arguments)  # type: ignore[arg-type]
     with pytest.raises(LayoutError, match="bind the codec to a source"):
         CommandCodec(["cat"], ["cat"]).encode(np.arange(3))
+
+
+def test_a_decoder_program_crashing_on_damage_is_a_crash(script: list[str],
+                                                         tmp_path: Path) -> None:
+    """The worker reads the program's fate from the error: a signal is a crash, not a
+    rejection (a crashing C decoder must not pass as having detected the damage)."""
+    codec = CommandCodec([*script, "c"], [*script, "fragile"], name="fragile", symbol="u8")
+    with pytest.raises(CorruptionFailure, match=r"crash: \S*CommandError: .*SIGSEGV"):
+        assert_survives_corruption(codec, sources.uniform(16), n=2000, trials=6,
+                                   save_dir=tmp_path / "damaged")
+
+
+def test_a_program_past_the_codecs_own_time_limit_on_damage_is_a_hang(
+    script: list[str], tmp_path: Path
+) -> None:
+    codec = CommandCodec([*script, "c"], [*script, "slow-on-damage"], name="slow",
+                         symbol="u8", timeout=0.3)
+    with pytest.raises(CorruptionFailure, match=r"hang: \S*CommandError: the decoder program ran "
+                                                "past its time limit"):
+        assert_survives_corruption(codec, sources.uniform(16), n=2000, trials=3, timeout=5.0,
+                                   save_dir=tmp_path / "damaged")

@@ -209,6 +209,11 @@ def _one_trial(
             f"raised {_exception_name(exc)} after the worker grew by {size_text(grown)}"
         )
     except Exception as exc:
+        # a decoder program (CommandCodec) reports its own crash or hang as an exception
+        if getattr(exc, "timed_out", False):
+            return "hang", f"{_exception_name(exc)}: the decoder program ran past its time limit"
+        if getattr(exc, "signal", None):
+            return "crash", f"{_exception_name(exc)}: {exc}".splitlines()[0]
         return "raised", _exception_name(exc)
     except BaseException as exc:  # SystemExit, KeyboardInterrupt, GeneratorExit
         return "exit", f"raised {_exception_name(exc)}({exc!s}), which would end a test session"

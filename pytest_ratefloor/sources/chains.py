@@ -165,17 +165,18 @@ def _unreachable(adjacent: np.ndarray) -> int | None:
 # --------------------------------------------------------------------------
 # the varentropy rate of a chain: a Poisson equation on its transition graph
 
-#: Chains of at most this many states solve the Poisson equation with the
-#: dense fundamental matrix: one LU of a matrix of ``states²`` floats
-#: (512 states: 2 MiB, about 10⁸ flops).
+#: Chains of at most this many states (larger ones: after the exact
+#: reductions of :func:`_solve_reduced`) solve the Poisson equation densely
+#: with the fundamental matrix: one LU of ``states²`` floats (512 states:
+#: 2 MiB, about 10⁸ flops).
 _DENSE_STATES = 512
-#: Most products with the transition matrix the Krylov (GMRES) solve of a
-#: larger chain may take before the sparse direct solve takes over.
+#: Most products with the reduced transition matrix GMRES may take before the
+#: sparse direct solve takes over.
 _KRYLOV_PRODUCTS = 2000
 #: Floats the Krylov basis may hold (restart length × states; 32 MiB).
 _KRYLOV_FLOATS = 1 << 22
 #: Residual of the Poisson equation, relative to its right-hand side, that
-#: the Krylov solve aims at and that is accepted from it.
+#: GMRES aims at, and the largest accepted from it.
 _KRYLOV_RTOL = 1e-12
 _KRYLOV_ACCEPT = 1e-10
 
@@ -194,14 +195,13 @@ def _chain_varentropy_rate(
     The chain is irreducible over ``stationary.size`` states with stationary
     distribution ``stationary`` (π). Edge ``e`` leads from state
     ``origin[e]`` to ``target[e]`` with probability ``prob[e]``, has
-    stationary weight ``weight[e] = π(origin) prob`` and carries ``info[e]``
-    bits (finite); ``entropy`` is H = Σ weight·info. Parallel edges are
-    allowed.
+    stationary weight ``weight[e] = π(origin) prob`` and carries
+    ``f(e) = info[e]`` bits (finite); ``entropy`` is H = Σ weight·info.
 
     Martingale decomposition (from memory: the Poisson equation of a Markov
     chain with Kemeny & Snell's fundamental matrix Z = (I − P + 1π)⁻¹, as in
-    Meyn & Tweedie's central limit theorem for chains): with
-    g(s) = Σ_{e from s} prob·info − H and u solving (I − P) u = g, π·u = 0,
+    Meyn & Tweedie's central limit theorem for Markov chains): with
+    g(s) = Σ_{e from s} prob·info − H and u solving (I − P) u = g,
 
         f(e_t) − H = D_t + u(X_{t−1}) − u(X_t),
         D_t = f(e_t) + u(X_t) − E[f(e_t) + u(X_t) | X_{t−1}],
@@ -209,9 +209,8 @@ def _chain_varentropy_rate(
     where the D_t are martingale differences and the rest telescopes, so the
     rate is E[D_t²] = Σ_s π(s) Var_{e from s}[f(e) + u(target e)]: a sum of
     non-negative terms, never negative by rounding. It equals
-    ``varentropy + 2 Σ_{k≥1} Cov(f_0, f_k)`` (also for periodic chains, where
-    the sum is taken in Cesàro's sense) and does not depend on the initial
-    distribution.
+    ``varentropy + 2 Σ_{k≥1} Cov(f_0, f_k)`` (for a periodic chain the sum
+    taken in Cesàro's sense) and does not depend on the first state's law.
     """
     states = stationary.size
     g = np.bincount(origin, weights=prob * info, minlength=states) - entropy
@@ -229,80 +228,180 @@ def _poisson_solution(
     prob: np.ndarray,
     g: np.ndarray,
 ) -> np.ndarray:
-    """u with (I − P) u = g and π·u = 0, for π·g = 0 (up to rounding).
+    """u with (I − P) u = g and π·u = 0, for a ``g`` with π·g = 0 (up to rounding).
 
-    Cost: at most :data:`_DENSE_STATES` states, u = Z g by a dense solve with
-    I − P + 1π (O(states³), ≤ 10⁸ flops). Larger chains never build a dense
-    matrix: GMRES on the operator x ↦ x − P x + (π·x) 1 (nonsingular; its
-    inverse is Z), one sparse product per step, so at most
-    :data:`_KRYLOV_PRODUCTS` × (edges + 2 × restart × states) flops with a
-    restart length of at most 64 and a basis of at most
-    :data:`_KRYLOV_FLOATS` floats. A chain that mixes too slowly for that
-    (nearly decomposable) falls back to a sparse LU factorisation (SuperLU)
-    of I − P with the most probable state's row and column removed (u = 0
-    there, then centred); its cost is set by the fill-in, not the edge count,
-    which is why it comes last.
+    At most :data:`_DENSE_STATES` states: u = Z g by one dense solve with
+    I − P + 1π. Larger chains never build a matrix of all their states:
+    :func:`_solve_reduced` works on the edges.
     """
     states = stationary.size
     if not np.any(g):
         return np.zeros(states)
     if states <= _DENSE_STATES:
-        dense = np.zeros((states, states))
-        np.add.at(dense, (origin, target), prob)
-        inverse_z = np.eye(states) - dense + stationary[None, :]
-        return np.asarray(np.linalg.solve(inverse_z, g), dtype=np.float64)
-    from scipy import sparse
-
-    P = sparse.csr_matrix((prob, (origin, target)), shape=(states, states))
-    u = _poisson_krylov(P, stationary, g)
-    if u is None:
-        u = _poisson_direct(P, stationary, g)
-    return u
-
-
-def _poisson_krylov(P: csr_matrix, stationary: np.ndarray, g: np.ndarray) -> np.ndarray | None:
-    """Z g by restarted GMRES on x ↦ x − P x + (π·x) 1, or None if not converged in budget."""
-    from scipy.sparse.linalg import LinearOperator, gmres
-
-    states = stationary.size
-
-    def apply(x: np.ndarray) -> np.ndarray:
-        x = np.ravel(x)
-        return np.asarray(x - P @ x + float(stationary @ x), dtype=np.float64)
-
-    operator = LinearOperator((states, states), matvec=apply, dtype=np.float64)
-    restart = min(64, max(8, _KRYLOV_FLOATS // states), states)
-    cycles = max(1, _KRYLOV_PRODUCTS // restart)
-    # scipy 1.12 renamed gmres's relative tolerance from tol to rtol
-    name = "rtol" if "rtol" in inspect.signature(gmres).parameters else "tol"
-    tolerance = {name: _KRYLOV_RTOL}
-    u, _ = gmres(operator, g, restart=restart, maxiter=cycles, atol=0.0, **tolerance)
-    u = np.asarray(u, dtype=np.float64)
-    residual = np.linalg.norm(g - apply(u))
-    if not residual <= _KRYLOV_ACCEPT * np.linalg.norm(g):
-        return None
+        u = _solve_dense(stationary, origin, target, prob, g)
+    else:
+        u = _solve_reduced(stationary, origin, target, prob, g)
     return u - float(stationary @ u)
 
 
-def _poisson_direct(P: csr_matrix, stationary: np.ndarray, g: np.ndarray) -> np.ndarray:
-    """u with (I − P) u = g, π·u = 0 by sparse LU with the most probable state pinned to 0.
+def _solve_dense(
+    weight: np.ndarray, origin: np.ndarray, target: np.ndarray, prob: np.ndarray, rhs: np.ndarray
+) -> np.ndarray:
+    """(I − P + 1w)⁻¹ rhs for ``w`` the stationary law ∝ ``weight``: Z rhs, a Poisson solution."""
+    size = weight.size
+    matrix = np.eye(size) + (weight / weight.sum())[None, :]
+    np.subtract.at(matrix, (origin, target), prob)
+    return np.asarray(np.linalg.solve(matrix, rhs), dtype=np.float64)
+
+
+def _solve_reduced(
+    stationary: np.ndarray,
+    origin: np.ndarray,
+    target: np.ndarray,
+    prob: np.ndarray,
+    g: np.ndarray,
+) -> np.ndarray:
+    """A Poisson solution of a large chain: two exact reductions, then a sparse solve.
+
+    1. Self-loops (:func:`_without_loops`): the row of a state divided by
+       its probability of leaving is the row of the jump chain (the chain
+       watched only when it moves), so a long run of one state costs nothing.
+    2. Forced paths: a state with a single successor t has u(s) = g̃(s) + u(t),
+       so each path of such states is summed (pointer doubling, O(states ×
+       log states)) into the first state with a choice. What is left is the
+       chain watched on its branching states: no fill-in, as many edges as
+       their rows had, solved again without its self-loops.
+
+    The reduced chain of m states is solved densely if m ≤
+    :data:`_DENSE_STATES`; else by restarted GMRES on x ↦ x − Q x + (w·x) 1
+    (w its stationary law; the operator is nonsingular, its inverse Q's
+    fundamental matrix): at most :data:`_KRYLOV_PRODUCTS` products with Q,
+    each O(edges), plus O(restart × m) orthogonalisation each, with a
+    restart length of at most 64 and a basis of at most
+    :data:`_KRYLOV_FLOATS` floats. If that does not reach the accepted
+    residual (a nearly decomposable chain), a sparse LU factorisation
+    (SuperLU) of I − Q with its most probable state pinned solves it exactly;
+    its cost is set by the fill-in, not the edge count, which is why it
+    comes last.
+    """
+    size = stationary.size
+    weight, origin, target, prob, rhs = _without_loops(stationary, origin, target, prob, g)
+    degree = np.bincount(origin, minlength=size)  # distinct successors: edges are coalesced
+    branching = degree >= 2
+    if not branching.any():
+        branching[int(np.argmax(weight))] = True  # one forced cycle through every state: cut it
+    forced = ~branching
+    first = np.concatenate([[0], np.cumsum(degree)[:-1]])  # origins are sorted
+    jump = np.arange(size)
+    jump[forced] = target[first[forced]]
+    through = np.where(forced, rhs, 0.0)  # Σ rhs from a state to its first branching state
+    for _ in range(2 * size.bit_length() + 2):  # pointer doubling; branching states are fixed
+        if not forced[jump].any():
+            break
+        through = through + through[jump]
+        jump = jump[jump]
+    index = np.cumsum(branching) - 1
+    rows = branching[origin]
+    q_origin = index[origin[rows]]
+    q_target = index[jump[target[rows]]]
+    q_prob = prob[rows]
+    m = int(branching.sum())
+    passed = np.bincount(q_origin, weights=q_prob * through[target[rows]], minlength=m)
+    q_rhs = rhs[branching] + passed
+    if m == 1:
+        solution = np.zeros(1)
+    else:
+        q_weight, q_origin, q_target, q_prob, q_rhs = _without_loops(
+            weight[branching], q_origin, q_target, q_prob, q_rhs
+        )
+        solution = _solve_sparse(q_weight, q_origin, q_target, q_prob, q_rhs)
+    u = np.zeros(size)
+    u[branching] = solution
+    return through + u[jump]
+
+
+def _without_loops(
+    weight: np.ndarray, origin: np.ndarray, target: np.ndarray, prob: np.ndarray, rhs: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """The jump chain's equation: same solution u, no self-loops, parallel edges merged.
+
+    Row s of (I − P) u = rhs, divided by the probability λ(s) of leaving s
+    (summed from the edges that leave, so exact), is row s of the same
+    equation for the chain with P(s, t)/λ(s) off the diagonal and
+    right-hand side rhs(s)/λ(s); its stationary law is ∝ weight·λ. Edges
+    come back sorted by origin. Every state must be able to leave (an
+    irreducible chain of two states or more).
+    """
+    size = weight.size
+    keys, where = np.unique(origin * size + target, return_inverse=True)
+    prob = np.bincount(where.ravel(), weights=prob, minlength=keys.size)
+    origin, target = keys // size, keys % size
+    moves = origin != target
+    origin, target, prob = origin[moves], target[moves], prob[moves]
+    leave = np.bincount(origin, weights=prob, minlength=size)
+    return weight * leave, origin, target, prob / leave[origin], rhs / leave
+
+
+def _solve_sparse(
+    weight: np.ndarray, origin: np.ndarray, target: np.ndarray, prob: np.ndarray, rhs: np.ndarray
+) -> np.ndarray:
+    """A Poisson solution of an edge-listed chain: dense when small, else GMRES, else SuperLU."""
+    size = weight.size
+    if size <= _DENSE_STATES:
+        return _solve_dense(weight, origin, target, prob, rhs)
+    from scipy import sparse
+
+    P = sparse.csr_matrix((prob, (origin, target)), shape=(size, size))
+    w = weight / weight.sum()
+    u = _solve_krylov(P, w, rhs)
+    if u is None:
+        u = _solve_direct(P, w, rhs)
+    return u
+
+
+def _solve_krylov(P: csr_matrix, w: np.ndarray, rhs: np.ndarray) -> np.ndarray | None:
+    """Z rhs by restarted GMRES on x ↦ x − P x + (w·x) 1, or None if not within budget."""
+    from scipy.sparse.linalg import LinearOperator, gmres
+
+    size = w.size
+
+    def apply(x: np.ndarray) -> np.ndarray:
+        x = np.ravel(x)
+        return np.asarray(x - P @ x + float(w @ x), dtype=np.float64)
+
+    operator = LinearOperator((size, size), matvec=apply, dtype=np.float64)
+    restart = min(64, max(8, _KRYLOV_FLOATS // size), size)
+    cycles = _KRYLOV_PRODUCTS // restart
+    if cycles == 0:
+        return None
+    # scipy 1.12 renamed gmres's relative tolerance from tol to rtol
+    name = "rtol" if "rtol" in inspect.signature(gmres).parameters else "tol"
+    tolerance = {name: _KRYLOV_RTOL}
+    u, _ = gmres(operator, rhs, restart=restart, maxiter=cycles, atol=0.0, **tolerance)
+    u = np.asarray(u, dtype=np.float64)
+    if not np.linalg.norm(rhs - apply(u)) <= _KRYLOV_ACCEPT * np.linalg.norm(rhs):
+        return None
+    return u
+
+
+def _solve_direct(P: csr_matrix, w: np.ndarray, rhs: np.ndarray) -> np.ndarray:
+    """(I − P) u = rhs by sparse LU, the most probable state pinned to u = 0.
 
     Removing one state's row and column leaves a nonsingular matrix for an
-    irreducible chain (the rest is substochastic with an exit reachable
-    from every state); the removed equation holds because π·g = 0.
+    irreducible chain (the rest is substochastic, with an exit reachable
+    from every state); the removed equation holds because w·rhs = 0.
     """
     from scipy import sparse
     from scipy.sparse.linalg import splu
 
-    states = stationary.size
-    keep = np.ones(states, dtype=bool)
-    keep[int(np.argmax(stationary))] = False
-    system = sparse.identity(states, format="csr") - P
+    size = w.size
+    keep = np.ones(size, dtype=bool)
+    keep[int(np.argmax(w))] = False
+    system = sparse.identity(size, format="csr") - P
     reduced = sparse.csc_matrix(system[keep][:, keep])
-    u = np.zeros(states)
-    u[keep] = splu(reduced).solve(g[keep])
-    return u - float(stationary @ u)
-
+    u = np.zeros(size)
+    u[keep] = splu(reduced).solve(rhs[keep])
+    return u
 
 
 class Markov(Source):

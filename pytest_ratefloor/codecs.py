@@ -622,7 +622,7 @@ class CodebookCodec:
         self.codebook = codebook
         self.name = _check_name(getattr(codebook, "name", None) or "codebook")
         self.version: str | None = getattr(codebook, "version", None)
-        self.symbols: list[int] | None = [int(s) for s in codebook.symbols]
+        self.symbols: list[int] | None = [int(s) for s in codebook.sample_symbols()]
 
     def __repr__(self) -> str:
         return f"CodebookCodec(name={self.name!r}, symbols={len(self.codebook)})"

@@ -3,7 +3,8 @@
 ``python -m pytest example_project`` from the repository root must pass against
 the committed ledger, and the documented regression switch
 (``KELPWICK_RICE_RULE=naive``, a worse Rice-parameter rule) must fail exactly
-the one case whose Rice parameter it changes, as a ledger regression. Neither
+the cases whose Rice parameter it changes (one synthetic source and the recorded day of
+level changes), as ledger regressions. Neither
 run may modify the committed ledger. Both runs go in parallel subprocesses
 (the example's ini file, not this repository's, must be the one pytest finds).
 """
@@ -29,6 +30,11 @@ RULE_VARIABLE = "KELPWICK_RICE_RULE"
 # GvV picks k = 4, "2**k nearest the mean" picks k = 5 (see kelpwick/levels.py).
 REGRESSED_SOURCE = sources.two_sided_geometric(0.93).spec
 REGRESSED_ID = f"example_project/tests/test_rates.py::test_levels[{REGRESSED_SOURCE}]"
+# ... and the day of recorded level changes in example_project/corpus, whose mean zig-zag
+# value also sits where the two rules pick different k: the team's own data shows it too.
+CORPUS_SOURCE = sources.corpus(EXAMPLE / "corpus" / "level_changes_one_day.u8",
+                               symbol="zigzag-u8").spec
+CORPUS_ID = f"example_project/tests/test_rates.py::test_levels_day[{CORPUS_SOURCE}]"
 TIMEOUT = 300
 
 
@@ -65,7 +71,7 @@ def _outcomes(output: str) -> dict[str, int]:
     return {word: int(count) for count, word in re.findall(r"(\d+) (passed|failed|error)", final)}
 
 
-def test_example_suite_passes_and_the_regression_switch_fails_one_case(tmp_path: Path) -> None:
+def test_example_suite_passes_and_the_regression_switch_fails_its_cases(tmp_path: Path) -> None:
     assert LEDGER.is_file(), f"the example's committed ledger {LEDGER} is missing"
     before = LEDGER.read_bytes()
     clean = _start(tmp_path, "clean", {}, plot=True)
@@ -86,16 +92,17 @@ def test_example_suite_passes_and_the_regression_switch_fails_one_case(tmp_path:
         assert codec in report
     assert (tmp_path / "clean" / "rates.png").stat().st_size > 0
 
-    # The regression run: exactly one case fails, and it fails on the ledger.
+    # The regression run: exactly the two cases whose Rice parameter the switch changes
+    # fail, and they fail on the ledger.
     assert naive_rc == 1, naive_out
     failed = re.findall(r"^FAILED (\S+)", naive_out, flags=re.MULTILINE)
-    assert failed == [REGRESSED_ID], naive_out
+    assert sorted(failed) == sorted([REGRESSED_ID, CORPUS_ID]), naive_out
     assert (
         "RegressionFailure: rate regression: codec 'kelpwick-levels-rice' on "
         f"{REGRESSED_SOURCE}, n=100000, seed=0"
     ) in naive_out
     assert "RateFailure" not in naive_out  # within the floor tolerance: only the ledger sees it
-    assert _outcomes(naive_out) == {"passed": counts["passed"] - 1, "failed": 1}, naive_out
+    assert _outcomes(naive_out) == {"passed": counts["passed"] - 2, "failed": 2}, naive_out
 
 
 def test_committed_ledger_covers_every_codec_of_the_example() -> None:

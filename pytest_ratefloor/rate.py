@@ -250,7 +250,7 @@ def _layout_of(codec: Codec) -> str | None:
 
 def _varentropy_rate(source: Source) -> float:
     """The sample information's variance per symbol (the varentropy rate for chains)."""
-    return float(getattr(source, "varentropy_rate", source.varentropy))
+    return float(source.varentropy_rate)
 
 
 def _declared_range(source: Source) -> tuple[int, int] | None:

@@ -4,9 +4,9 @@
 ``spec`` (stable, short, safe in a test id; equal specs mean equal
 distributions), its ``entropy``, ``varentropy`` (the variance of one symbol's
 information) and ``varentropy_rate`` (the variance per symbol of a long
-sample's information: what sets the sampling spread of a check), its alphabet bounds, a
-``pmf_table``, the self-information of any symbol sequence, reproducible
-samples, and the two code lengths the floors ask it for:
+sample's information: what sets the sampling spread of a check), its
+alphabet bounds, a ``pmf_table``, the self-information of any symbol
+sequence, reproducible samples, and the two code lengths the floors ask it for:
 :meth:`Source.optimal_code_rate` (the best symbol-by-symbol prefix code) and
 :meth:`Source.adaptive_code_length` (the Krichevsky–Trofimov ideal code length
 of a sample). The base class answers both for a memoryless source; sources

@@ -14,7 +14,6 @@ sparse transition graph for large ones). The checks of a stochastic matrix
 
 from __future__ import annotations
 
-import inspect
 import math
 from bisect import bisect_right
 from collections.abc import Sequence
@@ -176,7 +175,7 @@ _KRYLOV_PRODUCTS = 2000
 #: Floats the Krylov basis may hold (restart length × states; 32 MiB).
 _KRYLOV_FLOATS = 1 << 22
 #: Residual of the Poisson equation, relative to its right-hand side, that
-#: GMRES aims at, and the largest accepted from it.
+#: GMRES aims at, and the largest accepted from it (:func:`_solve_krylov`).
 _KRYLOV_RTOL = 1e-12
 _KRYLOV_ACCEPT = 1e-10
 
@@ -360,28 +359,68 @@ def _solve_sparse(
 
 
 def _solve_krylov(P: csr_matrix, w: np.ndarray, rhs: np.ndarray) -> np.ndarray | None:
-    """Z rhs by restarted GMRES on x ↦ x − P x + (w·x) 1, or None if not within budget."""
-    from scipy.sparse.linalg import LinearOperator, gmres
+    """Z rhs by restarted GMRES on x ↦ x − P x + (w·x) 1, or None if not within budget.
 
+    GMRES (from memory: Saad & Schultz 1986) restarted every ``restart``
+    products, the basis orthogonalised by classical Gram–Schmidt run twice
+    (matrix–vector products with the basis, so each step costs
+    O(edges + restart × states)); at most :data:`_KRYLOV_PRODUCTS` products
+    in all, each cycle ending with the true residual. It stops at a residual
+    of :data:`_KRYLOV_RTOL` × ‖rhs‖, or once an accepted residual
+    (:data:`_KRYLOV_ACCEPT` × ‖rhs‖) stops halving from one cycle to the next.
+    """
     size = w.size
 
     def apply(x: np.ndarray) -> np.ndarray:
-        x = np.ravel(x)
         return np.asarray(x - P @ x + float(w @ x), dtype=np.float64)
 
-    operator = LinearOperator((size, size), matvec=apply, dtype=np.float64)
-    restart = min(64, max(8, _KRYLOV_FLOATS // size), size)
-    cycles = _KRYLOV_PRODUCTS // restart
-    if cycles == 0:
-        return None
-    # scipy 1.12 renamed gmres's relative tolerance from tol to rtol
-    name = "rtol" if "rtol" in inspect.signature(gmres).parameters else "tol"
-    tolerance = {name: _KRYLOV_RTOL}
-    u, _ = gmres(operator, rhs, restart=restart, maxiter=cycles, atol=0.0, **tolerance)
-    u = np.asarray(u, dtype=np.float64)
-    if not np.linalg.norm(rhs - apply(u)) <= _KRYLOV_ACCEPT * np.linalg.norm(rhs):
-        return None
-    return u
+    restart = min(64, max(8, _KRYLOV_FLOATS // size - 1), size)
+    scale = float(np.linalg.norm(rhs))
+    aim, accept = _KRYLOV_RTOL * scale, _KRYLOV_ACCEPT * scale
+    basis = np.empty((restart + 1, size))
+    x = np.zeros(size)
+    residual = rhs.copy()
+    beta = scale
+    used = 0
+    while beta > aim and used + 2 <= _KRYLOV_PRODUCTS:
+        steps = min(restart, _KRYLOV_PRODUCTS - used - 1)
+        triangle = np.zeros((steps + 1, steps))  # the Hessenberg matrix, rotated to R
+        rotations: list[tuple[float, float]] = []
+        g = np.zeros(steps + 1)  # the rotated right-hand side β e₁
+        g[0] = beta
+        basis[0] = residual / beta
+        done = 0
+        for k in range(steps):
+            v = apply(basis[k])
+            used += 1
+            h = basis[: k + 1] @ v
+            v -= h @ basis[: k + 1]
+            again = basis[: k + 1] @ v
+            v -= again @ basis[: k + 1]
+            column = np.append(h + again, np.linalg.norm(v))
+            length = float(column[-1])
+            for i, (c, s) in enumerate(rotations):  # Givens rotations of the earlier steps
+                column[i], column[i + 1] = c * column[i] + s * column[i + 1], (
+                    -s * column[i] + c * column[i + 1]
+                )
+            r = math.hypot(column[k], column[k + 1])
+            c, s = (column[k] / r, column[k + 1] / r) if r > 0.0 else (1.0, 0.0)
+            rotations.append((c, s))
+            column[k], column[k + 1] = r, 0.0
+            triangle[: k + 2, k] = column
+            g[k + 1], g[k] = -s * g[k], c * g[k]
+            done = k + 1
+            if abs(g[k + 1]) <= aim or length == 0.0:
+                break
+            basis[k + 1] = v / length
+        y = np.linalg.solve(np.triu(triangle[:done, :done]), g[:done])
+        x = x + y @ basis[:done]
+        residual = rhs - apply(x)
+        used += 1
+        previous, beta = beta, float(np.linalg.norm(residual))
+        if beta <= accept and beta > 0.5 * previous:
+            break  # at the rounding floor
+    return x if beta <= accept else None
 
 
 def _solve_direct(P: csr_matrix, w: np.ndarray, rhs: np.ndarray) -> np.ndarray:

@@ -97,6 +97,14 @@ test_faults = gate(
 )
 
 
+# Calm and storm in turn: the flags' statistics change every few hours. The range coder's
+# counts never forget, so it pays for every change: about 40 % over the sample's exact
+# information, which knows where each segment starts. That cost is the coder's design,
+# measured against a true floor; the ledger keeps it from growing.
+STORMS = sources.piecewise([(sources.bernoulli(0.002), 10_000), (sources.bernoulli(0.2), 5_000)])
+test_faults_calm_and_storm = gate(FAULTS, sources=[STORMS], n=60_000, rel=0.5)
+
+
 def test_fault_flags_in_a_storm(ratefloor):
     # corruption=True: damaged messages must fail cleanly or decode to n flags, never hang.
     ratefloor.check(FAULTS, sources.bernoulli(0.2), n=20_000, floor="adaptive",

@@ -25,7 +25,7 @@ from __future__ import annotations
 
 import dataclasses
 from collections.abc import Callable, Iterable, Mapping
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, cast
 
 import pytest
 
@@ -156,7 +156,7 @@ class RateFloorHarness:
 
 def gate(
     codec: Any,
-    sources: Iterable[Source] | Mapping[Source, CheckOptions] | None = None,
+    sources: Source | Iterable[Source] | Mapping[Source, CheckOptions] | None = None,
     **options: Unpack[CheckOptions],
 ) -> Callable[..., None]:
     """A test function that checks ``codec`` on every source (default: the standard suite).
@@ -203,8 +203,10 @@ def gate(
     elif isinstance(sources, Mapping):
         suite = list(sources)
         own = sources
+    elif isinstance(getattr(sources, "spec", None), str):
+        suite = [cast("Source", sources)]  # one source (one corpus file): a suite of one
     else:
-        suite = list(sources)
+        suite = list(cast("Iterable[Source]", sources))
     if not suite:
         raise ValueError("gate(sources=...) needs at least one source, got none")
     for s in suite:

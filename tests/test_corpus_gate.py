@@ -82,3 +82,22 @@ def test_the_ledger_gates_corpus_cases_like_synthetic_ones(pytester: pytest.Pyte
     result = pytester.runpytest(*INNER)
     result.assert_outcomes(passed=2)
     result.stdout.fnmatch_lines(["*monday.log*new*"])  # a new case, not a false comparison
+
+
+def test_corpus_of_a_folder_or_glob_is_one_case_per_file_and_gate_takes_either(
+    tmp_path: Path,
+) -> None:
+    from pytest_ratefloor import gate
+
+    (tmp_path / "a.u8").write_bytes(b"tide" * 50)
+    (tmp_path / "b.u8").write_bytes(b"ebb" * 60)
+    many = sources.corpus(tmp_path)
+    assert isinstance(many, list)
+    assert [c.spec.split(",")[0] for c in many] == ["corpus(name=a.u8", "corpus(name=b.u8"]
+    assert [c.spec for c in sources.corpus(str(tmp_path / "*.u8"))] == [c.spec for c in many]
+    one = sources.corpus(tmp_path / "a.u8")
+    assert not isinstance(one, list)
+    for suite in (one, many):
+        test = gate(_zlib(), sources=suite)
+        marks = [m for m in test.pytestmark if m.name == "parametrize"]  # type: ignore[attr-defined]
+        assert len(marks[0].args[1]) == (1 if suite is one else 2)

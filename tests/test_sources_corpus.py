@@ -203,8 +203,11 @@ def test_names_are_readable_and_safe(tmp_path):
 def test_errors_are_named(tmp_path, tides):
     with pytest.raises(FileNotFoundError):
         sources.corpus(tmp_path / "missing.u8")
+    # the one-file reader names a folder; sources.corpus(folder) gives one source per file
+    from pytest_ratefloor.sources.corpora import corpus as one_file
+
     with pytest.raises(ValueError, match=r"is a folder; corpus_files\(.*\) gives one source"):
-        sources.corpus(tmp_path)
+        one_file(tmp_path)
     empty = tmp_path / "empty.u8"
     empty.write_bytes(b"")
     with pytest.raises(ValueError, match=r"^corpus: .*empty\.u8 is empty; a corpus needs"):

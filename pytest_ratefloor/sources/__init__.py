@@ -132,13 +132,17 @@ def empirical(data: ArrayLike | bytes, order: int = 0) -> Empirical:
 
 def corpus(
     path: str | os.PathLike[str], symbol: str = "u8", *, max_bytes: int = MAX_CORPUS_BYTES
-) -> Corpus:
-    """One file's own symbols as a source (``sample(n)`` is its first n symbols, any seed).
+) -> Corpus | list[Corpus]:
+    """A file's own symbols as a source (``sample(n)`` is its first n symbols, any seed);
+    a folder or a glob gives one per file, as :func:`corpus_files` does (a list).
 
     Entropy: the order-0 plug-in estimate of the whole file (``is_estimate``);
     spec ``corpus(name=<base name>,sha=<12 hex of SHA-256>,symbol=<layout>)``.
-    A folder or a glob: :func:`corpus_files`. See :class:`Corpus`.
+    ``gate(codec, sources=corpus(...))`` takes either form. See :class:`Corpus`.
     """
+    text = os.fspath(path)
+    if os.path.isdir(text) or (not os.path.exists(text) and any(c in str(text) for c in "*?[")):
+        return _corpus_files(path, symbol, max_bytes=max_bytes)
     return _corpus(path, symbol, max_bytes=max_bytes)
 
 

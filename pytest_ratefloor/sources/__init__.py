@@ -140,9 +140,10 @@ def corpus(
     spec ``corpus(name=<base name>,sha=<12 hex of SHA-256>,symbol=<layout>)``.
     ``gate(codec, sources=corpus(...))`` takes either form. See :class:`Corpus`.
     """
-    text = os.fspath(path)
-    if os.path.isdir(text) or (not os.path.exists(text) and any(c in str(text) for c in "*?[")):
-        return _corpus_files(path, symbol, max_bytes=max_bytes)
+    if isinstance(path, (str, os.PathLike)):  # anything else: the reader names it
+        text = str(os.fspath(path))
+        if os.path.isdir(text) or (not os.path.exists(text) and any(c in text for c in "*?[")):
+            return _corpus_files(path, symbol, max_bytes=max_bytes)
     return _corpus(path, symbol, max_bytes=max_bytes)
 
 

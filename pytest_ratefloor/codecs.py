@@ -47,10 +47,9 @@ finds a name for that object and writes the line.
 
 from __future__ import annotations
 
-from collections.abc import Callable, Iterator, Mapping
-from collections.abc import Set as AbstractSet
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass
-from typing import TYPE_CHECKING, Any, Literal, Protocol, get_args, runtime_checkable
+from typing import TYPE_CHECKING, Any, Protocol, runtime_checkable
 
 import numpy as np
 from bitarray import bitarray
@@ -58,6 +57,17 @@ from bitarray import bitarray
 from pytest_ratefloor import validation
 from pytest_ratefloor.errors import CodecContractError, LayoutError
 from pytest_ratefloor.layouts import AUTO, LAYOUTS, pack, packed_size, resolve_layout, unpack
+from pytest_ratefloor.streams import (
+    PAYLOAD_KINDS,
+    Encoded,
+    PayloadKind,
+    PayloadShape,
+    bytes_of,
+    decoded_array,
+    encoded_from_stream,
+    symbols_from_decoder,
+    type_name,
+)
 
 if TYPE_CHECKING:
     from pytest_ratefloor.sources import Source
@@ -79,128 +89,6 @@ __all__ = [
     "encoded_from_stream",
     "symbols_from_decoder",
 ]
-
-#: The three payload shapes an encoder may return (see :func:`encoded_from_stream`).
-PayloadKind = Literal["bytes", "bitarray", "pair"]
-PAYLOAD_KINDS: tuple[PayloadKind, ...] = get_args(PayloadKind)
-
-BitOrder = Literal["big", "little"]
-_BIT_ORDERS: tuple[BitOrder, ...] = get_args(BitOrder)
-
-
-@dataclass(frozen=True)
-class Encoded:
-    """What one encoder call produced.
-
-    ``payload`` is handed back to the decoder unchanged (byte strings are
-    snapshotted as ``bytes`` so a buffer the encoder reuses cannot change them
-    afterwards); ``bits`` is the exact length charged to the codec. The
-    payload is one of the shapes of :data:`PAYLOAD_KINDS`: ``bytes``, a
-    ``bitarray`` or a ``(bytes, nbits)`` pair.
-    """
-
-    payload: Any
-    bits: int
-
-    @property
-    def stream(self) -> bytes:
-        """The payload as bytes: a byte string as it is, a ``bitarray`` with its
-        last byte padded by zero bits, the bytes of a ``(bytes, nbits)`` pair."""
-        data = self.payload
-        if isinstance(data, tuple):
-            data = data[0]
-        if isinstance(data, bitarray):
-            return data.tobytes()
-        return bytes(data)
-
-    @property
-    def shape(self) -> PayloadShape:
-        """The payload's shape: what :meth:`rebuild` needs besides the bytes."""
-        data = self.payload
-        if isinstance(data, bitarray):
-            endian: BitOrder = "little" if data.endian == "little" else "big"
-            return PayloadShape("bitarray", pad=-len(data) % 8, endian=endian)
-        if isinstance(data, tuple):
-            return PayloadShape("pair", pad=8 * len(data[0]) - self.bits)
-        if isinstance(data, (bytes, bytearray, memoryview)):
-            return PayloadShape("bytes")
-        raise TypeError(
-            f"payload of type {_type_name(data)} has no stream shape; expected one of "
-            f"{_ENCODER_SHAPES}"
-        )
-
-    def rebuild(self, data: bytes) -> Encoded:
-        """``data`` (e.g. a damaged copy of :attr:`stream`) in this payload's shape."""
-        return self.shape.rebuild(data)
-
-    def signature(self) -> tuple[int, bytes]:
-        """Canonical (bits, bytes) of the payload, for determinism comparisons."""
-        return self.bits, self.stream
-
-
-@dataclass(frozen=True)
-class PayloadShape:
-    """How a payload is laid out apart from its bytes, so that other bytes
-    (a damaged copy of the stream, a saved file) can be handed to the decoder
-    in the shape the encoder returned.
-
-    ``kind`` is one of :data:`PAYLOAD_KINDS`; ``pad`` the number of unused
-    bits at the end of the last byte (0..7; always 0 for ``"bytes"``);
-    ``endian`` the bit order of a ``bitarray`` payload.
-    """
-
-    kind: PayloadKind
-    pad: int = 0
-    endian: BitOrder = "big"
-
-    def __post_init__(self) -> None:
-        validation.choice(self.kind, "payload kind", PAYLOAD_KINDS)
-        validation.integer(self.pad, "pad", minimum=0, maximum=0 if self.kind == "bytes" else 7)
-        validation.choice(self.endian, "endian", _BIT_ORDERS)
-
-    def bits_of(self, size: int) -> int:
-        """The bit count of a stream of ``size`` bytes in this shape:
-        ``8·size`` less the padding (never below 0)."""
-        return max(0, 8 * size - self.pad)
-
-    def rebuild(self, data: bytes) -> Encoded:
-        """``data`` as a payload of this shape, with its bit count.
-
-        ``"bytes"`` → the bytes; ``"bitarray"`` → a ``bitarray`` of the same
-        endianness holding the first :meth:`bits_of` ``(len(data))`` bits;
-        ``"pair"`` → ``(data, that many bits)``. So an unchanged length keeps
-        the exact bit count, a cut removes whole bytes from the end, appended
-        bytes add 8 bits each, and flips in padding bits change nothing.
-        """
-        if type(data) is not bytes:
-            data = bytes(data)
-        if self.kind == "bytes":
-            return Encoded(payload=data, bits=8 * len(data))
-        nbits = self.bits_of(len(data))
-        if self.kind == "pair":
-            return Encoded(payload=(data, nbits), bits=nbits)
-        bits = bitarray(endian=self.endian)
-        bits.frombytes(data)
-        del bits[nbits:]
-        return Encoded(payload=bits, bits=nbits)
-
-    def to_record(self, size: int) -> dict[str, Any]:
-        """Builtin-only description of a ``size``-byte stream in this shape
-        (``shape``, ``nbits``, ``endian``), e.g. for a JSON file beside it."""
-        return {"shape": self.kind, "nbits": self.bits_of(size), "endian": self.endian}
-
-    @classmethod
-    def from_record(cls, record: Mapping[str, Any], size: int) -> PayloadShape:
-        """The shape described by :meth:`to_record` for a stream of ``size`` bytes.
-
-        Missing fields mean a plain byte string (``shape``), a full last byte
-        (``nbits``) and big-endian bits (``endian``).
-        """
-        kind = record.get("shape", "bytes")
-        nbits = validation.integer(record.get("nbits", 8 * size), "nbits", minimum=0)
-        pad = 0 if kind == "bytes" or size == 0 else 8 * size - nbits
-        return cls(kind, pad=pad, endian=record.get("endian", "big"))
-
 
 @runtime_checkable
 class Codec(Protocol):
@@ -252,15 +140,11 @@ class ReplayCall:
         return f"{name}{attribute}({self.args})"
 
 
-def _type_name(value: object) -> str:
-    return type(value).__name__
-
-
 def _callable_name(fn: Callable[..., Any]) -> str:
     module = getattr(fn, "__module__", None)
     qual = getattr(fn, "__qualname__", None) or getattr(fn, "__name__", None)
     if qual is None:
-        return _type_name(fn)
+        return type_name(fn)
     return f"{module}.{qual}" if module and module != "builtins" else str(qual)
 
 
@@ -272,174 +156,6 @@ def _check_version(version: object) -> str | None:
     if version is not None and not isinstance(version, str):
         raise TypeError(validation.message("codec version", "a string or None", version))
     return version
-
-
-def _bytes_of(value: object) -> bytes | None:
-    """``bytes`` for bytes-like values (snapshot), ``None`` for anything else."""
-    if isinstance(value, bytes):
-        return value
-    if isinstance(value, (bytearray, memoryview)):
-        return bytes(value)
-    return None
-
-
-_ENCODER_SHAPES = "bytes, bytearray, memoryview, bitarray or a (bytes, nbits) pair"
-
-
-def encoded_from_stream(value: object) -> Encoded:
-    """Validate what a stream encoder returned and count its bits.
-
-    ``bitarray`` → ``len`` bits; ``bytes``/``bytearray``/``memoryview`` →
-    ``8·len`` bits; ``(bytes-like, nbits)`` → ``nbits`` bits, which must lie in
-    ``(8·(len−1), 8·len]`` (or be 0 for an empty byte string) so that the
-    bytes carry no unaccounted whole byte.
-    """
-    if isinstance(value, bitarray):
-        return Encoded(payload=value, bits=len(value))
-    raw = _bytes_of(value)
-    if raw is not None:
-        return Encoded(payload=raw, bits=8 * len(raw))
-    if isinstance(value, tuple):
-        if len(value) != 2:
-            raise CodecContractError(
-                f"encoder returned a tuple of {len(value)} items; expected {_ENCODER_SHAPES}"
-            )
-        data, nbits = value
-        raw = _bytes_of(data)
-        if raw is None:
-            raise CodecContractError(
-                f"encoder returned ({_type_name(data)}, nbits); the first item must be "
-                "bytes, bytearray or memoryview"
-            )
-        if isinstance(nbits, (bool, np.bool_)) or not isinstance(nbits, (int, np.integer)):
-            raise CodecContractError(
-                f"encoder returned (bytes, {nbits!r}): nbits must be an int, "
-                f"got {_type_name(nbits)}"
-            )
-        nbits = int(nbits)
-        lo, hi = (8 * (len(raw) - 1) + 1, 8 * len(raw)) if raw else (0, 0)
-        if not lo <= nbits <= hi:
-            raise CodecContractError(
-                f"encoder returned {len(raw)} bytes with nbits={nbits}; {len(raw)} bytes hold "
-                f"{lo}..{hi} bits (a whole unused byte would be information the rate "
-                "does not count)"
-            )
-        return Encoded(payload=(raw, nbits), bits=nbits)
-    raise CodecContractError(f"encoder returned {_type_name(value)}; expected {_ENCODER_SHAPES}")
-
-
-def _expected(n: int) -> str:
-    return f"expected a sequence or array of {n} integers (a list, tuple or 1-D numpy array)"
-
-
-def _not_a_sequence(value: object) -> str | None:
-    """What a decoder's output is, when it is plainly no sequence of symbols."""
-    kind = _type_name(value)
-    if value is None:
-        return "NoneType (nothing: a missing return statement?)"
-    if isinstance(value, str):
-        return f"str {validation.show(value)} (text, not symbols)"
-    if isinstance(value, Mapping):
-        return f"{kind} (a mapping, not a sequence)"
-    if isinstance(value, AbstractSet):
-        return f"{kind} (a set: its order is arbitrary)"
-    if isinstance(value, Iterator):
-        return (
-            f"{kind} (an iterator or generator: it can be read once only, so it cannot be "
-            "checked; return a list or an array)"
-        )
-    return None
-
-
-def decoded_array(value: object, n: int) -> np.ndarray:
-    """A decoder's output as a flat int64 array, of whatever length it has.
-
-    The checks of :func:`symbols_from_decoder` except the length: what is no
-    sequence of integers raises :class:`CodecContractError` naming the type
-    returned (and the value, or the first item that is no integer) and what was
-    expected (``n`` integers).
-    """
-    problem = _not_a_sequence(value)
-    if problem is not None:
-        raise CodecContractError(f"decoder returned {problem}; {_expected(n)}")
-    if isinstance(value, bitarray):
-        arr: np.ndarray = np.frombuffer(value.unpack(), dtype=np.uint8)
-    elif isinstance(value, (bytes, bytearray)) or (
-        isinstance(value, memoryview) and value.format in ("B", "b", "c")
-    ):
-        arr = np.frombuffer(bytes(value), dtype=np.uint8)
-    elif isinstance(value, np.ndarray):
-        arr = value
-    else:
-        try:
-            arr = np.asarray(value)
-        except (TypeError, ValueError, OverflowError) as exc:
-            raise CodecContractError(
-                f"decoder returned {_type_name(value)} that is not a sequence of integers "
-                f"({exc}); {_expected(n)}"
-            ) from exc
-    if arr.ndim == 0:
-        raise CodecContractError(
-            f"decoder returned {_type_name(value)} {validation.show(value)}, a single value "
-            f"and not a sequence; {_expected(n)}"
-        )
-    if arr.ndim != 1:
-        raise CodecContractError(
-            f"decoder returned {_type_name(value)} of shape {arr.shape}; expected a flat "
-            f"(1-D) sequence of {n} integers"
-        )
-    if arr.size == 0 and arr.dtype.kind in "fO":
-        arr = np.zeros(0, dtype=np.int64)  # an empty list has no integer dtype of its own
-    if arr.dtype.kind == "O":
-        bad = next(
-            (i for i, v in enumerate(arr.tolist())
-             if isinstance(v, bool) or not isinstance(v, int)),
-            None,
-        )
-        if bad is not None:
-            item = arr[bad]
-            raise CodecContractError(
-                f"decoder returned object values ({_type_name(value)} of dtype object holding "
-                f"{_type_name(item)} {validation.show(item)} at index {bad}); expected integers"
-            )
-        try:
-            arr = arr.astype(np.int64)
-        except OverflowError as exc:
-            raise CodecContractError("decoder returned integers outside the int64 range") from exc
-    elif arr.dtype.kind not in "iub":
-        kind = {"f": "floats", "c": "complex numbers", "U": "strings", "S": "bytes"}.get(
-            arr.dtype.kind, f"{arr.dtype} values"
-        )
-        first = validation.show(arr[0]) if arr.size else "none"
-        raise CodecContractError(
-            f"decoder returned {kind} ({_type_name(value)} of dtype {arr.dtype}, first "
-            f"{first}); expected integers"
-        )
-    if arr.dtype == np.uint64 and len(arr) and int(arr.max()) > np.iinfo(np.int64).max:
-        raise CodecContractError(
-            f"decoder returned integers outside the int64 range (up to {int(arr.max())})"
-        )
-    return arr if arr.dtype == np.int64 else arr.astype(np.int64)
-
-
-def symbols_from_decoder(value: object, n: int) -> np.ndarray:
-    """Validate a decoder's output: exactly ``n`` integers, as an int64 array.
-
-    Accepted: numpy integer arrays, numpy bool arrays and ``bitarray`` (each item
-    one binary symbol, 0 or 1), sequences of ints (a list, a tuple, a ``range``,
-    an object array of Python ints), ``bytes``/``bytearray`` and byte
-    ``memoryview`` (each byte one symbol; a ``memoryview`` of wider items gives
-    its items). Rejected with a :class:`CodecContractError` naming the type
-    returned and what is expected: ``None``, ``str``, mappings, sets, iterators
-    and generators (which would be used up by reading them), single values,
-    arrays of more than one dimension, floats and other non-integers (an object
-    array holding a ``bool``, a float or ``None`` names the first such item), and
-    any length other than ``n``.
-    """
-    arr = decoded_array(value, n)
-    if len(arr) != n:
-        raise CodecContractError(f"decoder returned {len(arr)} symbols; expected n={n}")
-    return arr
 
 
 class StreamCodec:
@@ -574,10 +290,10 @@ class ByteCodec:
         """Write the symbols in the layout, compress, and charge ``8 · len`` bits."""
         layout = resolve_layout(self.symbol)
         out = self._compress(pack(symbols, layout, trusted=self._trusted))
-        raw = _bytes_of(out)
+        raw = bytes_of(out)
         if raw is None:
             raise CodecContractError(
-                f"compressor returned {_type_name(out)}; expected bytes, bytearray or memoryview"
+                f"compressor returned {type_name(out)}; expected bytes, bytearray or memoryview"
             )
         return Encoded(payload=raw, bits=8 * len(raw))
 
@@ -588,10 +304,10 @@ class ByteCodec:
             out = self._decompress(encoded.payload, n)
         else:
             out = self._decompress(encoded.payload)
-        raw = _bytes_of(out)
+        raw = bytes_of(out)
         if raw is None:
             raise CodecContractError(
-                f"decompressor returned {_type_name(out)}; expected bytes, bytearray or "
+                f"decompressor returned {type_name(out)}; expected bytes, bytearray or "
                 "memoryview"
             )
         want = packed_size(n, layout)
@@ -636,7 +352,7 @@ class CodebookCodec:
         """Encode with the codebook; exact bits."""
         out = self.codebook.encode(symbols)
         if not isinstance(out, bitarray):
-            raise CodecContractError(f"codebook encoder returned {_type_name(out)}, not bitarray")
+            raise CodecContractError(f"codebook encoder returned {type_name(out)}, not bitarray")
         return Encoded(payload=out, bits=len(out))
 
     def decode(self, encoded: Encoded, n: int) -> np.ndarray:
@@ -689,7 +405,7 @@ def as_codec(obj: object) -> Codec:
             raise TypeError(
                 f"codec pair must be two callables (encode, decode), got {validation.show(obj)}"
             )
-        name = getattr(pair_decode, "__qualname__", None) or _type_name(pair_decode)
+        name = getattr(pair_decode, "__qualname__", None) or type_name(pair_decode)
         return StreamCodec(pair_encode, pair_decode, name=name)
     encode = getattr(obj, "encode", None)
     decode = getattr(obj, "decode", None)
@@ -698,13 +414,13 @@ def as_codec(obj: object) -> Codec:
         return StreamCodec(
             encode,
             decode,
-            name=name if isinstance(name, str) and name else _type_name(obj),
+            name=name if isinstance(name, str) and name else type_name(obj),
             version=getattr(obj, "version", None)
             if isinstance(getattr(obj, "version", None), str)
             else None,
         )
     raise TypeError(
-        f"cannot use {_type_name(obj)} as a codec; expected StreamCodec, ByteCodec, "
+        f"cannot use {type_name(obj)} as a codec; expected StreamCodec, ByteCodec, "
         "CommandCodec, Codebook, a {symbol: codeword} mapping, an (encode, decode) pair of "
         "callables, or an object with encode(symbols) and decode(data, n)"
     )

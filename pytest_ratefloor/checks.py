@@ -17,6 +17,7 @@ from __future__ import annotations
 import dataclasses
 import enum
 import os
+import sys
 import warnings
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
@@ -372,6 +373,18 @@ def _survive_damage(trip: RoundTrip, settings: DamageSettings, save_dir: SaveDir
                    save_dir=save_dir, **settings)
 
 
+def _outside_the_package() -> int:
+    """The ``stacklevel`` that points a warning at the first caller outside this package
+    (the user's test line, however many of the plugin's frames lie between)."""
+    package = os.path.dirname(os.path.abspath(__file__))
+    frame = sys._getframe(2)  # the caller of the function that asks
+    level = 2
+    while frame is not None and os.path.abspath(frame.f_code.co_filename).startswith(package):
+        frame = frame.f_back  # type: ignore[assignment]
+        level += 1
+    return level
+
+
 def _case(codec: Any, source: Source, plan: CheckPlan) -> str:
     """The case in messages about the codec's process (checked before any work)."""
     _check_source(source)
@@ -424,7 +437,7 @@ def run_check(
     m, failure, damage = _guarded(work, codec, source, plan)
     noisy = noise_warning(m)
     if noisy is not None:
-        warnings.warn(NoisyToleranceWarning(noisy), stacklevel=2)
+        warnings.warn(NoisyToleranceWarning(noisy), stacklevel=_outside_the_package())
     if on_measurement is not None:
         try:
             on_measurement(m)

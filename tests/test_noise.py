@@ -145,3 +145,14 @@ def test_the_default_check_warns_nothing_on_a_well_sized_case() -> None:
     with warnings.catch_warnings():
         warnings.simplefilter("error", NoisyToleranceWarning)
         check(codec, sources.uniform(256), n=20_000, rel=0.05, edge_cases=False)
+
+
+def test_the_warning_points_at_the_users_line() -> None:
+    codec = ByteCodec(lambda b: zlib.compress(b, 9), zlib.decompress, name="z")
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        with pytest.raises(AssertionError):  # zlib misses 1 % of a tiny floor
+            check(codec, sources.bernoulli(0.01), n=1000, rel=0.01, edge_cases=False)
+    noisy = [w for w in caught if issubclass(w.category, NoisyToleranceWarning)]
+    assert noisy
+    assert noisy[0].filename == __file__  # not a frame inside the plugin

@@ -46,6 +46,8 @@ _EXPORTS: dict[str, str] = {
     "AmbiguousCode": "pytest_ratefloor.errors",
     "RegressionFailure": "pytest_ratefloor.errors",
     "CorruptionFailure": "pytest_ratefloor.errors",
+    "NewCaseFailure": "pytest_ratefloor.errors",
+    "NoisyToleranceWarning": "pytest_ratefloor.errors",
     "LedgerError": "pytest_ratefloor.errors",
 }
 
@@ -100,6 +102,12 @@ if TYPE_CHECKING:  # pragma: no cover - for type checkers only
     )
     from pytest_ratefloor.errors import (
         LedgerError as LedgerError,
+    )
+    from pytest_ratefloor.errors import (
+        NewCaseFailure as NewCaseFailure,
+    )
+    from pytest_ratefloor.errors import (
+        NoisyToleranceWarning as NoisyToleranceWarning,
     )
     from pytest_ratefloor.errors import (
         PrefixFailure as PrefixFailure,

@@ -7,6 +7,10 @@ estimate a file's entropy.
     ratefloor diff OLD NEW [--slack REL] [--format text|md] [--allow-dropped]
     ratefloor prune LEDGER --report REPORT.json [--dry-run]
     ratefloor entropy FILE... [--symbol LAYOUT] [--order K]
+    ratefloor history [REV ...] [--ledger PATH] [--format text|md|json] [--repo DIR]
+
+``history`` shows the ledger as committed at each tag (or each REV) through git,
+one table per codec (:mod:`pytest_ratefloor.history`).
 
 ``show`` lists each case with its layout (how the codec turned symbols into
 bytes or bits, when the ledger knows it).
@@ -70,6 +74,7 @@ from pytest_ratefloor.errors import CommandLineError, LedgerError
 from pytest_ratefloor.escaping import json_safe, markdown_text, md_name, terminal_text
 from pytest_ratefloor.layouts import LAYOUTS
 from pytest_ratefloor.ledger import (
+    DEFAULT_LEDGER_NAME,
     Environment,
     Ledger,
     entry_json,
@@ -530,6 +535,18 @@ def build_parser() -> argparse.ArgumentParser:
                        help="how the bytes form symbols (default u8)")
     p_ent.add_argument("--order", type=int, default=1, metavar="K",
                        help="context length of the conditional estimate (default 1; 0: none)")
+    p_hist = sub.add_parser(
+        "history", help="the committed ledger at each release (git tags or REVs), per codec"
+    )
+    p_hist.add_argument("revisions", nargs="*", metavar="REV",
+                        help="revisions to compare, in this order (default: every tag, "
+                             "oldest first by creation date)")
+    p_hist.add_argument("--ledger", default=DEFAULT_LEDGER_NAME, metavar="PATH",
+                        help="the ledger, relative to the repository root "
+                             f"(default {DEFAULT_LEDGER_NAME})")
+    p_hist.add_argument("--format", choices=("text", "md", "json"), default="text")
+    p_hist.add_argument("--repo", default=".", metavar="DIR",
+                        help="a directory inside the git repository (default: .)")
     return parser
 
 
@@ -556,6 +573,12 @@ def _run(args: argparse.Namespace) -> int:
         figures = [entropy_figures(Path(f), args.symbol, args.order) for f in args.files]
         sys.stdout.write("\n".join(render_entropy(f) for f in figures) + "\n")
         sys.stdout.write(ENTROPY_NOTE + "\n")
+        return 0
+    if args.command == "history":
+        from pytest_ratefloor import history
+
+        found = history.collect(Path(args.repo), args.revisions, args.ledger)
+        sys.stdout.write(history.render(found, args.format))
         return 0
     raise CommandLineError(f"unknown command {args.command!r}")  # pragma: no cover
 

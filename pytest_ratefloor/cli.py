@@ -505,6 +505,9 @@ def build_parser() -> argparse.ArgumentParser:
         description="Inspect and prune pytest-ratefloor ledgers and estimate the entropy of "
                     "data files.",
     )
+    from pytest_ratefloor import __version__
+
+    parser.add_argument("--version", action="version", version=f"ratefloor {__version__}")
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
     p_show = sub.add_parser("show", help="print a ledger as a release-notes table")
     p_show.add_argument("ledger", metavar="LEDGER")

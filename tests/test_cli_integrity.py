@@ -279,3 +279,11 @@ def test_no_traceback_from_the_console_script(extreme: tuple[Path, Path]) -> Non
                               capture_output=True, text=True, check=False)
         assert done.returncode in (0, 1)
         assert done.stderr == ""
+
+
+def test_version_prints_the_package_version(capsys: pytest.CaptureFixture[str]) -> None:
+    from pytest_ratefloor import __version__
+    from pytest_ratefloor.cli import main
+
+    assert main(["--version"]) == 0
+    assert capsys.readouterr().out.strip() == f"ratefloor {__version__}"

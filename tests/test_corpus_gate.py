@@ -9,12 +9,11 @@ file must be noticed (its spec carries a content hash).
 
 from __future__ import annotations
 
-import os
 import zlib
 from pathlib import Path
 
 import pytest
-from test_plugin import INNER, ledger_bits
+from test_plugin import INNER, _clean_environment, ledger_bits  # noqa: F401 (autouse fixture)
 
 from pytest_ratefloor import ByteCodec, sources
 from pytest_ratefloor.checks import check
@@ -38,13 +37,6 @@ def test_a_context_compressor_below_the_order0_information_is_not_impossible(
     m = check(_zlib(), corpus, n=corpus.length, rel=0.0)  # short file, edge cases on
     assert m.bits < 0.5 * order0_bits  # far below: context, not a side channel
     assert m.sample_information is None  # no hard limit for a fixed sample
-
-
-@pytest.fixture(autouse=True)
-def _clean_environment(monkeypatch: pytest.MonkeyPatch) -> None:
-    for name in list(os.environ):
-        if name.startswith("PYTEST_XDIST") or name in ("PYTEST_ADDOPTS", "GITHUB_STEP_SUMMARY"):
-            monkeypatch.delenv(name)
 
 
 GATED = '''

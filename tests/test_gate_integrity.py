@@ -17,25 +17,18 @@ import sys
 import time
 
 import pytest
-from test_plugin import (
+from test_plugin import (  # _clean_environment: the autouse fixture of those runs
     ALPHA_BITS,
     BETA_BITS,
     INNER,
     LEDGER_NAME,
     TESTS,
+    _clean_environment,  # noqa: F401
     ledger_bits,
     make_project,
     run,
     set_pad,
 )
-
-
-@pytest.fixture(autouse=True)
-def _clean_environment(monkeypatch: pytest.MonkeyPatch) -> None:
-    for name in list(os.environ):
-        if name.startswith("PYTEST_XDIST") or name in ("PYTEST_ADDOPTS", "GITHUB_STEP_SUMMARY"):
-            monkeypatch.delenv(name)
-
 
 # -- the ledger is found the same way from any folder ---------------------------------------
 

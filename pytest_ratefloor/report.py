@@ -35,7 +35,13 @@ from pytest_ratefloor.escaping import json_safe, markdown_text, md_name, plot_te
 from pytest_ratefloor.ledger import Environment, entry_json
 from pytest_ratefloor.measurement import Measurement
 from pytest_ratefloor.recording import write_atomic
-from pytest_ratefloor.verdicts import SUSPICIOUS_SPREADS, VERDICTS, Colour, Comparison
+from pytest_ratefloor.verdicts import (
+    SUSPICIOUS_SPREADS,
+    VERDICTS,
+    Colour,
+    Comparison,
+    counts_of,
+)
 
 #: Version of the JSON report layout.
 REPORT_SCHEMA_VERSION = 1
@@ -180,8 +186,33 @@ def _first_line(text: str) -> str:
     return lines[0] if lines else ""
 
 
-def _ledger_line(outcome: RunOutcome, any_rows: bool) -> Line | None:
-    """The one line that names the ledger file and, once there is one, its tally."""
+#: How a recording describes what it wrote, by the verdict the case had against the old entry.
+_WRITTEN_AS: dict[str, str] = {
+    "regressed": "re-recorded with more bits", "resampled": "re-recorded on a new sample",
+    "within-slack": "re-recorded within the slack", "improved": "re-recorded with fewer bits",
+    "new": "new", "unchanged": "unchanged",
+}
+
+
+def recorded_text(rows: Sequence[Comparison], outcome: RunOutcome) -> str:
+    """What a recording wrote: ``wrote 13 cases (1 re-recorded with more bits, 2 new, ...)``
+    and how many cases it left out because their tests failed."""
+    skipped = {label for label, _ in outcome.not_recorded}
+    written = [r for r in rows if r.current is not None and r.key.label not in skipped]
+    by_verdict = counts_of(written)
+    parts = [f"{by_verdict[v]} {text}" for v, text in _WRITTEN_AS.items() if by_verdict.get(v)]
+    text = f"wrote {len(written)} case{'s' if len(written) != 1 else ''}"
+    if parts:
+        text += f" ({', '.join(parts)})"
+    if skipped:
+        text += f"; {len(skipped)} not recorded (their tests failed)"
+    return text
+
+
+def _ledger_line(outcome: RunOutcome, rows: Sequence[Comparison]) -> Line | None:
+    """The one line that names the ledger file and, once there is one, its tally (after a
+    recording: what was written)."""
+    any_rows = bool(rows)
     if outcome.ledger_path is None:
         return None
     path = terminal_text(str(outcome.ledger_path))
@@ -190,9 +221,11 @@ def _ledger_line(outcome: RunOutcome, any_rows: bool) -> Line | None:
         what = "every case is new" if any_rows else "nothing was measured"
         return Line(f"no ledger at {path} yet{strict}: {what}; "
                     "create it with: pytest --ratefloor-record", "yellow")
-    verb = "recorded into" if outcome.recorded else "compared with"
     slack = f", slack {100.0 * outcome.slack:g}%" if outcome.slack else ""
-    return Line(f"ledger {verb} {path}{slack}{strict}: {counts_text(outcome.counts)}",
+    if outcome.recorded:
+        return Line(f"ledger recorded into {path}{strict}: {recorded_text(rows, outcome)}",
+                    _tally_colour(outcome))
+    return Line(f"ledger compared with {path}{slack}{strict}: {counts_text(outcome.counts)}",
                 _tally_colour(outcome))
 
 
@@ -263,7 +296,7 @@ def summary_lines(rows: Sequence[Comparison], outcome: RunOutcome, verbose: bool
         lines += [Line(t, "" if r.status is None else VERDICTS[r.status].colour)
                   for t, r in zip(texts[1:], rows)]
     lines += suspicious_lines(all_rows, terminal_text)
-    ledger_line = _ledger_line(outcome, bool(all_rows))
+    ledger_line = _ledger_line(outcome, all_rows)
     if ledger_line is not None:
         lines.append(ledger_line)
     if outcome.not_recorded:

@@ -156,3 +156,20 @@ def test_the_warning_points_at_the_users_line() -> None:
     noisy = [w for w in caught if issubclass(w.category, NoisyToleranceWarning)]
     assert noisy
     assert noisy[0].filename == __file__  # not a frame inside the plugin
+
+
+def test_after_recording_the_tally_says_what_was_written() -> None:
+    """A recording accepts a regression: the tally names it as re-recorded, not as 'regressed'."""
+    base = _case(n=10_000, bits=5000).recorded()
+    worse = compare(_case(n=10_000, bits=5100), base)
+    new = compare(_case(n=20_000), None)
+    failed = compare(_case(n=30_000), None)
+    outcome = report.RunOutcome(
+        ledger_path=Path("l.json"), recorded=True,
+        not_recorded=((failed.key.label, "its test failed"),),
+    )
+    lines = [line.text for line in report.summary_lines([worse, new, failed], outcome)]
+    tally = next(t for t in lines if t.startswith("ledger recorded into"))
+    assert tally.endswith("wrote 2 cases (1 re-recorded with more bits, 1 new); "
+                          "1 not recorded (their tests failed)")
+    assert "regressed" not in tally

@@ -264,3 +264,19 @@ def test_under_xdist_recording_also_keeps_only_passed_cases(pytester: pytest.Pyt
     result.assert_outcomes(passed=1, failed=2)
     assert list(ledger_bits(ledger)) == ["alpha"]
     assert json.loads(ledger.read_text())["cases"].popitem()[1]["n"] == 4000
+
+
+def test_gate_tests_are_located_at_the_users_gate_call(pytester: pytest.Pytester) -> None:
+    source = (
+        "import zlib\n"
+        "from pytest_ratefloor import ByteCodec, gate, sources\n"
+        "\n"
+        "CODEC = ByteCodec(zlib.compress, zlib.decompress, name='z')\n"
+        "test_bytes = gate(CODEC, sources=[sources.uniform(256), sources.uniform(4)])\n"
+    )
+    items = pytester.getitems(source)
+    assert len(items) == 2
+    for item in items:
+        path, lineno, _ = item.location
+        assert path.endswith(".py") and "harness" not in path
+        assert lineno == 4  # 0-based: the gate() line, fifth of the file

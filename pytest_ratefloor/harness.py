@@ -11,7 +11,9 @@ JUnit properties: each measurement appends these ``(name, value)`` pairs to
 they also cross the pytest-xdist channel): ``ratefloor.codec``,
 ``ratefloor.source``, ``ratefloor.n``, ``ratefloor.seed``, ``ratefloor.bits``,
 ``ratefloor.rate``, ``ratefloor.floor``, ``ratefloor.floor_rate``,
-``ratefloor.entropy``, ``ratefloor.efficiency``. A test that checks several
+``ratefloor.entropy``, ``ratefloor.efficiency`` (figures rounded to 12
+significant digits as the ledger keeps them, so no float noise such as
+``2.4650000000000003``). A test that checks several
 sources appends one such group per check, in order. The plugin does not add
 them again.
 
@@ -34,7 +36,7 @@ from pytest_ratefloor import checks
 from pytest_ratefloor.checks import CheckOptions, CheckPlan, SaveDir, plan_for_case
 from pytest_ratefloor.codecs import as_codec
 from pytest_ratefloor.floors import DEFAULT_FLOOR, Floor
-from pytest_ratefloor.measurement import Measurement
+from pytest_ratefloor.measurement import Measurement, figure
 
 if TYPE_CHECKING:
     from typing_extensions import Unpack
@@ -53,11 +55,11 @@ def junit_properties(m: Measurement) -> list[tuple[str, str | int | float]]:
         ("ratefloor.n", int(m.n)),
         ("ratefloor.seed", int(m.seed)),
         ("ratefloor.bits", int(m.bits)),
-        ("ratefloor.rate", float(m.rate)),
+        ("ratefloor.rate", figure(m.rate)),
         ("ratefloor.floor", str(m.floor)),
-        ("ratefloor.floor_rate", float(m.floor_rate)),
-        ("ratefloor.entropy", float(m.entropy)),
-        ("ratefloor.efficiency", float(m.efficiency)),
+        ("ratefloor.floor_rate", figure(m.floor_rate)),
+        ("ratefloor.entropy", figure(m.entropy)),
+        ("ratefloor.efficiency", figure(m.efficiency)),
     ]
 
 

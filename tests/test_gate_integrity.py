@@ -278,5 +278,6 @@ def test_gate_tests_are_located_at_the_users_gate_call(pytester: pytest.Pytester
     assert len(items) == 2
     for item in items:
         path, lineno, _ = item.location
-        assert path.endswith(".py") and "harness" not in path
+        assert path.endswith(".py")
+        assert "harness" not in path
         assert lineno == 4  # 0-based: the gate() line, fifth of the file

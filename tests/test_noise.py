@@ -173,3 +173,14 @@ def test_after_recording_the_tally_says_what_was_written() -> None:
     assert tally.endswith("wrote 2 cases (1 re-recorded with more bits, 1 new); "
                           "1 not recorded (their tests failed)")
     assert "regressed" not in tally
+
+
+def test_junit_figures_carry_no_float_noise() -> None:
+    from pytest_ratefloor.harness import junit_properties
+
+    m = dataclasses.replace(_case(n=1000), bits=2465, floor_bits=2465.0)  # rate 2.465
+    props = dict(junit_properties(m))
+    assert str(props["ratefloor.rate"]) == "2.465"  # 2465 / 1000 in float64 prints as 2.465
+    assert repr(0.1 * 3) == "0.30000000000000004"  # the kind of noise that is rounded away
+    assert str(dict(junit_properties(dataclasses.replace(m, entropy=0.1 * 3)))[
+        "ratefloor.entropy"]) == "0.3"

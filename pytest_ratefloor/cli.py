@@ -3,10 +3,11 @@ estimate a file's entropy.
 
 ::
 
-    ratefloor show LEDGER [--format md|json]
-    ratefloor diff OLD NEW [--slack REL] [--format text|md] [--allow-dropped]
+    ratefloor show LEDGER [--format text|md|json]
+    ratefloor diff OLD NEW [--slack REL] [--format text|md|json] [--allow-dropped]
+                   [--changed-only]
     ratefloor prune LEDGER --report REPORT.json [--dry-run]
-    ratefloor entropy FILE... [--symbol LAYOUT] [--order K]
+    ratefloor entropy FILE|FOLDER... [--symbol LAYOUT] [--order K] [--format text|md|json]
     ratefloor history [REV ...] [--ledger PATH] [--format text|md|json] [--repo DIR]
 
 ``history`` shows the ledger as committed at each tag (or each REV) through git,
@@ -68,6 +69,7 @@ import zlib
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 from pytest_ratefloor import validation
 from pytest_ratefloor.errors import CommandLineError, LedgerError
@@ -87,6 +89,10 @@ from pytest_ratefloor.report import (
     CAUTION,
     REPORT_KIND,
     REPORT_SCHEMA_VERSION,
+    _floor_cell,
+    _layout_cell,
+    _num,
+    _pct,
     align,
     finite,
     markdown_tables,
@@ -152,13 +158,39 @@ def _load(path: str) -> Ledger:
 # -- show ------------------------------------------------------------------------------
 
 
+def _show_text(ledger: Ledger, rows: Sequence[Comparison]) -> str:
+    """The ledger as one aligned plain table, every user string through ``terminal_text``."""
+    head = [f"ratefloor show: {terminal_text(str(ledger.path))}", CAUTION]
+    env = ledger.environment
+    if env is not None:
+        head.append(
+            f"recorded with pytest-ratefloor {terminal_text(env.plugin)}, numpy "
+            f"{terminal_text(env.numpy)}, Python {terminal_text(env.python)} on "
+            f"{terminal_text(env.platform)}"
+        )
+    if not rows:
+        return "\n".join([*head, "The ledger holds no case."]) + "\n"
+    header = ["codec", "source", "n", "seed", "layout", "entropy (bit/sym)", "floor (bit/sym)",
+              "rate (bit/sym)", "efficiency"]
+    table = [header]
+    for r in rows:
+        m = r.case
+        table.append([terminal_text(m.codec), terminal_text(m.source), str(m.n), str(m.seed),
+                      _layout_cell(m, terminal_text), _num(m.entropy),
+                      _floor_cell(m, terminal_text), _num(m.rate), _pct(m.efficiency)])
+    return "\n".join([*head, *align(table, {2, 3, 5, 6, 7, 8})]) + "\n"
+
+
 def show(ledger: Ledger, fmt: str) -> str:
-    """The ledger as release-notes Markdown or as versioned JSON.
+    """The ledger as an aligned plain table (``text``), release-notes Markdown (``md``)
+    or versioned JSON (``json``).
 
     The JSON keeps strings raw (``json.dumps`` escapes them) and writes ``null``
     for a figure that is not finite.
     """
     rows = [listed(ledger.entries[k]) for k in sorted(ledger.entries)]
+    if fmt == "text":
+        return _show_text(ledger, rows)
     if fmt == "json":
         env = ledger.environment
         doc = {
@@ -222,18 +254,51 @@ def diff_outcome(lines: Sequence[Comparison], allow_dropped: bool = False) -> tu
     return 0, f"OK: no case {what}{accepted}"
 
 
+#: Layout of ``ratefloor diff --format json``.
+DIFF_SCHEMA_VERSION = 1
+
+
+def _diff_json(old: Ledger, new: Ledger, lines: Sequence[Comparison], shown: list[Comparison],
+               allow_dropped: bool) -> str:
+    """The diff as plain data: every shown case, the verdict counts, the exit status."""
+    status, result = diff_outcome(lines, allow_dropped)
+    cases = []
+    for line in shown:
+        codec, source, n, seed = line.key
+        cases.append({
+            "codec": codec, "source": source, "n": n, "seed": seed,
+            "old_bits": line.ledger_bits,
+            "new_bits": None if line.current is None else line.current.bits,
+            "delta_bits": line.delta_bits, "delta_pct": finite(line.delta_pct),
+            "verdict": line.status,
+        })
+    doc = {
+        "kind": "pytest-ratefloor ledger diff", "schema": DIFF_SCHEMA_VERSION,
+        "old": str(old.path), "new": str(new.path), "counts": counts_of(lines),
+        "cases": cases, "allow_dropped": allow_dropped, "exit_status": status,
+        "result": result,
+    }
+    return json.dumps(json_safe(doc), indent=2, sort_keys=True, allow_nan=False) + "\n"
+
+
 def render_diff(old: Ledger, new: Ledger, lines: Sequence[Comparison], fmt: str,
-                allow_dropped: bool = False) -> str:
+                allow_dropped: bool = False, changed_only: bool = False) -> str:
     """A table of every case, the count of each verdict (no average to hide behind), the result.
 
-    The last line is the result of :func:`diff_outcome`: ``OK: ...`` or ``FAILED: ...``.
+    ``fmt`` is ``text``, ``md`` or ``json``. With ``changed_only`` the table
+    leaves out the unchanged cases; the tally still counts them. For ``text``
+    and ``md`` the last line is the result of :func:`diff_outcome`: ``OK: ...``
+    or ``FAILED: ...``; the JSON holds it with the exit status it implies.
     """
+    shown = [line for line in lines if not (changed_only and line.status == "unchanged")]
+    if fmt == "json":
+        return _diff_json(old, new, lines, shown, allow_dropped)
     counts = counts_of(lines)
     tally = ", ".join(f"{counts[s]} {s}" for s in VERDICTS)
     _, result = diff_outcome(lines, allow_dropped)
     header = ["codec", "source", "n", "seed", "old bits", "new bits", "Δ bits", "Δ %", "verdict"]
     rows = []
-    for line in lines:
+    for line in shown:
         codec, source, n, seed = line.key
         new_bits = None if line.current is None else line.current.bits
         rows.append([codec, source, str(n), str(seed), _bits(line.ledger_bits),
@@ -427,37 +492,229 @@ class EntropyFigures:
         return math.ceil(h * n / 8.0 - 1e-9)
 
 
-def entropy_figures(path: Path, symbol: str, order: int) -> EntropyFigures:
-    """Read ``path`` and compute its figures (``sources.from_file`` gives the estimates)."""
+#: Bytes read at a time by ``ratefloor entropy`` (a multiple of every word size).
+CHUNK_BYTES = 8 << 20
+
+
+def _merge_counts(acc: tuple[Any, Any] | None, keys: Any, counts: Any) -> tuple[Any, Any]:
+    """Sorted distinct ``keys`` with summed ``counts``: ``acc`` merged with one chunk's."""
+    import numpy as np
+
+    if acc is not None:
+        keys, counts = np.concatenate([acc[0], keys]), np.concatenate([acc[1], counts])
+    merged, inverse = np.unique(keys, return_inverse=True)
+    total = np.zeros(merged.size, dtype=np.int64)
+    np.add.at(total, inverse.ravel(), counts)
+    return merged, total
+
+
+def _neg_log2_terms(c: Any, t: Any) -> Any:
+    """``-log2(c/t)`` per gram, computed as the empirical sources compute it."""
+    import numpy as np
+
+    from pytest_ratefloor.sources.base import _LN2
+
+    c, t = c.astype(np.float64), t.astype(np.float64)
+    near_one = 2 * c > t
+    return np.where(near_one, -np.log1p(np.where(near_one, (c - t) / t, 0.0)) / _LN2,
+                    np.log2(t) - np.log2(c))
+
+
+def _plug_in(gram_counts: Any, ctx_of_gram: Any, n: int) -> float:
+    """Conditional plug-in entropy from (k+1)-gram counts and each gram's context label."""
+    import numpy as np
+
+    _, ctx = np.unique(ctx_of_gram, return_inverse=True)
+    ctx = ctx.ravel()
+    ctx_counts = np.bincount(ctx, weights=gram_counts).astype(np.int64)
+    terms = gram_counts * _neg_log2_terms(gram_counts, ctx_counts[ctx])
+    return math.fsum(terms.tolist()) / n
+
+
+class _GramCounter:
+    """Counts of the (k+1)-grams of a symbol stream fed in chunks, read as a ring.
+
+    The last k symbols of each chunk are carried into the next; the first k
+    symbols are kept for the wrap-around grams. Grams are packed into one
+    int64 (symbol minus the layout's lowest value, base the layout's span) when
+    they fit, else counted as rows.
+    """
+
+    def __init__(self, k: int, lo: int, hi: int) -> None:
+        import numpy as np
+
+        self.k, self.lo, self.base = k, lo, hi - lo + 1
+        self.packed = self.base ** (k + 1) < 1 << 62
+        self.dense = self.packed and self.base ** (k + 1) <= 1 << 24
+        self.tail = np.zeros(0, dtype=np.int64)
+        self.head = np.zeros(0, dtype=np.int64)
+        self.table: Any = np.zeros(self.base ** (k + 1) if self.dense else 0, dtype=np.int64)
+        self.acc: tuple[Any, Any] | None = None
+
+    def _count(self, stream: Any) -> None:
+        import numpy as np
+
+        width = self.k + 1
+        if stream.size < width:
+            return
+        if self.packed:
+            m = stream.size - self.k
+            code = np.zeros(m, dtype=np.int64)
+            for j in range(width):
+                code *= self.base
+                code += stream[j: j + m] - self.lo
+            if self.dense:
+                self.table += np.bincount(code, minlength=self.table.size)
+                return
+            keys, counts = np.unique(code, return_counts=True)
+        else:
+            rows = np.ascontiguousarray(np.lib.stride_tricks.sliding_window_view(stream, width))
+            keys, counts = np.unique(rows.view(np.dtype((np.void, 8 * width))).ravel(),
+                                     return_counts=True)
+        self.acc = _merge_counts(self.acc, keys, counts.astype(np.int64))
+
+    def feed(self, symbols: Any) -> None:
+        import numpy as np
+
+        if self.head.size < self.k:
+            self.head = np.concatenate([self.head, symbols[: self.k - self.head.size]])
+        stream = np.concatenate([self.tail, symbols])
+        self._count(stream)
+        self.tail = stream[stream.size - self.k:] if self.k else stream[:0]
+
+    def finish(self) -> tuple[Any, Any, int]:
+        """(gram counts, context label per gram, distinct linear k-grams)."""
+        import numpy as np
+
+        k = self.k
+        self._count(np.concatenate([self.tail, self.head]))  # the k grams across the wrap
+        if self.dense:
+            keys = np.flatnonzero(self.table)
+            counts = self.table[keys]
+        else:
+            assert self.acc is not None
+            keys, counts = self.acc
+        ctx: Any
+        if self.packed:
+            ctx = keys // self.base
+        else:
+            rows = keys.view(np.int64).reshape(-1, k + 1)
+            ctx = np.ascontiguousarray(rows[:, :k]).view(np.dtype((np.void, 8 * k))).ravel()
+        # k-grams of the linear data: those of the ring less the k-1 that cross the wrap
+        labels, inverse = np.unique(ctx, return_inverse=True)
+        ring = np.bincount(inverse.ravel(), weights=counts, minlength=labels.size)
+        wrap = np.concatenate([self.tail[1:], self.head[: k - 1]])
+        if k > 1:
+            win = np.ascontiguousarray(np.lib.stride_tricks.sliding_window_view(wrap, k))
+            if self.packed:
+                code: Any = np.zeros(win.shape[0], dtype=np.int64)
+                for j in range(k):
+                    code = code * self.base + (win[:, j] - self.lo)
+                wrap_labels: Any = code
+            else:
+                wrap_labels = win.view(np.dtype((np.void, 8 * k))).ravel()
+            for label in wrap_labels:
+                ring[np.searchsorted(labels, label)] -= 1
+        return counts, ctx, int(np.count_nonzero(ring))
+
+
+def _entropy_files(path: Path) -> list[Path]:
+    """``path`` itself, or the regular files of a folder, sorted."""
+    if path.is_dir():
+        files = sorted(p for p in path.iterdir() if p.is_file())
+        if not files:
+            raise CommandLineError(f"{path}: folder holds no file")
+        return files
     if not path.is_file():
         raise CommandLineError(f"{path}: no such file")
-    data = path.read_bytes()
-    width = LAYOUTS[symbol].bytes_per_symbol
-    if width > 1 and len(data) % int(width):
-        raise CommandLineError(
-            f"{path}: {len(data)} bytes is not a whole number of {symbol} symbols"
-        )
+    return [path]
+
+
+def entropy_figures(path: Path, symbol: str, order: int,
+                    chunk_bytes: int = CHUNK_BYTES) -> EntropyFigures:
+    """Read ``path`` once in chunks of ``chunk_bytes`` and compute its figures.
+
+    The estimates equal those of ``sources.from_file`` (plug-in entropies of the
+    data read as a ring); memory stays bounded by the chunk size and the number
+    of distinct grams.
+    """
+    if not path.is_file():
+        raise CommandLineError(f"{path}: no such file")
+    layout = LAYOUTS[symbol]
+    width = layout.bytes_per_symbol
+    size = path.stat().st_size
+    if width > 1 and size % int(width):
+        raise CommandLineError(f"{path}: {size} bytes is not a whole number of {symbol} symbols")
+    if chunk_bytes <= 0 or chunk_bytes % 8:
+        raise ValueError(f"chunk_bytes must be a positive multiple of 8, got {chunk_bytes}")
 
     import numpy as np
 
-    from pytest_ratefloor import sources
-    try:
-        zeroth = sources.from_file(path, symbol=symbol, order=0)
-        higher = sources.from_file(path, symbol=symbol, order=order) if order > 0 else None
-    except ValueError as exc:
-        raise CommandLineError(str(exc)) from None
-    symbols = np.asarray(zeroth.data)
-    contexts = None
-    if order > 0:
-        windows = np.lib.stride_tricks.sliding_window_view(symbols, order)
-        contexts = len(np.unique(windows, axis=0))
+    from pytest_ratefloor import layouts
+
+    zero = _GramCounter(0, layout.lo, layout.hi)
+    higher = _GramCounter(order, layout.lo, layout.hi) if order > 0 else None
+    deflate, xz = zlib.compressobj(9), lzma.LZMACompressor(preset=9)
+    zlib_bytes = lzma_bytes = n = 0
+    with open(path, "rb") as handle:
+        while chunk := handle.read(chunk_bytes):
+            symbols = layouts.unpack(chunk, None, symbol)
+            n += int(symbols.size)
+            zero.feed(symbols)
+            if higher is not None:
+                higher.feed(symbols)
+            zlib_bytes += len(deflate.compress(chunk))
+            lzma_bytes += len(xz.compress(chunk))
+    zlib_bytes += len(deflate.flush())
+    lzma_bytes += len(xz.flush())
+    if n == 0:
+        raise CommandLineError(
+            f"from_file: {path} is empty; an entropy estimate needs at least one symbol")
+    if order >= n:
+        raise CommandLineError(
+            f"from_file: order must be less than the data length {n}, got {order}")
+    counts0, _, _ = zero.finish()
+    h0 = _plug_in(counts0, np.zeros(counts0.size, dtype=np.int64), n)
+    hk = contexts = None
+    if higher is not None:
+        counts, ctx, contexts = higher.finish()
+        hk = _plug_in(counts, ctx, n)
     return EntropyFigures(
-        path=path, size=len(data), symbol=symbol, symbols=int(zeroth.n),
-        distinct=int(zeroth.alphabet_size or 0), order=order, h0=float(zeroth.entropy),
-        hk=None if higher is None else float(higher.entropy), contexts=contexts,
-        zlib_bytes=len(zlib.compress(data, 9)),
-        lzma_bytes=len(lzma.compress(data, preset=9)),
+        path=path, size=size, symbol=symbol, symbols=n, distinct=int(counts0.size),
+        order=order, h0=h0, hk=hk, contexts=contexts, zlib_bytes=zlib_bytes,
+        lzma_bytes=lzma_bytes,
     )
+
+
+def entropy_json(f: EntropyFigures) -> dict[str, Any]:
+    """One file's figures as plain data (``null`` for a figure not computed)."""
+    return {
+        "path": str(f.path), "bytes": f.size, "symbol": f.symbol, "symbols": f.symbols,
+        "distinct": f.distinct, "order": f.order, "h0": finite(f.h0),
+        "floor0_bytes": EntropyFigures.floor_bytes(f.h0, f.symbols),
+        "hk": finite(f.hk), "contexts": f.contexts,
+        "floork_bytes": None if f.hk is None else EntropyFigures.floor_bytes(f.hk, f.symbols),
+        "zlib_bytes": f.zlib_bytes, "lzma_bytes": f.lzma_bytes,
+    }
+
+
+def render_entropy_all(figures: Sequence[EntropyFigures], fmt: str) -> str:
+    """Every file's figures as text blocks, one Markdown table or JSON, with the note."""
+    if fmt == "json":
+        doc = {"kind": "pytest-ratefloor entropy", "schema": 1, "note": ENTROPY_NOTE,
+               "files": [entropy_json(f) for f in figures]}
+        return json.dumps(json_safe(doc), indent=2, sort_keys=True, allow_nan=False) + "\n"
+    if fmt == "md":
+        out = ["| file | bytes | layout | symbols | distinct | order-0 (bit/sym) | order | "
+               "order-k (bit/sym) | zlib -9 bytes | lzma -9 bytes |",
+               "| --- | ---: | --- | ---: | ---: | ---: | ---: | ---: | ---: | ---: |"]
+        for f in figures:
+            hk = "–" if f.hk is None else f"{f.hk:.4f}"
+            out.append(f"| {md_name(str(f.path))} | {f.size:,} | {f.symbol} | {f.symbols:,} | "
+                       f"{f.distinct:,} | {f.h0:.4f} | {f.order} | {hk} | {f.zlib_bytes:,} | "
+                       f"{f.lzma_bytes:,} |")
+        return "\n".join([*out, "", f"> {markdown_text(ENTROPY_NOTE)}"]) + "\n"
+    return "\n".join(render_entropy(f) for f in figures) + "\n" + ENTROPY_NOTE + "\n"
 
 
 def render_entropy(f: EntropyFigures) -> str:
@@ -510,34 +767,45 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"ratefloor {__version__}")
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
     p_show = sub.add_parser("show", help="print a ledger as a release-notes table")
-    p_show.add_argument("ledger", metavar="LEDGER")
-    p_show.add_argument("--format", choices=("md", "json"), default="md")
+    p_show.add_argument("ledger", metavar="LEDGER", help="the ledger file to list")
+    p_show.add_argument("--format", choices=("text", "md", "json"), default="md",
+                        help="text: an aligned plain table; md: release-notes Markdown "
+                             "(default); json: versioned plain data")
     p_diff = sub.add_parser(
         "diff", help="compare two ledgers case by case (exit 1: regressed, resampled or dropped)"
     )
-    p_diff.add_argument("old", metavar="OLD")
-    p_diff.add_argument("new", metavar="NEW")
+    p_diff.add_argument("old", metavar="OLD", help="the ledger to compare against (baseline)")
+    p_diff.add_argument("new", metavar="NEW", help="the ledger compared with OLD")
     p_diff.add_argument("--slack", default="0", metavar="REL",
                         help="relative increase in bits not counted as a regression (default 0)")
-    p_diff.add_argument("--format", choices=("text", "md"), default="text")
+    p_diff.add_argument("--format", choices=("text", "md", "json"), default="text",
+                        help="text: an aligned table (default); md: Markdown; json: plain "
+                             "data with the verdict counts and the exit status")
+    p_diff.add_argument("--changed-only", action="store_true",
+                        help="leave unchanged cases out of the table (the tally still "
+                             "counts them)")
     p_diff.add_argument("--allow-dropped", action="store_true",
                         help="cases in OLD but not in NEW do not fail the diff "
                              "(they are still listed)")
     p_prune = sub.add_parser(
         "prune", help="remove the ledger entries a full run's JSON report lists as stale"
     )
-    p_prune.add_argument("ledger", metavar="LEDGER")
+    p_prune.add_argument("ledger", metavar="LEDGER", help="the ledger file to prune")
     p_prune.add_argument("--report", required=True, metavar="REPORT.json",
                          help="the JSON report of a full pytest run against LEDGER "
                               "(pytest --ratefloor-report REPORT.json)")
     p_prune.add_argument("--dry-run", action="store_true",
                          help="print what would be removed; write nothing")
     p_ent = sub.add_parser("entropy", help="empirical entropy of files, with zlib/lzma sizes")
-    p_ent.add_argument("files", nargs="+", metavar="FILE")
+    p_ent.add_argument("files", nargs="+", metavar="FILE",
+                       help="data files, or folders (each file in them, sorted)")
     p_ent.add_argument("--symbol", choices=tuple(LAYOUTS), default="u8",
                        help="how the bytes form symbols (default u8)")
     p_ent.add_argument("--order", type=int, default=1, metavar="K",
                        help="context length of the conditional estimate (default 1; 0: none)")
+    p_ent.add_argument("--format", choices=("text", "md", "json"), default="text",
+                       help="text: one block per file (default); md: a Markdown table; "
+                            "json: plain data")
     p_hist = sub.add_parser(
         "history", help="the committed ledger at each release (git tags or REVs), per codec"
     )
@@ -547,7 +815,8 @@ def build_parser() -> argparse.ArgumentParser:
     p_hist.add_argument("--ledger", default=DEFAULT_LEDGER_NAME, metavar="PATH",
                         help="the ledger, relative to the repository root "
                              f"(default {DEFAULT_LEDGER_NAME})")
-    p_hist.add_argument("--format", choices=("text", "md", "json"), default="text")
+    p_hist.add_argument("--format", choices=("text", "md", "json"), default="text",
+                        help="text: aligned tables (default); md: Markdown; json: plain data")
     p_hist.add_argument("--repo", default=".", metavar="DIR",
                         help="a directory inside the git repository (default: .)")
     return parser
@@ -564,7 +833,8 @@ def _run(args: argparse.Namespace) -> int:
             raise CommandLineError(str(exc)) from None
         old, new = _load(args.old), _load(args.new)
         lines = diff(old, new, slack)
-        sys.stdout.write(render_diff(old, new, lines, args.format, args.allow_dropped))
+        sys.stdout.write(render_diff(old, new, lines, args.format, args.allow_dropped,
+                                     args.changed_only))
         status, _ = diff_outcome(lines, args.allow_dropped)
         return status
     if args.command == "prune":
@@ -573,9 +843,9 @@ def _run(args: argparse.Namespace) -> int:
     if args.command == "entropy":
         if args.order < 0:
             raise CommandLineError(f"--order: must be >= 0, got {args.order}")
-        figures = [entropy_figures(Path(f), args.symbol, args.order) for f in args.files]
-        sys.stdout.write("\n".join(render_entropy(f) for f in figures) + "\n")
-        sys.stdout.write(ENTROPY_NOTE + "\n")
+        figures = [entropy_figures(p, args.symbol, args.order)
+                   for f in args.files for p in _entropy_files(Path(f))]
+        sys.stdout.write(render_entropy_all(figures, args.format))
         return 0
     if args.command == "history":
         from pytest_ratefloor import history

@@ -31,7 +31,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Literal
 
-from pytest_ratefloor.escaping import json_safe, markdown_text, md_name, plot_text, terminal_text
+from pytest_ratefloor.escaping import json_safe, markdown_text, md_name, terminal_text
 from pytest_ratefloor.ledger import Environment, entry_json
 from pytest_ratefloor.measurement import Measurement
 from pytest_ratefloor.recording import write_atomic
@@ -522,67 +522,9 @@ def check_plot_path(path: Path) -> None:
 
 
 def write_plot(path: Path, rows: Iterable[Comparison]) -> None:
-    """Plot measured rate against source entropy (and a Bernoulli panel if any).
+    """Write the run's plot (see :func:`pytest_ratefloor.plotting.plot_run`): each case's
+    excess over the floor it used, the ledger's value beside it, regressions in their own
+    colour, a Bernoulli panel on a log p axis, a bounded legend."""
+    from pytest_ratefloor.plotting import plot_run
 
-    Left panel: every case at (H, rate) per codec, the line y = H (the entropy
-    floor) and y = H + 1 (the ceiling an optimal symbol-by-symbol code stays
-    under; Shannon/Huffman bound H ≤ L < H + 1). Right panel, when Bernoulli
-    cases exist: rate against p with the binary-entropy curve h(p) and h(p) + 1.
-    Uses the Agg canvas directly, so no pyplot state or GUI backend is touched.
-    Codec names reach the legend through :func:`plot_text` (no mathtext, no control
-    characters).
-    """
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-    from matplotlib.figure import Figure
-
-    from pytest_ratefloor.sources import binary_entropy
-
-    cases = [r.case for r in rows if r.case.n > 0]
-    bern = [m for m in cases if m.source_family == "bernoulli" and "p" in m.source_params]
-    fig = Figure(figsize=(11.0 if bern else 6.5, 5.2))
-    FigureCanvasAgg(fig)
-    axes = fig.subplots(1, 2 if bern else 1, squeeze=False)[0]
-    markers = "os^DvP*Xh<>"
-    codecs = sorted({m.codec for m in cases})
-
-    ax = axes[0]
-    top = max([1.0] + [m.entropy for m in cases])
-    xs = [0.0, top * 1.05]
-    ax.plot(xs, xs, color="black", lw=1.2, label="entropy H (floor)")
-    ax.plot(xs, [x + 1.0 for x in xs], color="grey", lw=1.0, ls="--",
-            label="H + 1 (symbol-code ceiling)")
-    for i, codec in enumerate(codecs):
-        mine = [m for m in cases if m.codec == codec]
-        ax.scatter([m.entropy for m in mine], [m.rate for m in mine], s=28, color=f"C{i % 10}",
-                   marker=markers[i % len(markers)], label=plot_text(codec), zorder=3)
-    ax.set_xlabel("source entropy H (bits/symbol)")
-    ax.set_ylabel("measured rate (bits/symbol)")
-    ax.set_title("Rate against entropy")
-    ax.grid(True, alpha=0.3)
-    ax.legend(fontsize="small")
-
-    if bern:
-        ax = axes[1]
-        ps = [i / 400 for i in range(401)]
-        hs = [binary_entropy(p) for p in ps]
-        ax.plot(ps, hs, color="black", lw=1.2, label="h(p) (binary entropy)")
-        ax.plot(ps, [h + 1.0 for h in hs], color="grey", lw=1.0, ls="--", label="h(p) + 1")
-        for i, codec in enumerate(codecs):
-            mine = sorted((m for m in bern if m.codec == codec),
-                          key=lambda m: float(m.source_params["p"]))
-            if mine:
-                ax.plot([float(m.source_params["p"]) for m in mine], [m.rate for m in mine],
-                        color=f"C{i % 10}", marker=markers[i % len(markers)], ms=5, lw=0.8,
-                        label=plot_text(codec))
-        ax.set_xlabel("Bernoulli parameter p = P(1)")
-        ax.set_ylabel("measured rate (bits/symbol)")
-        ax.set_title("Bernoulli sweep")
-        ax.set_xlim(0.0, 1.0)
-        ax.grid(True, alpha=0.3)
-        ax.legend(fontsize="small")
-
-    fig.text(0.5, 0.01, CAUTION, ha="center", va="bottom", fontsize="small", style="italic")
-    fig.tight_layout(rect=(0.0, 0.05, 1.0, 1.0))
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fig.savefig(path)
+    plot_run(path, list(rows))

@@ -245,7 +245,8 @@ def test_plot_svg_without_bernoulli(tmp_path: Path) -> None:
     report.write_plot(path, [r for r in rows if r.case.source_family != "bernoulli"])
     root = ET.parse(path).getroot()  # stdlib XML parser is the reference
     assert root.tag.endswith("svg")
-    assert "symbol-code ceiling" in path.read_text()
+    assert "Excess over the floor" in path.read_text()  # plotting.plot_run's panel title
+    assert "Bernoulli cases" not in path.read_text()
 
 
 def test_plot_needs_matplotlib(monkeypatch: pytest.MonkeyPatch) -> None:

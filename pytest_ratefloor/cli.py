@@ -89,13 +89,13 @@ from pytest_ratefloor.report import (
     CAUTION,
     REPORT_KIND,
     REPORT_SCHEMA_VERSION,
-    _floor_cell,
-    _layout_cell,
-    _num,
-    _pct,
     align,
+    figure_text,
     finite,
+    floor_cell,
+    layout_cell,
     markdown_tables,
+    percent_text,
     signed_pct,
 )
 from pytest_ratefloor.verdicts import VERDICTS, Comparison, compare, counts_of, listed
@@ -176,8 +176,9 @@ def _show_text(ledger: Ledger, rows: Sequence[Comparison]) -> str:
     for r in rows:
         m = r.case
         table.append([terminal_text(m.codec), terminal_text(m.source), str(m.n), str(m.seed),
-                      _layout_cell(m, terminal_text), _num(m.entropy),
-                      _floor_cell(m, terminal_text), _num(m.rate), _pct(m.efficiency)])
+                      layout_cell(m, terminal_text), figure_text(m.entropy),
+                      floor_cell(m, terminal_text), figure_text(m.rate),
+                      percent_text(m.efficiency)])
     return "\n".join([*head, *align(table, {2, 3, 5, 6, 7, 8})]) + "\n"
 
 

@@ -86,7 +86,8 @@ class RunOutcome:
 # -- small formatters ---------------------------------------------------------------
 
 
-def _num(value: float | None, digits: int = 4) -> str:
+def figure_text(value: float | None, digits: int = 4) -> str:
+    """A figure in a table cell: fixed decimals, ``–`` when missing, ``inf`` when infinite."""
     if value is None:
         return "–"
     if math.isinf(value):
@@ -94,7 +95,8 @@ def _num(value: float | None, digits: int = 4) -> str:
     return f"{value:.{digits}f}"
 
 
-def _pct(value: float | None) -> str:
+def percent_text(value: float | None) -> str:
+    """A ratio as a percentage cell (``99.31%``), ``–`` when missing."""
     if value is None:
         return "–"
     if math.isinf(value):
@@ -131,14 +133,14 @@ def counts_text(counts: Mapping[str, int]) -> str:
     return ", ".join(parts)
 
 
-def _layout_cell(m: Measurement, escape: Callable[[str], str]) -> str:
+def layout_cell(m: Measurement, escape: Callable[[str], str]) -> str:
     """The layout (escaped: it comes from the codec or a ledger file), ``–`` when unknown."""
     return escape(m.layout) if m.layout else "–"
 
 
-def _floor_cell(m: Measurement, escape: Callable[[str], str]) -> str:
+def floor_cell(m: Measurement, escape: Callable[[str], str]) -> str:
     """The floor rate, with the floor's name (escaped: a ledger file may hold any text)."""
-    text = _num(m.floor_rate)
+    text = figure_text(m.floor_rate)
     return text if m.floor in ("", "entropy") else f"{text} ({escape(m.floor)})"
 
 
@@ -281,13 +283,13 @@ def summary_lines(rows: Sequence[Comparison], outcome: RunOutcome, verbose: bool
         for r in rows:
             m = r.case
             name = m.codec if not (verbose and m.codec_version) else f"{m.codec} {m.codec_version}"
-            cells = [terminal_text(name), terminal_text(m.source), _num(m.entropy),
-                     _floor_cell(m, terminal_text), _num(m.rate), _pct(m.efficiency)]
+            cells = [terminal_text(name), terminal_text(m.source), figure_text(m.entropy),
+                     floor_cell(m, terminal_text), figure_text(m.rate), percent_text(m.efficiency)]
             if verbose:
-                cells += [str(m.n), str(m.seed), _layout_cell(m, terminal_text), f"{m.bits:,}",
+                cells += [str(m.n), str(m.seed), layout_cell(m, terminal_text), f"{m.bits:,}",
                           "–" if r.ledger_bits is None else f"{r.ledger_bits:,}",
-                          _num(m.excess), _num(m.detectable_excess), _num(m.encode_seconds, 3),
-                          _num(m.decode_seconds, 3)]
+                          figure_text(m.excess), figure_text(m.detectable_excess),
+                          figure_text(m.encode_seconds, 3), figure_text(m.decode_seconds, 3)]
             cells.append(delta_text(r))
             table.append(cells)
         right = {2, 3, 4, 5} | ({6, 7, 9, 10, 11, 12, 13, 14} if verbose else set())
@@ -357,9 +359,9 @@ def markdown_tables(rows: Sequence[Comparison], with_ledger: bool = True) -> str
         out += [title, "", "| " + " | ".join(names) + " |", "| " + " | ".join(marks) + " |"]
         for r in sorted(group, key=lambda r: r.key):
             m = r.case
-            layout = [_layout_cell(m, md_name)] if laid_out else []
-            cells = [md_name(m.source), str(m.n), str(m.seed), *layout, _num(m.entropy),
-                     _floor_cell(m, markdown_text), _num(m.rate), _pct(m.efficiency)]
+            layout = [layout_cell(m, md_name)] if laid_out else []
+            cells = [md_name(m.source), str(m.n), str(m.seed), *layout, figure_text(m.entropy),
+                     floor_cell(m, markdown_text), figure_text(m.rate), percent_text(m.efficiency)]
             if with_ledger:
                 cells.append(delta_text(r))  # figures and verdict names only
             out.append("| " + " | ".join(cells) + " |")

@@ -8,7 +8,7 @@ estimate a file's entropy.
                    [--changed-only]
     ratefloor prune LEDGER --report REPORT.json [--dry-run]
     ratefloor entropy FILE|FOLDER... [--symbol LAYOUT] [--order K] [--format text|md|json]
-    ratefloor history [REV ...] [--ledger PATH] [--format text|md|json] [--repo DIR]
+    ratefloor history [REV ...] [--ledger PATH] [--format text|md|json] [--repo DIR] [--plot PATH]
 
 ``history`` shows the ledger as committed at each tag (or each REV) through git,
 one table per codec (:mod:`pytest_ratefloor.history`).
@@ -90,6 +90,7 @@ from pytest_ratefloor.report import (
     REPORT_KIND,
     REPORT_SCHEMA_VERSION,
     align,
+    check_plot_path,
     figure_text,
     finite,
     floor_cell,
@@ -820,6 +821,9 @@ def build_parser() -> argparse.ArgumentParser:
                         help="text: aligned tables (default); md: Markdown; json: plain data")
     p_hist.add_argument("--repo", default=".", metavar="DIR",
                         help="a directory inside the git repository (default: .)")
+    p_hist.add_argument("--plot", default=None, metavar="PATH",
+                        help="also plot each case's efficiency across releases (.png, .svg, "
+                             ".pdf; needs the 'plot' extra)")
     return parser
 
 
@@ -851,8 +855,19 @@ def _run(args: argparse.Namespace) -> int:
     if args.command == "history":
         from pytest_ratefloor import history
 
+        plot_path = None if args.plot is None else Path(args.plot)
+        if plot_path is not None:
+            try:
+                check_plot_path(plot_path)
+            except (ValueError, RuntimeError) as exc:
+                raise CommandLineError(f"--plot: {exc}") from None
         found = history.collect(Path(args.repo), args.revisions, args.ledger)
         sys.stdout.write(history.render(found, args.format))
+        if plot_path is not None:
+            from pytest_ratefloor.plotting import plot_history
+
+            plot_history(plot_path, found)
+            sys.stderr.write(f"written: {terminal_text(str(plot_path))}\n")
         return 0
     raise CommandLineError(f"unknown command {args.command!r}")  # pragma: no cover
 

@@ -334,3 +334,19 @@ def test_a_case_measured_on_another_sample_is_marked_not_compared(
     status, out, _ = run(capsys, "--repo", str(root), "--format", "json", "a", "b")
     cell = json.loads(out)["codecs"][0]["cases"][0]["cells"][1]
     assert cell["change"] == "resampled"
+
+
+def test_the_plot_option_draws_one_line_per_case(
+    repo: tuple[Path, str], capsys: pytest.CaptureFixture[str], tmp_path: Path
+) -> None:
+    pytest.importorskip("matplotlib")
+    root, _ = repo
+    path = tmp_path / "history.png"
+    status, _, err = run(capsys, "--repo", str(root), "--plot", str(path))
+    assert status == 0
+    assert path.stat().st_size > 0
+    assert "written:" in err
+    status, _, err = run(capsys, "--repo", str(root), "--plot", str(tmp_path / "h.gif"))
+    assert status == 2
+    assert "--plot: " in err
+    assert len(err.strip().splitlines()) == 1

@@ -2,7 +2,7 @@
 
 The file is invented here, in a temporary folder: a random walk of sensor
 readings, written once as u8 (10 MB) and once as u16le (10 MB, 5 M readings).
-For each, the chunked count of :func:`pytest_ratefloor.cli.entropy_figures`
+For each, the chunked count of :func:`pytest_ratefloor.file_entropy.entropy_figures`
 (order 0 and order 1, with its own zlib and lzma sizes) is timed against a plain
 ``zlib.compress(data, 9)`` of the same bytes, and the ratio is printed.
 
@@ -19,7 +19,7 @@ from pathlib import Path
 
 import numpy as np
 
-from pytest_ratefloor.cli import entropy_figures
+from pytest_ratefloor.file_entropy import entropy_figures
 
 SIZE = 10_000_000
 

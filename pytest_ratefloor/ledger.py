@@ -67,6 +67,8 @@ from pathlib import Path
 from typing import Any
 
 from pytest_ratefloor.errors import (
+    CommandLineError,
+    LedgerError,
     NewerLedgerError,
     UnreadableLedgerError,
 )
@@ -546,3 +548,57 @@ class Ledger:
 
         with ledger_lock(self.path) as target:
             write_atomic(target, self.dumps())
+
+
+# -- a ledger named on the command line -----------------------------------------------
+
+
+def unreadable(path: str, message: str) -> CommandLineError:
+    """The one-line error for a ledger that cannot be used; it always names the file."""
+    text = message.strip() or "cannot be read"
+    if path not in text and str(Path(path)) not in text:
+        text = f"{path}: {text}"
+    return CommandLineError(text)
+
+
+def _check_figures(ledger: Ledger, path: str) -> None:
+    """Every figure a listing or a diff shows can be computed (no overflow on display)."""
+    for key, case in ledger.entries.items():
+        try:
+            # float() of an int too large for a double raises; so do the derived figures
+            figures = (float(case.bits), float(case.n), case.rate, case.floor_rate,
+                       case.efficiency, case.excess)
+            for value in figures:
+                format(value, ".4f")
+            for number in (case.bits, case.n, case.seed):
+                format(number, ",")  # ValueError past Python's int-to-text digit limit
+        except (OverflowError, ValueError) as exc:
+            raise unreadable(
+                path, f"case {key.label!r} holds figures out of range ({exc})"
+            ) from None
+
+
+def load_named(path: str) -> Ledger:
+    """Read the ledger a command line names; one-line :class:`CommandLineError` if unusable.
+
+    Anything :meth:`Ledger.load` rejects is an error here too, and so is a path
+    that is missing, a directory or another non-regular file (a FIFO would block).
+    """
+    p = Path(path)
+    if not p.exists():
+        raise CommandLineError(f"{path}: no such file")
+    if p.is_dir():
+        raise CommandLineError(f"{path}: is a directory, not a ledger file")
+    if not p.is_file():
+        raise CommandLineError(f"{path}: not a regular file")
+    try:
+        ledger = Ledger.load(p)
+    except LedgerError as exc:
+        raise unreadable(path, str(exc)) from None
+    # a loader that fails in an unforeseen way must still give one line, not a traceback
+    except (ValueError, OverflowError, RecursionError, MemoryError) as exc:
+        raise unreadable(path, f"not a readable ledger ({type(exc).__name__}: {exc})") from None
+    if not ledger.exists:  # removed between the checks and the read
+        raise CommandLineError(f"{path}: no such file")
+    _check_figures(ledger, path)
+    return ledger

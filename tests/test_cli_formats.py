@@ -15,7 +15,8 @@ from pathlib import Path
 import pytest
 
 from pytest_ratefloor import sources
-from pytest_ratefloor.cli import build_parser, entropy_figures, main
+from pytest_ratefloor.cli import build_parser, main
+from pytest_ratefloor.file_entropy import entropy_figures
 from pytest_ratefloor.ledger import Ledger
 from pytest_ratefloor.measurement import Measurement
 

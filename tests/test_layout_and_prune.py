@@ -19,7 +19,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from pytest_ratefloor import cli, rate, report, sources
+from pytest_ratefloor import pruning, rate, report, sources
 from pytest_ratefloor.cli import main
 from pytest_ratefloor.errors import UnreadableLedgerError
 from pytest_ratefloor.ledger import Environment, Ledger, entry_json
@@ -418,7 +418,7 @@ def test_prune_rereads_the_ledger_under_its_lock(
         capsys: pytest.CaptureFixture[str]) -> None:
     """A recording that lands between the first read and the lock is not lost."""
     ledger, report_path, _ = pruned_setup
-    real_lock = cli.ledger_lock
+    real_lock = pruning.ledger_lock
     locked: list[Path] = []
 
     @contextlib.contextmanager
@@ -429,7 +429,7 @@ def test_prune_rereads_the_ledger_under_its_lock(
             assert lock_path(ledger).exists()
             yield target
 
-    monkeypatch.setattr(cli, "ledger_lock", late_recording)
+    monkeypatch.setattr(pruning, "ledger_lock", late_recording)
     assert main(["prune", str(ledger), "--report", str(report_path)]) == 0
     assert locked == [ledger.resolve()]
     assert {k.codec for k in Ledger.load(ledger).entries} == {"zlib", "rice", "fresh"}
@@ -544,6 +544,6 @@ def test_listing_and_reading_agree_on_the_quoted_form(tmp_path: Path) -> None:
     Ledger(path).merged([meas("q", layout="u32le")], ENV).write()
     entry = next(iter(Ledger.load(path).entries.values()))
     report_path = _write_report(tmp_path / "r.json", path, [])
-    quoted = cli.read_stale_report(str(report_path))
+    quoted = pruning.read_stale_report(str(report_path))
     assert [entry_json(m) for m in quoted] == [entry_json(entry)]
     assert listed(entry).case.layout == "u32le"

@@ -31,6 +31,8 @@ from pytest_ratefloor.codes.codebook import (
     CodeLike,
     IntArray,
     _as_codebook,
+)
+from pytest_ratefloor.codes.entries import (
     _symbol_array,
 )
 from pytest_ratefloor.validation import (

@@ -35,11 +35,13 @@ import numpy as np
 import numpy.typing as npt
 
 from pytest_ratefloor.codes.codebook import (
-    MAX_CODEWORD_BITS,
     Codebook,
     CodeLike,
     IntArray,
     _as_codebook,
+)
+from pytest_ratefloor.codes.entries import (
+    MAX_CODEWORD_BITS,
     _index_of,
     _key_of,
     _NotAnInteger,

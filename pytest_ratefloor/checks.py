@@ -386,8 +386,7 @@ def _outside_the_package() -> int:
 
 
 def _case(codec: Any, source: Source, plan: CheckPlan) -> str:
-    """The case in messages about the codec's process (checked before any work)."""
-    _check_source(source)
+    """The case in messages about the codec's process (the source is checked already)."""
     return CaseKey(as_codec(codec).name, source.spec, plan.size, plan.seed).phrase
 
 

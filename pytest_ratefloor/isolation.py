@@ -49,7 +49,7 @@ import time
 import traceback
 import warnings
 from collections.abc import Callable, Iterator
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, NoReturn, TypeVar
 
@@ -80,7 +80,6 @@ class _Progress:
 
     text: str = "starting the check"
     pipe: int | None = None
-    history: list[str] = field(default_factory=list)
 
 
 _progress = _Progress()

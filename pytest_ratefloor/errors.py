@@ -36,13 +36,17 @@ __all__ = [
     "CommandLineError",
     "CorruptionFailure",
     "CorruptionSetupError",
+    "DistortionFailure",
+    "ErrorBoundFailure",
     "ImpossibleRate",
     "KraftFailure",
     "LayoutError",
     "LedgerError",
+    "LossyRateFailure",
     "NewCaseFailure",
     "NewerLedgerError",
     "NoisyToleranceWarning",
+    "PluginMemoryError",
     "PrefixFailure",
     "RateFailure",
     "RateFloorFailure",
@@ -60,6 +64,10 @@ __all__ = [
 class RateFloorFailure(AssertionError):
     """Base class of every failure the plugin reports."""
 
+    #: the message's first line starts with the figures (``+2.960% bits vs ledger: ...``):
+    #: the short test summary shows it as it is, without the class name
+    figures_first: bool = False
+
 
 class RoundTripFailure(RateFloorFailure):
     """Decoded symbols differ from the symbols that were encoded."""
@@ -73,10 +81,27 @@ class CodecMisbehaviour(RateFloorFailure):
 class RateFailure(RateFloorFailure):
     """The measured rate exceeds the floor by more than the tolerance."""
 
+    figures_first = True
+
 
 class ImpossibleRate(RateFloorFailure):
     """The measured length is below what any decodable code can reach on the
     sample: the decoder must be getting information from outside the stream."""
+
+    figures_first = True
+
+
+class LossyRateFailure(RateFloorFailure):
+    """A lossy codec's rate exceeds the rate–distortion function at its measured
+    distortion by more than the allowed gap (bits/sample)."""
+
+
+class DistortionFailure(RateFloorFailure):
+    """A lossy codec's measured mean distortion exceeds the allowed distortion."""
+
+
+class ErrorBoundFailure(RateFloorFailure):
+    """A reconstructed sample lies farther from its original than the promised error bound."""
 
 
 class PrefixFailure(RateFloorFailure):
@@ -97,6 +122,8 @@ class AmbiguousCode(RateFloorFailure):
 
 class RegressionFailure(RateFloorFailure):
     """The measured bits exceed the committed ledger entry by more than the slack."""
+
+    figures_first = True
 
 
 class NewCaseFailure(RateFloorFailure):
@@ -209,6 +236,11 @@ class CorruptionSetupError(RuntimeError):
 
 class SearchLimitError(RuntimeError):
     """A bounded search (e.g. Sardinas–Patterson) hit its documented limit."""
+
+
+class PluginMemoryError(MemoryError):
+    """The plugin itself ran out of memory (drawing, narrowing, packing or comparing
+    the sample): not a fault of the codec. The message names ``n`` and the step."""
 
 
 # -- warnings ----------------------------------------------------------------------------

@@ -9,12 +9,13 @@ checks behind the fixture are in :mod:`~pytest_ratefloor.harness`.
 
 from __future__ import annotations
 
+from collections.abc import Generator
 from typing import TYPE_CHECKING, Any
 
 import pytest
 
 from pytest_ratefloor import report
-from pytest_ratefloor.session import SESSION_KEY, GateSession, is_worker
+from pytest_ratefloor.session import SESSION_KEY, GateSession, is_worker, short_failure_line
 from pytest_ratefloor.settings import MARKER, add_options, check_marker
 
 if TYPE_CHECKING:
@@ -50,6 +51,19 @@ class TestOutcomes:
 
 
 _OUTCOMES_NAME = "ratefloor-test-outcomes"
+
+
+@pytest.hookimpl(wrapper=True)
+def pytest_runtest_makereport(
+    item: pytest.Item, call: pytest.CallInfo[None]
+) -> Generator[None, pytest.TestReport, pytest.TestReport]:
+    """A failure of this plugin shows its figures first in the short summary line."""
+    rep = yield
+    line = short_failure_line(call.excinfo)
+    crash = getattr(rep.longrepr, "reprcrash", None)
+    if line is not None and crash is not None:
+        crash.message = line
+    return rep
 
 
 def pytest_deselected(items: list[pytest.Item]) -> None:
@@ -88,7 +102,9 @@ def pytest_terminal_summary(terminalreporter: Any, config: pytest.Config) -> Non
     gate = config.stash.get(SESSION_KEY, None)
     if gate is None or is_worker(config):
         return
-    lines = gate.summary_lines(int(config.getoption("verbose") or 0))
+    lines = gate.summary_lines(int(config.getoption("verbose") or 0),
+                               width=config.get_terminal_writer().fullwidth,
+                               base=config.invocation_params.dir)
     if not lines:
         return
     terminalreporter.write_sep("=", report.SUMMARY_TITLE)

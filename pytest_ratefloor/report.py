@@ -1,24 +1,34 @@
-"""Efficiency reports: the terminal summary, Markdown and JSON files, the CI job summary, the plot.
+"""Efficiency reports: Markdown and JSON files, the CI job summary, the plot.
 
 Everything here turns rows — :class:`~pytest_ratefloor.verdicts.Comparison`
 records, a case beside its ledger entry, or a case on its own for a plain
 listing — into text or an image; nothing here reads pytest state and nothing
 here recomputes a figure the case record or the comparison already holds.
-The same Markdown table serves the ``--ratefloor-report`` file, the GitHub job
-summary and ``ratefloor show``.
+The terminal summary is :mod:`pytest_ratefloor.summary`; the small cell
+formatters it shares with the reports and the CLI are here.
+
+The Markdown report (``--ratefloor-report *.md``, the GitHub job summary,
+``ratefloor show``) names the run (date, git commit, plugin, Python, numpy,
+platform), the ledger tally, the cases that fail first, one table per codec
+(worst verdict first: source, n, seed, layout, entropy, floor and its kind, rate,
+bits, the rate the tolerance allowed, efficiency, the test's outcome and the
+change against the ledger) and a legend of the floors used. The job summary
+folds the unchanged cases away under a ``<details>`` block.
+
+The JSON report (``--ratefloor-report *.json``) carries the same per case, with
+the test ids that measured it, the tolerance, the verdicts and the run's
+timestamp; its layout is published as a JSON Schema in the package
+(``pytest_ratefloor/schemas/report.schema.json``, see :func:`schema_path`).
 
 Each case shows its ``layout`` — how the codec turned symbols into bytes or
-bits (a byte packing such as ``u8``, or a command), ``–`` when unknown: a
-column of the ``-v`` summary, a column of a Markdown codec table when any of its
-cases has one, and a field of the JSON report (``null`` when unknown).
+bits (a byte packing such as ``u8``, or a command), ``–`` when unknown.
 
 Codec names, source specs, codec versions, layouts, floor names and ledger paths come
 from users' code or from a ledger file, so they are untrusted text: every
-place that shows one passes it through :func:`terminal_text` (terminal and
-plain-text output), :func:`markdown_text` (Markdown) or :func:`plot_text`
-(matplotlib labels). JSON output keeps the raw strings (``json.dumps``
-escapes them) and never writes ``NaN`` or ``Infinity`` (:func:`json_safe`,
-``allow_nan=False``).
+place that shows one passes it through :func:`markdown_text` or :func:`md_name`
+(Markdown) or :func:`plot_text` (matplotlib labels). JSON output keeps the raw
+strings (``json.dumps`` escapes them) and never writes ``NaN`` or ``Infinity``
+(:func:`json_safe`, ``allow_nan=False``).
 """
 
 from __future__ import annotations
@@ -31,16 +41,15 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Literal
 
-from pytest_ratefloor.escaping import json_safe, markdown_text, md_name, terminal_text
+from pytest_ratefloor.escaping import json_safe, markdown_text, md_name
 from pytest_ratefloor.ledger import Environment, entry_json
 from pytest_ratefloor.measurement import Measurement
 from pytest_ratefloor.recording import write_atomic
 from pytest_ratefloor.verdicts import (
     SUSPICIOUS_SPREADS,
     VERDICTS,
-    Colour,
     Comparison,
-    counts_of,
+    worst_first,
 )
 
 #: Version of the JSON report layout.
@@ -81,6 +90,23 @@ class RunOutcome:
     strict: bool = False
     #: (case label, reason) of each case a recording left out because its test failed
     not_recorded: tuple[tuple[str, str], ...] = ()
+    #: (what, path) of each file the run wrote besides the ledger: report, plot, job summary
+    written: tuple[tuple[str, str], ...] = ()
+    #: the run's start, ISO 8601 in UTC (``None``: not known, e.g. ``ratefloor show``)
+    started: str | None = None
+    #: the git commit the run measured (``abc123def456`` or ``abc123def456+dirty``)
+    commit: str | None = None
+    #: the node ids of the tests that measured each case (by case label)
+    test_ids: Mapping[str, tuple[str, ...]] = field(default_factory=dict)
+    #: node id -> why that test did not pass (tests absent here passed)
+    failed_tests: Mapping[str, str] = field(default_factory=dict)
+
+    def test_outcome(self, label: str) -> str | None:
+        """``passed``/``failed`` for the tests that measured the case, ``None`` if unknown."""
+        ids = self.test_ids.get(label, ())
+        if not ids:
+            return None
+        return "failed" if any(i in self.failed_tests for i in ids) else "passed"
 
 
 # -- small formatters ---------------------------------------------------------------
@@ -144,10 +170,12 @@ def floor_cell(m: Measurement, escape: Callable[[str], str]) -> str:
     return text if m.floor in ("", "entropy") else f"{text} ({escape(m.floor)})"
 
 
-# -- terminal summary -------------------------------------------------------------
+# -- plain-text tables ----------------------------------------------------------------
 
 
 def align(table: list[list[str]], right: set[int]) -> list[str]:
+    """Rows of cells as lines: each column as wide as its widest cell, columns in
+    ``right`` right-aligned, two spaces between columns."""
     widths = [max(len(r[i]) for r in table) for i in range(len(table[0]))]
     lines = []
     for r in table:
@@ -157,170 +185,9 @@ def align(table: list[list[str]], right: set[int]) -> list[str]:
     return lines
 
 
-@dataclass(frozen=True)
-class Line:
-    """One line of the terminal summary and the colour its status gives it."""
-
-    text: str
-    colour: Colour = ""
-
-
-def _tally_colour(outcome: RunOutcome) -> Colour:
-    """Red when the run fails on the ledger, yellow for what deserves a look, else green."""
-    if outcome.problems or any(
-        outcome.counts.get(name, 0) for name, kind in VERDICTS.items() if kind.fails
-    ):
-        return "red"
-    if outcome.stale or outcome.not_recorded or any(
-        outcome.counts.get(name, 0) for name, kind in VERDICTS.items() if kind.colour == "yellow"
-    ):
-        return "yellow"
-    return "green"
-
-
-#: How many not-recorded cases the summary lists (``-v`` lists all, ``-q`` fewer).
-NOT_RECORDED_SHOWN = 20
-NOT_RECORDED_HEADING = "not recorded (their tests failed):"
-
-
 def _first_line(text: str) -> str:
     lines = str(text).strip().splitlines()
     return lines[0] if lines else ""
-
-
-#: How a recording describes what it wrote, by the verdict the case had against the old entry.
-_WRITTEN_AS: dict[str, str] = {
-    "regressed": "re-recorded with more bits", "resampled": "re-recorded on a new sample",
-    "within-slack": "re-recorded within the slack", "improved": "re-recorded with fewer bits",
-    "new": "new", "unchanged": "unchanged",
-}
-
-
-def recorded_text(rows: Sequence[Comparison], outcome: RunOutcome) -> str:
-    """What a recording wrote: ``wrote 13 cases (1 re-recorded with more bits, 2 new, ...)``
-    and how many cases it left out because their tests failed."""
-    skipped = {label for label, _ in outcome.not_recorded}
-    written = [r for r in rows if r.current is not None and r.key.label not in skipped]
-    by_verdict = counts_of(written)
-    parts = [f"{by_verdict[v]} {text}" for v, text in _WRITTEN_AS.items() if by_verdict.get(v)]
-    text = f"wrote {len(written)} case{'s' if len(written) != 1 else ''}"
-    if parts:
-        text += f" ({', '.join(parts)})"
-    if skipped:
-        text += f"; {len(skipped)} not recorded (their tests failed)"
-    return text
-
-
-def _ledger_line(outcome: RunOutcome, rows: Sequence[Comparison]) -> Line | None:
-    """The one line that names the ledger file and, once there is one, its tally (after a
-    recording: what was written)."""
-    any_rows = bool(rows)
-    if outcome.ledger_path is None:
-        return None
-    path = terminal_text(str(outcome.ledger_path))
-    strict = ", strict mode" if outcome.strict else ""
-    if not outcome.ledger_exists and not outcome.recorded:
-        what = "every case is new" if any_rows else "nothing was measured"
-        return Line(f"no ledger at {path} yet{strict}: {what}; "
-                    "create it with: pytest --ratefloor-record", "yellow")
-    slack = f", slack {100.0 * outcome.slack:g}%" if outcome.slack else ""
-    if outcome.recorded:
-        return Line(f"ledger recorded into {path}{strict}: {recorded_text(rows, outcome)}",
-                    _tally_colour(outcome))
-    return Line(f"ledger compared with {path}{slack}{strict}: {counts_text(outcome.counts)}",
-                _tally_colour(outcome))
-
-
-def _capped(items: Sequence[str], limit: int | None, more_hint: str) -> list[Line]:
-    """``items`` as indented lines, at most ``limit`` of them (``None``: all)."""
-    shown = items if limit is None else items[:limit]
-    lines = [Line(f"  {text}") for text in shown]
-    if len(shown) < len(items):
-        lines.append(Line(f"  ... and {len(items) - len(shown)} more{more_hint}"))
-    return lines
-
-
-def suspicious_lines(rows: Sequence[Comparison], escape: Callable[[str], str]) -> list[Line]:
-    """A note naming cases whose bits dropped on the same sample by more than the sampling
-    spread (see :attr:`~pytest_ratefloor.verdicts.Comparison.suspicious_drop`)."""
-    flagged = [r for r in rows if r.suspicious_drop]
-    if not flagged:
-        return []
-    out = [Line(f"worth a look: {len(flagged)} case(s) dropped on the same sample by more "
-                f"than {SUSPICIOUS_SPREADS:g} sampling spreads (genuine, or a decoder fed "
-                "from outside the stream):", "yellow")]
-    for r in flagged[:NOT_RECORDED_SHOWN]:
-        out.append(Line(f"  {escape(r.key.label)}: {r.delta_bits:+,} bits", "yellow"))
-    return out
-
-
-def summary_lines(rows: Sequence[Comparison], outcome: RunOutcome, verbose: bool = False,
-                  quiet: bool = False) -> list[Line]:
-    """The terminal summary: one line per case, then the ledger line and the caution.
-
-    Compact: codec, source, entropy, floor, rate, efficiency, change against the
-    ledger. ``verbose`` adds n, seed, the layout, bits, ledger bits, excess, the smallest
-    excess the case detects (``Measurement.detectable_excess``: the tolerance
-    plus 3.09 sampling spreads of a noisy floor) and timings, and
-    lists every stale entry and every case left out of a recording (compact lists
-    at most five and :data:`NOT_RECORDED_SHOWN`). ``quiet`` leaves out the cases
-    whose bits equal the ledger's and shortens the lists, but the line naming the
-    ledger file is always there when the outcome has one. Each line's colour comes
-    from the verdict table (:data:`~pytest_ratefloor.verdicts.VERDICTS`), never
-    from its text. Every user-supplied string goes through :func:`terminal_text`.
-    """
-    lines: list[Line] = []
-    all_rows = rows
-    if quiet:
-        rows = [r for r in rows if r.status != "unchanged"]
-    if rows:
-        header = ["codec", "source", "H b/sym", "floor b/sym", "rate b/sym", "eff."]
-        if verbose:
-            header += ["n", "seed", "layout", "bits", "ledger bits", "excess b/sym",
-                       "detects b/sym", "enc s", "dec s"]
-        header.append("vs. ledger")
-        table = [header]
-        for r in rows:
-            m = r.case
-            name = m.codec if not (verbose and m.codec_version) else f"{m.codec} {m.codec_version}"
-            cells = [terminal_text(name), terminal_text(m.source), figure_text(m.entropy),
-                     floor_cell(m, terminal_text), figure_text(m.rate), percent_text(m.efficiency)]
-            if verbose:
-                cells += [str(m.n), str(m.seed), layout_cell(m, terminal_text), f"{m.bits:,}",
-                          "–" if r.ledger_bits is None else f"{r.ledger_bits:,}",
-                          figure_text(m.excess), figure_text(m.detectable_excess),
-                          figure_text(m.encode_seconds, 3), figure_text(m.decode_seconds, 3)]
-            cells.append(delta_text(r))
-            table.append(cells)
-        right = {2, 3, 4, 5} | ({6, 7, 9, 10, 11, 12, 13, 14} if verbose else set())
-        texts = align(table, right)
-        lines.append(Line(texts[0]))
-        lines += [Line(t, "" if r.status is None else VERDICTS[r.status].colour)
-                  for t, r in zip(texts[1:], rows)]
-    lines += suspicious_lines(all_rows, terminal_text)
-    ledger_line = _ledger_line(outcome, all_rows)
-    if ledger_line is not None:
-        lines.append(ledger_line)
-    if outcome.not_recorded:
-        lines.append(Line(NOT_RECORDED_HEADING, "yellow"))
-        limit = None if verbose else (5 if quiet else NOT_RECORDED_SHOWN)
-        lines += _capped([f"{terminal_text(label)}: {terminal_text(_first_line(why))}"
-                          for label, why in outcome.not_recorded], limit, " (-v lists all)")
-    if outcome.stale:
-        count = len(outcome.stale)
-        lines.append(Line(
-            f"stale: {count} ledger entr{'y' if count == 1 else 'ies'} not measured by this "
-            "full run (kept in the ledger; if the case is gone, 'ratefloor prune LEDGER "
-            "--report REPORT.json' with this run's JSON report removes it):", "yellow"))
-        lines += _capped([terminal_text(e.key.label) for e in outcome.stale],
-                         None if verbose else 5, " (-v lists all)")
-    elif outcome.partial_reasons:
-        why = "; ".join(terminal_text(str(r)) for r in outcome.partial_reasons)
-        lines.append(Line(f"stale entries not listed: partial run ({why})"))
-    lines += [Line(f"ERROR: {terminal_text(str(p))}", "red") for p in outcome.problems]
-    if rows or (all_rows and not quiet):
-        lines.append(Line(CAUTION))
-    return lines
 
 
 # -- Markdown ------------------------------------------------------------------------
@@ -331,22 +198,26 @@ def md_cell(text: str) -> str:
     return markdown_text(str(text))
 
 
-def markdown_tables(rows: Sequence[Comparison], with_ledger: bool = True) -> str:
-    """One table per codec (sorted), cases sorted by source, n, seed.
+def allowed_rate(m: Measurement) -> float | None:
+    """The rate the case's tolerance allowed (floor + tolerance, bits/symbol); ``None``
+    without a tolerance (a ``measure`` call, a ledger entry)."""
+    if m.tolerance_bits is None or not m.n:
+        return None
+    return (m.floor_bits + m.tolerance_bits) / m.n
+
+
+def markdown_tables(rows: Sequence[Comparison], with_ledger: bool = True,
+                    outcome: RunOutcome | None = None) -> str:
+    """One table per codec (sorted by name), cases worst verdict first.
 
     A codec's table has a ``layout`` column (after ``seed``) when any of its
-    cases knows its layout; the other tables look as they did before layouts
-    were recorded.
+    cases knows its layout, an ``allowed`` column (the rate its tolerance
+    allowed) when any case had a tolerance, and a ``test`` column (passed or
+    failed) when ``outcome`` knows which tests measured the cases.
     """
     by_codec: dict[tuple[str, str | None], list[Comparison]] = {}
     for r in rows:
         by_codec.setdefault((r.case.codec, r.case.codec_version), []).append(r)
-    header = ["source", "n", "seed", "entropy (bit/sym)", "floor (bit/sym)", "rate (bit/sym)",
-              "efficiency"]
-    align = ["---", "---:", "---:", "---:", "---:", "---:", "---:"]
-    if with_ledger:
-        header.append("vs. ledger")
-        align.append("---")
     out: list[str] = []
     for (codec, version), group in sorted(by_codec.items(),
                                           key=lambda kv: (kv[0][0], kv[0][1] or "")):
@@ -354,14 +225,36 @@ def markdown_tables(rows: Sequence[Comparison], with_ledger: bool = True) -> str
         if version:
             title += f" (version {md_cell(version)})"
         laid_out = any(r.case.layout for r in group)
-        names = [*header[:3], "layout", *header[3:]] if laid_out else header
-        marks = [*align[:3], "---", *align[3:]] if laid_out else align
-        out += [title, "", "| " + " | ".join(names) + " |", "| " + " | ".join(marks) + " |"]
-        for r in sorted(group, key=lambda r: r.key):
+        tolerant = any(allowed_rate(r.case) is not None for r in group)
+        tested = outcome is not None and any(
+            outcome.test_outcome(r.key.label) is not None for r in group)
+        columns: list[tuple[str, str]] = [("source", "---"), ("n", "---:"), ("seed", "---:")]
+        if laid_out:
+            columns.append(("layout", "---"))
+        columns += [("entropy (bit/sym)", "---:"), ("floor", "---"), ("floor (bit/sym)", "---:"),
+                    ("rate (bit/sym)", "---:"), ("bits", "---:")]
+        if tolerant:
+            columns.append(("allowed (bit/sym)", "---:"))
+        columns.append(("efficiency", "---:"))
+        if tested:
+            columns.append(("test", "---"))
+        if with_ledger:
+            columns.append(("vs. ledger", "---"))
+        out += [title, "", "| " + " | ".join(c for c, _ in columns) + " |",
+                "| " + " | ".join(a for _, a in columns) + " |"]
+        for r in worst_first(group):
             m = r.case
-            layout = [layout_cell(m, md_name)] if laid_out else []
-            cells = [md_name(m.source), str(m.n), str(m.seed), *layout, figure_text(m.entropy),
-                     floor_cell(m, markdown_text), figure_text(m.rate), percent_text(m.efficiency)]
+            cells = [md_name(m.source), f"{m.n:,}", str(m.seed)]
+            if laid_out:
+                cells.append(layout_cell(m, md_name))
+            cells += [figure_text(m.entropy), md_name(m.floor or "entropy"),
+                      figure_text(m.floor_rate), figure_text(m.rate), f"{m.bits:,}"]
+            if tolerant:
+                cells.append(figure_text(allowed_rate(m)))
+            cells.append(percent_text(m.efficiency))
+            if tested:
+                assert outcome is not None
+                cells.append(outcome.test_outcome(r.key.label) or "–")
             if with_ledger:
                 cells.append(delta_text(r))  # figures and verdict names only
             out.append("| " + " | ".join(cells) + " |")
@@ -369,14 +262,44 @@ def markdown_tables(rows: Sequence[Comparison], with_ledger: bool = True) -> str
     return "\n".join(out)
 
 
-def markdown_report(rows: Sequence[Comparison], outcome: RunOutcome, title: str = TITLE) -> str:
-    """The release-notes report: title, caution, ledger tally, per-codec tables, stale list.
+def run_line(outcome: RunOutcome, environment: Environment | None = None) -> str:
+    """``Run 2026-12-03T02:50:11Z · commit 808ab63d1f2e · pytest-ratefloor 0.1.0 · Python
+    3.11.7 · numpy 2.4.6 · Linux-x86_64``: what a release note needs to place the figures."""
+    env = environment or Environment.current()
+    parts = []
+    if outcome.started:
+        parts.append(f"Run {md_cell(outcome.started)}")
+    if outcome.commit:
+        parts.append(f"commit {md_cell(outcome.commit)}")
+    parts += [f"pytest-ratefloor {md_cell(env.plugin)}", f"Python {md_cell(env.python)}",
+              f"numpy {md_cell(env.numpy)}", md_cell(env.platform)]
+    return " · ".join(parts)
+
+
+def floor_legend(rows: Iterable[Comparison]) -> list[str]:
+    """The meaning of each floor the rows use, as Markdown list items."""
+    from pytest_ratefloor.floors import FLOORS  # numpy-heavy: only when a report is written
+
+    used = sorted({r.case.floor or "entropy" for r in rows})
+    meanings: dict[str, str] = {str(k): v for k, v in FLOORS.items()}
+    return [f"- **{md_name(name)}**: {markdown_text(meanings.get(name, 'unknown floor'))}"
+            for name in used]
+
+
+def markdown_report(rows: Sequence[Comparison], outcome: RunOutcome, title: str = TITLE,
+                    *, fold_unchanged: bool = False,
+                    environment: Environment | None = None) -> str:
+    """The release-notes report: title, caution, the run, the ledger tally, the cases that
+    fail, per-codec tables, the floors' legend, the stale list.
 
     Cases a recording left out (their tests failed) and the run's problems follow.
-    Every user-supplied string is escaped (:func:`md_name`, :func:`markdown_text`).
+    ``fold_unchanged`` (the CI job summary) puts the cases whose bits equal the ledger's
+    in a collapsed ``<details>`` block. Every user-supplied string is escaped
+    (:func:`md_name`, :func:`markdown_text`).
     """
-    out = [f"## {title}", "", f"> {CAUTION}", ""]
+    out = [f"## {title}", "", f"> {CAUTION}", "", run_line(outcome, environment), ""]
     strict = " (strict mode)" if outcome.strict else ""
+    with_ledger = outcome.ledger_path is not None
     if outcome.ledger_path is not None:
         name = md_name(outcome.ledger_path.name)
         if not outcome.ledger_exists and not outcome.recorded:
@@ -384,8 +307,25 @@ def markdown_report(rows: Sequence[Comparison], outcome: RunOutcome, title: str 
         else:
             verb = "Recorded into" if outcome.recorded else "Compared with"
             out += [f"{verb} ledger {name}{strict}: {counts_text(outcome.counts)}.", ""]
+    failing = [r for r in worst_first(rows) if r.fails]
+    if failing:
+        out += ["**Failing the gate:**", ""]
+        out += [f"- {md_name(r.case.codec)} on {md_name(r.case.source)}, n={r.case.n:,}, "
+                f"seed={r.case.seed}: {delta_text(r)}" for r in failing]
+        out.append("")
     if rows:
-        out.append(markdown_tables(rows, with_ledger=outcome.ledger_path is not None))
+        unchanged = [r for r in rows if r.status == "unchanged"] if fold_unchanged else []
+        shown = [r for r in rows if r not in unchanged] if unchanged else list(rows)
+        if shown:
+            out.append(markdown_tables(shown, with_ledger=with_ledger, outcome=outcome))
+        if unchanged:
+            count = len(unchanged)
+            out += ["<details>",
+                    f"<summary>{count} unchanged case{'s' if count != 1 else ''} "
+                    "(the same bits as the ledger)</summary>", "",
+                    markdown_tables(unchanged, with_ledger=with_ledger, outcome=outcome),
+                    "</details>", ""]
+        out += ["Floors:", "", *floor_legend(rows), ""]
     else:
         out += ["No case was measured.", ""]
     flagged = [r for r in rows if r.suspicious_drop]
@@ -402,7 +342,7 @@ def markdown_report(rows: Sequence[Comparison], outcome: RunOutcome, title: str 
         out.append("")
     if outcome.stale:
         out += ["Stale ledger entries (not measured by this full run):", ""]
-        out += [f"- {md_name(e.codec)} on {md_name(e.source)}, n={e.n}, seed={e.seed}"
+        out += [f"- {md_name(e.codec)} on {md_name(e.source)}, n={e.n:,}, seed={e.seed}"
                 for e in outcome.stale]
         out.append("")
     if outcome.problems:
@@ -419,9 +359,14 @@ def finite(value: float | None) -> float | None:
     return None if value is None or not math.isfinite(value) else float(value)
 
 
-def row_json(r: Comparison) -> dict[str, Any]:
-    """One case of the JSON report (with its ledger comparison when there is one)."""
+def row_json(r: Comparison, outcome: RunOutcome | None = None) -> dict[str, Any]:
+    """One case of the JSON report (with its ledger comparison when there is one).
+
+    ``test_ids`` are the tests that measured the case and ``test`` how they ended
+    (``passed``, ``failed``, ``null`` when not known); ``allowed_rate`` is the rate
+    the tolerance allowed (``null`` without one)."""
     m = r.case
+    label = r.key.label
     out: dict[str, Any] = {
         "codec": m.codec, "codec_version": m.codec_version, "source": m.source,
         "source_family": m.source_family, "source_params": dict(m.source_params),
@@ -432,6 +377,9 @@ def row_json(r: Comparison) -> dict[str, Any]:
         "floor_spread_bits": finite(m.floor_spread_bits),
         "detectable_excess": finite(m.detectable_excess),
         "encode_seconds": finite(m.encode_seconds), "decode_seconds": finite(m.decode_seconds),
+        "allowed_rate": finite(allowed_rate(m)),
+        "test_ids": list(outcome.test_ids.get(label, ())) if outcome is not None else [],
+        "test": outcome.test_outcome(label) if outcome is not None else None,
     }
     if r.status is not None:
         out["ledger"] = {"status": r.status, "bits": r.ledger_bits, "delta_bits": r.delta_bits,
@@ -453,7 +401,8 @@ def json_report(rows: Sequence[Comparison], outcome: RunOutcome,
     doc: dict[str, Any] = {
         "kind": REPORT_KIND, "schema": REPORT_SCHEMA_VERSION, "caution": CAUTION,
         "environment": env.to_json(),
-        "cases": [row_json(r) for r in rows],
+        "timestamp": outcome.started, "commit": outcome.commit,
+        "cases": [row_json(r, outcome) for r in worst_first(rows)],
         "problems": list(outcome.problems),
         "not_recorded": [{"case": label, "reason": why} for label, why in outcome.not_recorded],
     }

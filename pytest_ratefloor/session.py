@@ -26,16 +26,23 @@ from typing import Any
 
 import pytest
 
-from pytest_ratefloor import report
-from pytest_ratefloor.errors import LedgerError, NewerLedgerError, UnreadableLedgerError
+from pytest_ratefloor import report, summary
+from pytest_ratefloor.errors import (
+    LedgerError,
+    NewerLedgerError,
+    RateFloorFailure,
+    UnreadableLedgerError,
+)
 from pytest_ratefloor.ledger import UNREADABLE_SUFFIX, Ledger
 from pytest_ratefloor.measurement import Measurement
+from pytest_ratefloor.provenance import git_commit, run_started
 from pytest_ratefloor.recording import clean_stale_temporaries
 from pytest_ratefloor.recording import record as record_ledger
 from pytest_ratefloor.settings import Settings, marker_slack, read_settings
 from pytest_ratefloor.verdicts import Comparison, LedgerRun
 
-__all__ = ["PAYLOAD", "SESSION_KEY", "GateSession", "command_line_id", "is_worker"]
+__all__ = ["PAYLOAD", "SESSION_KEY", "GateSession", "command_line_id", "is_worker",
+           "short_failure_line"]
 
 #: Name of the worker payload in ``config.workeroutput``.
 PAYLOAD = "ratefloor"
@@ -86,6 +93,19 @@ def _open_ledger(settings: Settings, hint: str) -> tuple[Ledger, str | None]:
             ) from None
         return Ledger(path=settings.ledger_path), str(exc)
 
+def short_failure_line(excinfo: pytest.ExceptionInfo[BaseException] | None) -> str | None:
+    """What the short test summary shows for a failure of this plugin: its first line,
+    which for rate, regression and impossible-length failures starts with the figures
+    (``+2.960% bits vs ledger ...``), without the exception's module path; ``None`` for
+    anything else (pytest's own line stays)."""
+    if excinfo is None or not isinstance(excinfo.value, RateFloorFailure):
+        return None
+    exc = excinfo.value
+    first = next((line for line in str(exc).splitlines() if line.strip()), "")
+    if getattr(exc, "figures_first", False):
+        return first
+    return f"{type(exc).__name__}: {first}" if first else type(exc).__name__
+
 
 @dataclass
 class GateSession:
@@ -105,6 +125,9 @@ class GateSession:
     #: what the terminal summary prints, decided in :meth:`finish`
     rows: list[Comparison] = field(default_factory=list)
     outcome: report.RunOutcome | None = None
+    #: when the run started (ISO 8601, UTC) and the directory whose git commit it measured
+    started: str = field(default_factory=run_started)
+    rootdir: Path | None = None
 
     @classmethod
     def start(cls, config: pytest.Config) -> GateSession:
@@ -116,7 +139,8 @@ class GateSession:
         baseline, replacing = _open_ledger(settings, hint)
         run = LedgerRun(baseline=baseline, slack=settings.slack, record=settings.record,
                         record_hint=hint, strict=settings.strict)
-        session = cls(settings=settings, run=run, replacing_unreadable=replacing)
+        session = cls(settings=settings, run=run, replacing_unreadable=replacing,
+                      rootdir=Path(config.rootpath))
         if not is_worker(config):
             clean_stale_temporaries(settings.ledger_path)  # left by a writer that was killed
         if replacing and not is_worker(config):
@@ -185,13 +209,17 @@ class GateSession:
         if self.outcome.problems and session.exitstatus == pytest.ExitCode.OK:
             session.exitstatus = pytest.ExitCode.TESTS_FAILED
 
-    def summary_lines(self, verbosity: int) -> list[report.Line]:
-        """The terminal summary (empty when the run measured nothing and found nothing)."""
+    def summary_lines(self, verbosity: int, width: int | None = None,
+                      base: Path | None = None) -> list[summary.Line]:
+        """The terminal summary (empty when the run measured nothing and found nothing):
+        ``verbosity`` is pytest's (-v: 1, -q: -1, -qq: -2), ``width`` the terminal's, paths
+        shown relative to ``base``."""
         outcome = self.outcome
         if outcome is None or (not self.rows and not outcome.stale and not outcome.problems):
             return []
-        return report.summary_lines(self.rows, outcome, verbose=verbosity > 0,
-                                    quiet=verbosity < 0)
+        return summary.summary_lines(self.rows, outcome, verbose=verbosity > 0,
+                                     quiet=verbosity < 0, very_quiet=verbosity < -1,
+                                     width=width, base=base)
 
     def _partial_reasons(self, session: pytest.Session, exitstatus: int) -> list[str]:
         """Why this run may not have measured every case (stale entries are then not listed)."""
@@ -267,26 +295,36 @@ class GateSession:
             slack=settings.slack, recorded=recorded, counts=run.counts(), stale=stale,
             partial_reasons=tuple(run.partial_reasons), problems=tuple(problems),
             strict=settings.strict, not_recorded=tuple(not_recorded),
+            started=self.started,
+            commit=git_commit(self.rootdir) if self.rootdir is not None and rows else None,
+            test_ids={k.label: tuple(sorted(v)) for k, v in run.origins.items()},
+            failed_tests=dict(self.not_passed),
         )
         extra: list[str] = []
+        written: list[tuple[str, str]] = []
         if settings.report_path is not None:
             try:
                 report.write_report(settings.report_path, rows, outcome)
+                written.append(("report", str(settings.report_path)))
             except OSError as exc:
                 extra.append(f"report {settings.report_path} not written: {exc}")
         if rows:
             try:
-                report.append_step_summary(report.markdown_report(rows, outcome))
+                step = report.append_step_summary(
+                    report.markdown_report(rows, outcome, fold_unchanged=True))
+                if step is not None:
+                    written.append(("job summary", str(step)))
             except OSError as exc:
                 extra.append(f"GITHUB_STEP_SUMMARY not appended: {exc}")
         if settings.plot_path is not None:
             try:
                 report.write_plot(settings.plot_path, rows)
+                written.append(("plot", str(settings.plot_path)))
             except Exception as exc:  # matplotlib raises many kinds; the run must not crash
                 extra.append(f"plot {settings.plot_path} not written: "
                              f"{type(exc).__name__}: {exc}")
-        if extra:
-            outcome = dataclasses.replace(outcome, problems=(*problems, *extra))
+        outcome = dataclasses.replace(outcome, problems=(*problems, *extra),
+                                      written=tuple(written))
         return rows, outcome
 
 

@@ -40,6 +40,7 @@ __all__ = [
     "compare",
     "counts_of",
     "listed",
+    "worst_first",
 ]
 
 Status = Literal[
@@ -191,6 +192,15 @@ def compare(current: Measurement | None, baseline: Measurement | None,
     return Comparison(current.key, status, current, baseline, slack)
 
 
+_RANK: dict[str, int] = {name: i for i, name in enumerate(VERDICTS)}
+
+
+def worst_first(rows: Iterable[Comparison]) -> list[Comparison]:
+    """Rows in the verdict table's order (regressed first, unchanged last), then by case;
+    a plain listing (no verdict) keeps the case order."""
+    return sorted(rows, key=lambda r: (_RANK[r.status] if r.status else 0, r.key))
+
+
 def listed(case: Measurement) -> Comparison:
     """A case shown on its own (a ledger listing): no verdict."""
     return Comparison(case.key, None, case, None)
@@ -216,10 +226,10 @@ def regression_message(comparison: Comparison, ledger_path: Path, record_hint: s
     assert comparison.delta_bits is not None
     assert comparison.delta_pct is not None
     return (
-        f"rate regression: {comparison.key.phrase} needs {comparison.current.bits:,} bits; "
-        f"the ledger holds {comparison.baseline.bits:,} bits\n"
-        f"  delta: {comparison.delta_bits:+,} bits ({_signed_pct(comparison.delta_pct)}), "
-        f"allowed slack {100.0 * comparison.slack:g}%\n"
+        f"{_signed_pct(comparison.delta_pct)} bits vs ledger ({comparison.delta_bits:+,} bits, "
+        f"slack {100.0 * comparison.slack:g}%): {comparison.key.phrase}\n"
+        f"  rate regression: needs {comparison.current.bits:,} bits; the ledger holds "
+        f"{comparison.baseline.bits:,} bits\n"
         f"  ledger: {ledger_path}\n"
         f"  if the increase is intended, record the new figure: {record_hint}"
     )

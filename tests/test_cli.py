@@ -62,8 +62,10 @@ def test_show_markdown(two_ledgers: tuple[Path, Path], capsys: pytest.CaptureFix
     assert "Recorded with pytest-ratefloor" in out
     rows = md_rows(out)
     assert rows
-    assert all(len(r) == 7 for r in rows)  # source, n, seed, entropy, floor, rate, efficiency
-    assert "| `uniform(k=4)` | 1000 | 0 | 2.0000 | 2.0000 | 2.0000 | 100.00% |" in out
+    # source, n, seed, entropy, floor kind, floor, rate, bits, efficiency
+    assert all(len(r) == 9 for r in rows)
+    assert ("| `uniform(k=4)` | 1,000 | 0 | 2.0000 | `entropy` | 2.0000 | 2.0000 | 2,000 "
+            "| 100.00% |") in out
 
 
 def test_show_json(two_ledgers: tuple[Path, Path], capsys: pytest.CaptureFixture[str]) -> None:

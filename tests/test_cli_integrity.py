@@ -237,7 +237,7 @@ def test_show_extreme_values(extreme: tuple[Path, Path], capsys: pytest.CaptureF
     out = capsys.readouterr().out
     rows = md_rows(out)
     assert len(rows) == 2 + 3
-    assert all(len(r) == 7 for r in rows)
+    assert all(len(r) == 9 for r in rows)
 
     assert main(["show", str(path), "--format", "json"]) == 0
     doc = strict_json(capsys.readouterr().out)

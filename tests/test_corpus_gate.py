@@ -73,7 +73,10 @@ def test_the_ledger_gates_corpus_cases_like_synthetic_ones(pytester: pytest.Pyte
     (folder / "monday.log").write_text(LOG + "gauge K9 level 0 mm fault\n")  # edited file
     result = pytester.runpytest(*INNER)
     result.assert_outcomes(passed=2)
-    result.stdout.fnmatch_lines(["*monday.log*new*"])  # a new case, not a false comparison
+    # a new case, not a false comparison (-v: the full spec, whatever the terminal width)
+    result = pytester.runpytest(*INNER, "-v")
+    result.stdout.fnmatch_lines(["*monday.log*new",
+                                 "*0 regressed, 0 improved, 1 new, 1 unchanged*"])
 
 
 def test_corpus_of_a_folder_or_glob_is_one_case_per_file_and_gate_takes_either(

@@ -19,7 +19,7 @@ from pathlib import Path
 import pytest
 from scipy.stats import norm
 
-from pytest_ratefloor import ByteCodec, report, sources
+from pytest_ratefloor import ByteCodec, report, sources, summary
 from pytest_ratefloor.checks import check
 from pytest_ratefloor.errors import NoisyToleranceWarning
 from pytest_ratefloor.floors import DEFAULT_FLOOR
@@ -113,7 +113,7 @@ def test_the_power_is_in_the_verbose_summary_and_the_json_report(tmp_path: Path)
     m = _case(n=10_000)
     row = compare(m, None)
     outcome = report.RunOutcome(ledger_path=tmp_path / "l.json", ledger_exists=False)
-    lines = [line.text for line in report.summary_lines([row], outcome, verbose=True)]
+    lines = [line.text for line in summary.summary_lines([row], outcome, verbose=True)]
     assert "detects b/sym" in lines[0]
     assert f"{m.detectable_excess:.4f}" in lines[1]
     doc = report.json_report([row], outcome)
@@ -135,7 +135,7 @@ def test_a_drop_on_the_same_sample_beyond_the_spread_is_shown_not_failed() -> No
     assert not compare(big, base).fails
     assert not compare(small, base).suspicious_drop
     assert not compare(other_sample, base).suspicious_drop  # resampled: its own verdict
-    lines = report.summary_lines(
+    lines = summary.summary_lines(
         [compare(big, base)], report.RunOutcome(ledger_path=Path("l.json")))
     assert any("worth a look" in line.text for line in lines)
 
@@ -168,7 +168,7 @@ def test_after_recording_the_tally_says_what_was_written() -> None:
         ledger_path=Path("l.json"), recorded=True,
         not_recorded=((failed.key.label, "its test failed"),),
     )
-    lines = [line.text for line in report.summary_lines([worse, new, failed], outcome)]
+    lines = [line.text for line in summary.summary_lines([worse, new, failed], outcome)]
     tally = next(t for t in lines if t.startswith("ledger recorded into"))
     assert tally.endswith("wrote 2 cases (1 re-recorded with more bits, 1 new); "
                           "1 not recorded (their tests failed)")

@@ -9,7 +9,7 @@ from pathlib import Path
 
 import pytest
 
-from pytest_ratefloor import report, sources
+from pytest_ratefloor import report, sources, summary
 from pytest_ratefloor.ledger import Ledger
 from pytest_ratefloor.measurement import Measurement
 from pytest_ratefloor.report import CAUTION, RunOutcome
@@ -31,7 +31,7 @@ def meas(codec: str, source: str, bits: int, entropy: float, n: int = 10_000,
     )
 
 
-def texts(lines: list[report.Line]) -> list[str]:
+def texts(lines: list[summary.Line]) -> list[str]:
     return [line.text for line in lines]
 
 
@@ -104,13 +104,16 @@ def test_markdown_tables_are_well_formed(tmp_path: Path) -> None:
     assert len(tables) == 2  # one table per codec
     for table in tables:
         width = len(_md_cells(table[0]))
-        assert width == 8
+        # source n seed entropy floor floor-rate rate bits efficiency vs.-ledger
+        assert width == 10
         assert all(len(_md_cells(row)) == width for row in table), table
         assert all(re.fullmatch(r"-{3,}:?", c.strip()) for c in _md_cells(table[1]))
     # a pipe keeps a name out of a code span (GFM splits cells even there): escaped text
     assert "### Codec pair\\|coder (version 1.2)" in text
     assert "### Codec `bytes`" in text  # a plainly safe name keeps its code span
-    assert "| `uniform(k=256)` | 10000 | 0 | 8.0000 | 8.0000 | 8.0000 | 100.00% |" in text
+    assert ("| `uniform(k=256)` | 10,000 | 0 | 8.0000 | `entropy` | 8.0000 | 8.0000 | 80,000 "
+            "| 100.00% |") in text
+    assert "- **`entropy`**: n·H, the entropy of the source" in text  # the floors' legend
     assert "Stale ledger entries" in text
     assert "`gone`" in text
 
@@ -159,10 +162,12 @@ def test_step_summary_appends(tmp_path: Path) -> None:
 
 def test_summary_lines_compact_and_verbose(tmp_path: Path) -> None:
     rows, outcome = sample_rows(tmp_path)
-    compact = texts(report.summary_lines(rows, outcome))
-    verbose = texts(report.summary_lines(rows, outcome, verbose=True))
-    assert compact[0].split()[:6] == ["codec", "source", "H", "b/sym", "floor", "b/sym"]
-    assert len(compact) == len(verbose)
+    compact = texts(summary.summary_lines(rows, outcome))
+    verbose = texts(summary.summary_lines(rows, outcome, verbose=True))
+    assert compact[0].split() == ["source", "H", "floor", "kind", "rate", "eff.", "vs.", "ledger"]
+    # compact: one heading line per codec instead of a codec column (a codec whose cases
+    # sit apart in the worst-first order is named again)
+    assert len(compact) >= len(verbose) + 2
     assert "ledger bits" in verbose[0]
     assert "ledger bits" not in compact[0]
     assert any("80,100" in line for line in verbose)
@@ -180,7 +185,7 @@ def test_quiet_summary_leaves_out_unchanged_cases(tmp_path: Path) -> None:
     first = rows[0].case
     same = compare(first, first.recorded())
     assert same.status == "unchanged"
-    quiet = texts(report.summary_lines([same, rows[1]], outcome, quiet=True))
+    quiet = texts(summary.summary_lines([same, rows[1]], outcome, quiet=True))
     assert not any(line.startswith(first.codec + " ") and first.source in line for line in quiet)
     assert any(rows[1].case.source in line for line in quiet)
     assert quiet[-1] == CAUTION
@@ -188,27 +193,29 @@ def test_quiet_summary_leaves_out_unchanged_cases(tmp_path: Path) -> None:
 
 def test_partial_run_says_why_stale_is_not_listed() -> None:
     outcome = RunOutcome(partial_reasons=("-k",))
-    assert texts(report.summary_lines([], outcome)) == [
+    assert texts(summary.summary_lines([], outcome)) == [
         "stale entries not listed: partial run (-k)"
     ]
 
 
 def test_colour_comes_from_the_verdict_not_the_text(tmp_path: Path) -> None:
     rows, outcome = sample_rows(tmp_path)
-    lines = report.summary_lines(rows, outcome)
+    lines = summary.summary_lines(rows, outcome)
     tally = next(line for line in lines if line.text.startswith("ledger compared with"))
     assert "0 regressed" in tally.text
     assert tally.colour == "yellow"  # a within-slack case and a stale entry deserve a look
     clean = RunOutcome(ledger_path=outcome.ledger_path, counts={"regressed": 0, "unchanged": 3})
-    (clean_tally,) = report.summary_lines([], clean)
+    (clean_tally,) = summary.summary_lines([], clean)
     assert clean_tally.colour == "green"
     regressed = compare(rows[0].case, Measurement(**{**rows[0].case.__dict__, "bits": 1}))
     assert regressed.status == "regressed"
     failing = RunOutcome(ledger_path=outcome.ledger_path, counts={"regressed": 1})
-    colours = {line.text.split()[0]: line.colour
-               for line in report.summary_lines([regressed], failing)}
+    lines = summary.summary_lines([regressed], failing)
+    colours = {line.text.split()[0]: line.colour for line in lines}
     assert colours["ledger"] == "red"
-    assert colours[rows[0].case.codec] == "red"
+    row = next(line for line in lines if rows[0].case.source in line.text)
+    assert row.colour == "red"
+    assert "regressed" in row.text
 
 
 def test_show_rows_from_entries() -> None:
@@ -267,17 +274,17 @@ def test_the_summary_always_names_the_ledger(tmp_path: Path) -> None:
     counts = {"unchanged": len(same)}
     plain = RunOutcome(ledger_path=outcome.ledger_path, counts=counts)
     for verbose, quiet in ((False, False), (True, False), (False, True)):
-        lines = texts(report.summary_lines(same, plain, verbose=verbose, quiet=quiet))
+        lines = texts(summary.summary_lines(same, plain, verbose=verbose, quiet=quiet))
         assert sum(path in line for line in lines) == 1, lines
     # quiet and nothing changed: one line, the ledger's, and nothing else
-    assert texts(report.summary_lines(same, plain, quiet=True)) == [
+    assert texts(summary.summary_lines(same, plain, quiet=True)) == [
         f"ledger compared with {path}: 0 regressed, 0 improved, 0 new, 4 unchanged"
     ]
     # no ledger yet, quiet or not
     missing = RunOutcome(ledger_path=outcome.ledger_path, ledger_exists=False,
                          counts={"new": len(rows)})
     for quiet in (False, True):
-        lines = texts(report.summary_lines(rows, missing, quiet=quiet))
+        lines = texts(summary.summary_lines(rows, missing, quiet=quiet))
         assert f"no ledger at {path} yet: every case is new; create it with: " \
                "pytest --ratefloor-record" in lines
 
@@ -285,10 +292,10 @@ def test_the_summary_always_names_the_ledger(tmp_path: Path) -> None:
 def test_strict_mode_is_shown(tmp_path: Path) -> None:
     rows, outcome = sample_rows(tmp_path)
     strict = RunOutcome(**{**outcome.__dict__, "strict": True})
-    tally = next(line for line in texts(report.summary_lines(rows, strict))
+    tally = next(line for line in texts(summary.summary_lines(rows, strict))
                  if line.startswith("ledger compared with"))
     assert "slack 1%, strict mode:" in tally
-    assert "strict mode" not in "\n".join(texts(report.summary_lines(rows, outcome)))
+    assert "strict mode" not in "\n".join(texts(summary.summary_lines(rows, outcome)))
     assert "(strict mode)" in report.markdown_report(rows, strict)
     assert report.json_report(rows, strict)["ledger"]["strict"] is True
     assert report.json_report(rows, outcome)["ledger"]["strict"] is False
@@ -302,17 +309,17 @@ def _left_out(count: int) -> tuple[tuple[str, str], ...]:
 def test_not_recorded_cases_are_listed_and_capped(tmp_path: Path) -> None:
     rows, outcome = sample_rows(tmp_path)
     left = RunOutcome(**{**outcome.__dict__, "recorded": True, "not_recorded": _left_out(25)})
-    lines = report.summary_lines(rows, left)
+    lines = summary.summary_lines(rows, left)
     text = texts(lines)
-    start = text.index(report.NOT_RECORDED_HEADING)
+    start = text.index(summary.NOT_RECORDED_HEADING)
     assert lines[start].colour == "yellow"
-    listed_lines = text[start + 1:start + 1 + report.NOT_RECORDED_SHOWN]
+    listed_lines = text[start + 1:start + 1 + summary.NOT_RECORDED_SHOWN]
     assert listed_lines[0] == "  codec0 | uniform(k=2) | n=10 | seed=0: RateFailure: too many bits"
     assert all(line.startswith("  codec") for line in listed_lines)
-    assert text[start + 1 + report.NOT_RECORDED_SHOWN] == "  ... and 5 more (-v lists all)"
-    verbose = texts(report.summary_lines(rows, left, verbose=True))
+    assert text[start + 1 + summary.NOT_RECORDED_SHOWN] == "  ... and 5 more (-v lists all)"
+    verbose = texts(summary.summary_lines(rows, left, verbose=True))
     assert sum(line.startswith("  codec") for line in verbose) == 25
-    quiet = texts(report.summary_lines(rows, left, quiet=True))
+    quiet = texts(summary.summary_lines(rows, left, quiet=True))
     assert sum(line.startswith("  codec") for line in quiet) == 5
     assert "  ... and 20 more (-v lists all)" in quiet
     # the ledger line says the run was recorded, and the tally deserves a look

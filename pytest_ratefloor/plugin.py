@@ -92,6 +92,7 @@ def pytest_testnodedown(node: Any, error: object) -> None:
     node.config.stash[SESSION_KEY].worker_down(node, error)
 
 
+@pytest.hookimpl(tryfirst=True)  # before junitxml writes its file (see add_junit_tally)
 def pytest_sessionfinish(session: pytest.Session, exitstatus: int) -> None:
     gate = session.config.stash.get(SESSION_KEY, None)
     if gate is not None and not session.config.option.collectonly:

@@ -263,16 +263,17 @@ def markdown_tables(rows: Sequence[Comparison], with_ledger: bool = True,
 
 
 def run_line(outcome: RunOutcome, environment: Environment | None = None) -> str:
-    """``Run 2026-12-03T02:50:11Z · commit 808ab63d1f2e · pytest-ratefloor 0.1.0 · Python
-    3.11.7 · numpy 2.4.6 · Linux-x86_64``: what a release note needs to place the figures."""
+    """``Run `2026-12-03T02:50:11Z` · commit `808ab63d1f2e` · pytest-ratefloor `0.1.0` ·
+    Python `3.11.7` · numpy `2.4.6` · `Linux-x86_64```: what a release note needs to place
+    the figures (each value a code span, or escaped text when it could not be one)."""
     env = environment or Environment.current()
     parts = []
     if outcome.started:
-        parts.append(f"Run {md_cell(outcome.started)}")
+        parts.append(f"Run {md_name(outcome.started)}")
     if outcome.commit:
-        parts.append(f"commit {md_cell(outcome.commit)}")
-    parts += [f"pytest-ratefloor {md_cell(env.plugin)}", f"Python {md_cell(env.python)}",
-              f"numpy {md_cell(env.numpy)}", md_cell(env.platform)]
+        parts.append(f"commit {md_name(outcome.commit)}")
+    parts += [f"pytest-ratefloor {md_name(env.plugin)}", f"Python {md_name(env.python)}",
+              f"numpy {md_name(env.numpy)}", md_name(env.platform)]
     return " · ".join(parts)
 
 

@@ -39,7 +39,7 @@ from pytest_ratefloor.provenance import git_commit, run_started
 from pytest_ratefloor.recording import clean_stale_temporaries
 from pytest_ratefloor.recording import record as record_ledger
 from pytest_ratefloor.settings import Settings, marker_slack, read_settings
-from pytest_ratefloor.verdicts import Comparison, LedgerRun
+from pytest_ratefloor.verdicts import VERDICTS, Comparison, LedgerRun
 
 __all__ = ["PAYLOAD", "SESSION_KEY", "GateSession", "command_line_id", "is_worker",
            "short_failure_line"]
@@ -105,6 +105,27 @@ def short_failure_line(excinfo: pytest.ExceptionInfo[BaseException] | None) -> s
     if getattr(exc, "figures_first", False):
         return first
     return f"{type(exc).__name__}: {first}" if first else type(exc).__name__
+
+
+def add_junit_tally(config: pytest.Config, outcome: report.RunOutcome) -> None:
+    """The run's ledger tally as suite-level JUnit XML properties (``ratefloor.tally``,
+    e.g. ``1 regressed, 2 improved, 0 new, 15 unchanged``, and ``ratefloor.failing``,
+    the number of cases that fail the gate), when ``--junitxml`` is on.
+
+    pytest's junitxml plugin writes the file in its own ``pytest_sessionfinish``;
+    the plugin's runs first (``tryfirst``), so the properties are in the file.
+    """
+    try:
+        from _pytest.junitxml import xml_key  # what record_testsuite_property uses
+    except ImportError:  # pragma: no cover - a pytest without it
+        return
+    xml = config.stash.get(xml_key, None)
+    if xml is None or outcome.ledger_path is None:
+        return
+    failing = sum(count for name, count in outcome.counts.items()
+                  if name in VERDICTS and VERDICTS[name].fails)
+    xml.add_global_property("ratefloor.tally", report.counts_text(outcome.counts))
+    xml.add_global_property("ratefloor.failing", failing)
 
 
 @dataclass
@@ -206,6 +227,7 @@ class GateSession:
             config.workeroutput[PAYLOAD] = self.run.payload()  # type: ignore[attr-defined]
             return
         self.rows, self.outcome = self._write_outputs()
+        add_junit_tally(config, self.outcome)
         if self.outcome.problems and session.exitstatus == pytest.ExitCode.OK:
             session.exitstatus = pytest.ExitCode.TESTS_FAILED
 

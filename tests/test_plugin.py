@@ -312,6 +312,7 @@ def test_failed_write_keeps_the_old_ledger(pytester: pytest.Pytester,
 
 KILL_CONFTEST = '''
 import os, signal
+import pytest
 import pytest_ratefloor.recording as recording_module
 
 _real_fsync = os.fsync
@@ -320,6 +321,7 @@ def _die(fd):
     # the ledger's temporary file is written but not yet renamed: kill the run here
     os.kill(os.getpid(), signal.SIGKILL)
 
+@pytest.hookimpl(tryfirst=True)  # the plugin's own runs first too: be before it
 def pytest_sessionfinish(session):
     recording_module.os.fsync = _die
 '''

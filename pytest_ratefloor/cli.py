@@ -234,7 +234,8 @@ def render_diff(old: Ledger, new: Ledger, lines: Sequence[Comparison], fmt: str,
     if fmt == "json":
         return _diff_json(old, new, lines, shown, allow_dropped)
     counts = counts_of(lines)
-    tally = ", ".join(f"{counts[s]} {s}" for s in VERDICTS)
+    # every verdict, zero or not; "traded" (lossy cases only) when it occurs
+    tally = ", ".join(f"{counts[s]} {s}" for s in VERDICTS if counts[s] or s != "traded")
     _, result = diff_outcome(lines, allow_dropped)
     header = ["codec", "source", "n", "seed", "old bits", "new bits", "Δ bits", "Δ %", "verdict"]
     rows = []

@@ -72,7 +72,7 @@ from pytest_ratefloor.errors import (
     NewerLedgerError,
     UnreadableLedgerError,
 )
-from pytest_ratefloor.measurement import CaseKey, Measurement, figure
+from pytest_ratefloor.measurement import LOSSY_FLOOR, CaseKey, Measurement, figure
 
 #: Version of the ledger layout this plugin reads and writes.
 SCHEMA_VERSION = 1
@@ -94,8 +94,11 @@ _COUNT_LIMIT = 2**63
 #: longest integer literal converted: CPython's default int_max_str_digits
 _MAX_INT_DIGITS = 4300
 _TOP_FIELDS = ("cases", "kind", "note", "recorded_with", "schema")
-_REQUIRED_FIELDS = ("bits", "codec", "entropy", "floor", "floor_rate", "n", "seed", "source")
-_OPTIONAL_FIELDS = ("codec_version", "fingerprint", "layout", "rate")
+_REQUIRED_FIELDS = ("bits", "codec", "floor", "floor_rate", "n", "seed", "source")
+#: ``entropy`` is required of a lossless case; a lossy case (``distortion`` and
+#: ``distortion_measure``, both or neither) of a real-valued source has none
+_OPTIONAL_FIELDS = ("codec_version", "distortion", "distortion_measure", "entropy",
+                    "fingerprint", "layout", "rate")
 _CASE_FIELDS = tuple(sorted((*_REQUIRED_FIELDS, *_OPTIONAL_FIELDS)))
 _ENVIRONMENT_FIELDS = ("numpy", "platform", "plugin", "python")
 _FILE_KINDS = (
@@ -141,6 +144,11 @@ def entry_json(m: Measurement) -> dict[str, Any]:
         out["codec_version"] = m.codec_version
     if m.layout:  # absent when unknown: entries without one keep their bytes
         out["layout"] = m.layout
+    if m.distortion is not None:  # a lossy case: its distortion is compared too
+        out["distortion"] = figure(m.distortion)
+        out["distortion_measure"] = m.distortion_measure or ""
+        if not math.isfinite(m.entropy):  # a real-valued source has no entropy in bits
+            del out["entropy"]
     return out
 
 
@@ -213,13 +221,31 @@ def read_case(obj: object, where: str) -> Measurement:
 
     n, bits = _count(obj, "n", 1, where), _count(obj, "bits", 0, where)
     seed = _count(obj, "seed", 0, where)
-    floor_rate, entropy = _number(obj, "floor_rate", where), _number(obj, "entropy", where)
+    lossy = "distortion" in obj or "distortion_measure" in obj
+    distortion: float | None = None
+    measure: str | None = None
+    if lossy:
+        for name in ("distortion", "distortion_measure"):
+            if name not in obj:
+                raise UnreadableLedgerError(f"{where} lacks the field {name!r} (a lossy case "
+                                            "has both 'distortion' and 'distortion_measure')")
+        distortion = _number(obj, "distortion", where)
+        if distortion < 0.0:
+            raise UnreadableLedgerError(f"{where} has a bad 'distortion': {distortion!r} "
+                                        "(must be >= 0)")
+        measure = _text(obj, "distortion_measure", where)
+    elif "entropy" not in obj:
+        raise UnreadableLedgerError(f"{where} lacks the field 'entropy'")
+    floor_rate = _number(obj, "floor_rate", where)
+    entropy = _number(obj, "entropy", where) if "entropy" in obj else math.nan
     if "rate" in obj:
         _number(obj, "rate", where)  # derived from bits and n on reading; checked all the same
     floor = _text(obj, "floor", where)
-    if floor not in FLOORS:
+    known = (LOSSY_FLOOR,) if lossy else tuple(FLOORS)
+    if floor not in known:
         raise UnreadableLedgerError(
-            f"{where} has an unknown 'floor': {_shown(floor)}; known: {', '.join(FLOORS)}"
+            f"{where} has an unknown 'floor': {_shown(floor)}; known"
+            f"{' for a lossy case' if lossy else ''}: {', '.join(known)}"
         )
     floor_bits = floor_rate * n
     if not math.isfinite(floor_bits):
@@ -232,6 +258,7 @@ def read_case(obj: object, where: str) -> Measurement:
         codec_version=(_text(obj, "codec_version", where, empty=True)
                        if "codec_version" in obj else None),
         layout=_text(obj, "layout", where) if "layout" in obj else None,
+        distortion=distortion, distortion_measure=measure,
     )
 
 

@@ -27,6 +27,7 @@ if TYPE_CHECKING:  # numpy is imported where a sample is hashed, not at pytest s
 
 __all__ = [
     "DETECTION_Z",
+    "LOSSY_FLOOR",
     "NOISY_FLOORS",
     "CaseKey",
     "Measurement",
@@ -39,6 +40,9 @@ __all__ = [
 #: the sample's luck, about √(n·V) bits with V the varentropy rate. The others
 #: (``sample``, ``empirical``, ``adaptive``) are computed on the very sample.
 NOISY_FLOORS = frozenset({"entropy", "huffman"})
+#: The floor of a lossy case: n·R(D̂), the source's rate–distortion function at the
+#: distortion the codec reached on the sample (bits; see pytest_ratefloor.ratedistortion).
+LOSSY_FLOOR = "rate-distortion"
 #: One-sided standard normal quantile for 99.9 %: Φ⁻¹(0.999) = 3.0902 (tables;
 #: scipy.stats.norm.ppf(0.999) gives 3.090232306). A coder whose expected excess
 #: is the detectable excess fails on at least 99.9 % of samples.
@@ -112,11 +116,33 @@ class Measurement:
     #: ``"zigzag-u16le"``, a short command description, or ``None`` (unknown, or a codec that
     #: has none). Unlike the other run details it is kept in the ledger.
     layout: str | None = None
+    #: lossy cases only (``None`` for a lossless one): the measured mean distortion D̂ and
+    #: the measure's label (``mse``, ``abs``, ``hamming``, ``matrix:<hash>``). A lossy
+    #: case's floor is :data:`LOSSY_FLOOR`: ``floor_bits`` is n·R(D̂), and ``entropy`` is
+    #: NaN for a real-valued source (it has no entropy in bits). Both are kept in the ledger.
+    distortion: float | None = None
+    distortion_measure: str | None = None
+    #: lossy cases under MSE: the source's variance σ² (for the SNR); a run detail
+    variance: float | None = None
 
     @property
     def key(self) -> CaseKey:
         """The ledger key: codec name, source spec, n and seed."""
         return CaseKey(self.codec, self.source, self.n, self.seed)
+
+    @property
+    def lossy(self) -> bool:
+        """A lossy case: it has a measured distortion and the rate–distortion floor."""
+        return self.distortion is not None
+
+    @property
+    def snr_db(self) -> float | None:
+        """MSE cases with a known variance: 10·log10(σ²/D̂) dB (``inf`` at D̂ = 0)."""
+        if self.variance is None or self.distortion is None or self.distortion_measure != "mse":
+            return None
+        if self.distortion <= 0.0:
+            return math.inf
+        return 10.0 * math.log10(self.variance / self.distortion)
 
     @property
     def rate(self) -> float:
@@ -180,6 +206,9 @@ class Measurement:
             floor_bits=floor_rate * n, fingerprint=str(self.fingerprint),
             codec_version=None if self.codec_version is None else str(self.codec_version),
             layout=str(self.layout) if self.layout else None,
+            distortion=None if self.distortion is None else figure(float(self.distortion)),
+            distortion_measure=(None if self.distortion_measure is None
+                                else str(self.distortion_measure)),
         )
 
     def to_record(self) -> dict[str, Any]:

@@ -43,7 +43,7 @@ from typing import Any, Literal
 
 from pytest_ratefloor.escaping import json_safe, markdown_text, md_name
 from pytest_ratefloor.ledger import Environment, entry_json
-from pytest_ratefloor.measurement import Measurement
+from pytest_ratefloor.measurement import LOSSY_FLOOR, Measurement
 from pytest_ratefloor.recording import write_atomic
 from pytest_ratefloor.verdicts import (
     SUSPICIOUS_SPREADS,
@@ -113,8 +113,9 @@ class RunOutcome:
 
 
 def figure_text(value: float | None, digits: int = 4) -> str:
-    """A figure in a table cell: fixed decimals, ``–`` when missing, ``inf`` when infinite."""
-    if value is None:
+    """A figure in a table cell: fixed decimals, ``–`` when missing (or NaN: a real-valued
+    source's entropy), ``inf`` when infinite."""
+    if value is None or math.isnan(value):
         return "–"
     if math.isinf(value):
         return "inf"
@@ -134,19 +135,26 @@ def signed_pct(value: float) -> str:
     return f"{value:+.3f}%" if math.isfinite(value) else ("+inf%" if value > 0 else "-inf%")
 
 
-def delta_text(row: Comparison) -> str:
-    """The ``vs. ledger`` cell: ``new``, ``= ledger``, or ``+12 bits (+0.010%) regressed``."""
+def delta_text(row: Comparison, short: bool = False) -> str:
+    """The ``vs. ledger`` cell: ``new``, ``= ledger``, ``+12 bits (+0.010%) regressed``;
+    ``short`` leaves out the bits (``+0.010% regressed``). A lossy case adds the change of
+    its distortion (``+12 bits (+0.010%), D +1.250% regressed``)."""
     if row.status is None:
         return ""
     if row.status == "new":
         return "new"
     if row.status == "resampled":
-        return "resampled (not comparable: re-record)"
+        return "resampled: re-record" if short else "resampled (not comparable: re-record)"
     if row.status == "unchanged":
         return "= ledger"
     if row.delta_bits is None or row.delta_pct is None:
         return row.status
-    return f"{row.delta_bits:+,} bits ({signed_pct(row.delta_pct)}) {row.status}"
+    text = signed_pct(row.delta_pct) if short else \
+        f"{row.delta_bits:+,} bits ({signed_pct(row.delta_pct)})"
+    d_pct = row.delta_distortion_pct
+    if d_pct is not None:
+        text += f", D {signed_pct(d_pct)}"
+    return f"{text} {row.status}"
 
 
 def counts_text(counts: Mapping[str, int]) -> str:
@@ -235,6 +243,9 @@ def markdown_tables(rows: Sequence[Comparison], with_ledger: bool = True,
                     ("rate (bit/sym)", "---:"), ("bits", "---:")]
         if tolerant:
             columns.append(("allowed (bit/sym)", "---:"))
+        lossy = any(r.case.lossy for r in group)
+        if lossy:
+            columns += [("distortion", "---:"), ("SNR (dB)", "---:")]
         columns.append(("efficiency", "---:"))
         if tested:
             columns.append(("test", "---"))
@@ -251,6 +262,10 @@ def markdown_tables(rows: Sequence[Comparison], with_ledger: bool = True,
                       figure_text(m.floor_rate), figure_text(m.rate), f"{m.bits:,}"]
             if tolerant:
                 cells.append(figure_text(allowed_rate(m)))
+            if lossy:
+                measure = f" ({md_name(m.distortion_measure)})" if m.distortion_measure else ""
+                cells += ["–" if m.distortion is None else f"{m.distortion:.6g}{measure}",
+                          figure_text(m.snr_db, 2)]
             cells.append(percent_text(m.efficiency))
             if tested:
                 assert outcome is not None
@@ -283,6 +298,9 @@ def floor_legend(rows: Iterable[Comparison]) -> list[str]:
 
     used = sorted({r.case.floor or "entropy" for r in rows})
     meanings: dict[str, str] = {str(k): v for k, v in FLOORS.items()}
+    meanings[LOSSY_FLOOR] = ("n·R(D̂), the source's rate–distortion function at the distortion "
+                             "the codec reached (lossy codecs; R(D) of a model source says "
+                             "nothing certain about real signals)")
     return [f"- **{md_name(name)}**: {markdown_text(meanings.get(name, 'unknown floor'))}"
             for name in used]
 
@@ -379,6 +397,8 @@ def row_json(r: Comparison, outcome: RunOutcome | None = None) -> dict[str, Any]
         "detectable_excess": finite(m.detectable_excess),
         "encode_seconds": finite(m.encode_seconds), "decode_seconds": finite(m.decode_seconds),
         "allowed_rate": finite(allowed_rate(m)),
+        "distortion": finite(m.distortion), "distortion_measure": m.distortion_measure,
+        "snr_db": finite(m.snr_db),
         "test_ids": list(outcome.test_ids.get(label, ())) if outcome is not None else [],
         "test": outcome.test_outcome(label) if outcome is not None else None,
     }

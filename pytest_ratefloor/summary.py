@@ -42,14 +42,15 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from pytest_ratefloor.escaping import terminal_text
+from pytest_ratefloor.measurement import Measurement
 from pytest_ratefloor.report import (
     CAUTION,
     RunOutcome,
     align,
     counts_text,
+    delta_text,
     figure_text,
     percent_text,
-    signed_pct,
 )
 from pytest_ratefloor.verdicts import SUSPICIOUS_SPREADS, VERDICTS, Colour, Comparison, counts_of
 
@@ -220,20 +221,16 @@ def suspicious_lines(rows: Sequence[Comparison], escape: Callable[[str], str]) -
 # -- the case table --------------------------------------------------------------------
 
 
-def change_text(row: Comparison, verbose: bool) -> str:
-    """The ``vs. ledger`` cell: ``+2.960% regressed`` (``-v`` adds the bits), ``= ledger``,
-    ``new``, ``resampled``."""
-    if row.status is None:
-        return ""
-    if row.status == "unchanged":
-        return "= ledger"
-    if row.status == "resampled":
-        return "resampled: re-record" if not verbose else "resampled (not comparable: re-record)"
-    if row.status == "new" or row.delta_bits is None or row.delta_pct is None:
-        return row.status
-    if verbose:
-        return f"{row.delta_bits:+,} bits ({signed_pct(row.delta_pct)}) {row.status}"
-    return f"{signed_pct(row.delta_pct)} {row.status}"
+def floor_kind(m: Measurement) -> str:
+    """The floor's kind as the summary shows it: its name, ``R(D)`` for a lossy case."""
+    return "R(D)" if m.lossy else terminal_text(m.floor or "entropy")
+
+
+def distortion_text(m: Measurement) -> str:
+    """A lossy case's distortion and measure (``0.0123 mse``), ``–`` for a lossless one."""
+    if m.distortion is None:
+        return "–"
+    return f"{m.distortion:.4g} {terminal_text(m.distortion_measure or '')}".rstrip()
 
 
 def _codec_title(row: Comparison) -> str:
@@ -254,8 +251,9 @@ def _telling_columns(rows: Sequence[Comparison]) -> tuple[bool, bool]:
 
 def _compact_table(rows: Sequence[Comparison], width: int | None) -> list[Line]:
     need_n, need_seed = _telling_columns(rows)
+    lossy = any(r.case.lossy for r in rows)
     header = ["source", *(["n"] if need_n else []), *(["seed"] if need_seed else []),
-              "H", "floor", "kind", "rate", "eff.", "vs. ledger"]
+              "H", "floor", "kind", "rate", *(["D"] if lossy else []), "eff.", "vs. ledger"]
     numeric = {"n", "seed", "H", "floor", "rate", "eff."}
 
     def cells(r: Comparison, source_width: int | None) -> list[str]:
@@ -265,8 +263,9 @@ def _compact_table(rows: Sequence[Comparison], width: int | None) -> list[Line]:
             source = shorten(source, source_width - len(_INDENT))
         return [_INDENT + source, *([f"{m.n:,}"] if need_n else []),
                 *([str(m.seed)] if need_seed else []), figure_text(m.entropy),
-                figure_text(m.floor_rate), terminal_text(m.floor or "entropy"),
-                figure_text(m.rate), percent_text(m.efficiency), change_text(r, False)]
+                figure_text(m.floor_rate), floor_kind(m), figure_text(m.rate),
+                *([distortion_text(m)] if lossy else []), percent_text(m.efficiency),
+                delta_text(r, short=True)]
 
     def build(drop_entropy: bool, source_width: int | None) -> list[list[str]]:
         table = [header] + [cells(r, source_width) for r in rows]
@@ -303,22 +302,25 @@ def _compact_table(rows: Sequence[Comparison], width: int | None) -> list[Line]:
 
 
 def _verbose_table(rows: Sequence[Comparison]) -> list[Line]:
+    lossy = any(r.case.lossy for r in rows)
     header = ["codec", "source", "n", "seed", "layout", "H b/sym", "floor b/sym", "kind",
-              "rate b/sym", "eff.", "bits", "ledger bits", "excess b/sym", "detects b/sym",
-              "enc s", "dec s", "vs. ledger"]
+              "rate b/sym", *(["D", "SNR dB"] if lossy else []), "eff.", "bits", "ledger bits",
+              "excess b/sym", "detects b/sym", "enc s", "dec s", "vs. ledger"]
     table = [header]
     for r in rows:
         m = r.case
         table.append([
             _codec_title(r), terminal_text(m.source), f"{m.n:,}", str(m.seed),
             terminal_text(m.layout) if m.layout else "–", figure_text(m.entropy),
-            figure_text(m.floor_rate), terminal_text(m.floor or "entropy"), figure_text(m.rate),
+            figure_text(m.floor_rate), floor_kind(m), figure_text(m.rate),
+            *([distortion_text(m), figure_text(m.snr_db, 2)] if lossy else []),
             percent_text(m.efficiency), f"{m.bits:,}",
             "–" if r.ledger_bits is None else f"{r.ledger_bits:,}", figure_text(m.excess),
             figure_text(m.detectable_excess), figure_text(m.encode_seconds, 3),
-            figure_text(m.decode_seconds, 3), change_text(r, True),
+            figure_text(m.decode_seconds, 3), delta_text(r),
         ])
-    right = {2, 3, 5, 6, 8, 9, 10, 11, 12, 13, 14, 15}
+    right = {i for i, name in enumerate(header)
+             if name not in ("codec", "source", "layout", "kind", "D", "vs. ledger")}
     texts = align(table, right)
     return [Line(texts[0])] + [Line(t, "" if r.status is None else VERDICTS[r.status].colour)
                                for t, r in zip(texts[1:], rows)]

@@ -27,7 +27,7 @@ from pytest_ratefloor.errors import (
     SampleMismatchError,
 )
 from pytest_ratefloor.ledger import Ledger
-from pytest_ratefloor.measurement import CaseKey, Measurement
+from pytest_ratefloor.measurement import CaseKey, Measurement, figure
 
 __all__ = [
     "SUSPICIOUS_SPREADS",
@@ -44,7 +44,8 @@ __all__ = [
 ]
 
 Status = Literal[
-    "regressed", "resampled", "within-slack", "improved", "new", "unchanged", "dropped",
+    "regressed", "resampled", "within-slack", "traded", "improved", "new", "unchanged",
+    "dropped",
 ]
 Colour = Literal["red", "yellow", "green", ""]
 
@@ -71,7 +72,11 @@ VERDICTS: dict[Status, VerdictKind] = {
         VerdictKind("resampled", True, "red", False,
                     "measured on a different sample than the ledger entry: not comparable"),
         VerdictKind("within-slack", False, "yellow", False,
-                    "more bits than the ledger entry, within the slack"),
+                    "more bits (or, lossy, more distortion) than the ledger entry, within the "
+                    "slack"),
+        VerdictKind("traded", False, "yellow", False,
+                    "lossy: another rate–distortion point than the ledger's (fewer bits at more "
+                    "distortion, or the reverse): neither better nor worse by the ledger alone"),
         VerdictKind("improved", False, "green", True, "fewer bits than the ledger entry"),
         VerdictKind("new", False, "", True, "no ledger entry yet"),
         VerdictKind("unchanged", False, "", True, "the same bits as the ledger entry"),
@@ -138,6 +143,18 @@ class Comparison:
             return math.inf if new > old else -math.inf
 
     @property
+    def delta_distortion_pct(self) -> float | None:
+        """Lossy cases: the change of the mean distortion against the ledger, percent."""
+        if self.current is None or self.baseline is None:
+            return None
+        new, old = self.current.distortion, self.baseline.distortion
+        if new is None or old is None:
+            return None
+        if old == 0.0:
+            return 0.0 if new == 0.0 else math.inf
+        return 100.0 * ((new - old) / old)
+
+    @property
     def fails(self) -> bool:
         return self.status is not None and VERDICTS[self.status].fails
 
@@ -181,6 +198,8 @@ def compare(current: Measurement | None, baseline: Measurement | None,
     if baseline.fingerprint and current.fingerprint and \
             baseline.fingerprint != current.fingerprint:
         status = "resampled"
+    elif current.distortion is not None and baseline.distortion is not None:
+        status = _lossy_status(current, baseline, slack)
     elif current.bits == baseline.bits:
         status = "unchanged"
     elif current.bits < baseline.bits:
@@ -190,6 +209,32 @@ def compare(current: Measurement | None, baseline: Measurement | None,
     else:
         status = "within-slack"
     return Comparison(current.key, status, current, baseline, slack)
+
+
+def _lossy_status(current: Measurement, baseline: Measurement, slack: float) -> Status:
+    """A lossy case against its entry: two figures, the bits and the mean distortion.
+
+    It regresses when its bits grow beyond the slack at equal or worse distortion,
+    or its distortion grows beyond the slack at equal or more bits. The
+    distortion is compared as the ledger keeps it (12 significant digits), so a
+    re-run on another machine does not move it. Fewer bits at more distortion (or
+    the reverse) is ``traded``: another point of the codec's curve, shown, not failed.
+    """
+    assert current.distortion is not None
+    assert baseline.distortion is not None
+    d_now, d_old = figure(current.distortion), baseline.distortion
+    bits, old_bits = current.bits, baseline.bits
+    if bits == old_bits and d_now == d_old:
+        return "unchanged"
+    if bits <= old_bits and d_now <= d_old:
+        return "improved"
+    worse_bits = bits > old_bits * (1.0 + slack)
+    worse_distortion = d_now > d_old * (1.0 + slack)
+    if (worse_bits and d_now >= d_old) or (worse_distortion and bits >= old_bits):
+        return "regressed"
+    if bits >= old_bits and d_now >= d_old:
+        return "within-slack"
+    return "traded"
 
 
 _RANK: dict[str, int] = {name: i for i, name in enumerate(VERDICTS)}
@@ -225,11 +270,21 @@ def regression_message(comparison: Comparison, ledger_path: Path, record_hint: s
     assert comparison.baseline is not None
     assert comparison.delta_bits is not None
     assert comparison.delta_pct is not None
+    current, baseline = comparison.current, comparison.baseline
+    d_pct = comparison.delta_distortion_pct
+    lossy = ""
+    if d_pct is not None:
+        lossy = (f"\n  distortion {current.distortion_measure}: {current.distortion:.6g} now, "
+                 f"{baseline.distortion:.6g} in the ledger ({_signed_pct(d_pct)}); a lossy case "
+                 "regresses when its bits grow at equal or worse distortion, or its distortion "
+                 "grows at equal or more bits")
+    figures = (f"{_signed_pct(comparison.delta_pct)} bits" if d_pct is None else
+               f"{_signed_pct(comparison.delta_pct)} bits, {_signed_pct(d_pct)} distortion")
     return (
-        f"{_signed_pct(comparison.delta_pct)} bits vs ledger ({comparison.delta_bits:+,} bits, "
+        f"{figures} vs ledger ({comparison.delta_bits:+,} bits, "
         f"slack {100.0 * comparison.slack:g}%): {comparison.key.phrase}\n"
-        f"  rate regression: needs {comparison.current.bits:,} bits; the ledger holds "
-        f"{comparison.baseline.bits:,} bits\n"
+        f"  rate regression: needs {current.bits:,} bits; the ledger holds "
+        f"{baseline.bits:,} bits{lossy}\n"
         f"  ledger: {ledger_path}\n"
         f"  if the increase is intended, record the new figure: {record_hint}"
     )

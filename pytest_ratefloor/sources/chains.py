@@ -1,12 +1,12 @@
-"""Sources with memory over a finite set of states: Markov chains and the chain sampler.
+"""Sources with memory over a finite set of states: Markov chains, and what chains share.
 
 :class:`Markov` is a stationary finite-state Markov chain whose entropy is
 the entropy *rate*; its stationary distribution comes from
-Grassmann–Taksar–Heyman state reduction. :class:`_ChainSampler` draws any
-chain over states one raw word per symbol (exact integer thresholds per
-row); the order-k empirical sources of
-:mod:`pytest_ratefloor.sources.empirical` use it too, and so does
-:func:`_chain_varentropy_rate`, the asymptotic variance of a chain's
+Grassmann–Taksar–Heyman state reduction. It samples through
+:class:`~pytest_ratefloor.sources.chain_sampler._ChainSampler` (one raw word
+per symbol, exact integer thresholds per row), as the order-k empirical
+sources of :mod:`pytest_ratefloor.sources.empirical` do. They share
+:func:`_chain_varentropy_rate` too, the asymptotic variance of a chain's
 information (a Poisson equation solved densely for small chains, on the
 sparse transition graph for large ones). The checks of a stochastic matrix
 (square, rows are pmfs, irreducible) live here, since only chains have one.
@@ -15,8 +15,6 @@ sparse transition graph for large ones). The checks of a stochastic matrix
 from __future__ import annotations
 
 import math
-from bisect import bisect_right
-from collections.abc import Sequence
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -31,64 +29,11 @@ from pytest_ratefloor.sources.base import (
     _log2_ratio,
     _positive_support,
 )
-from pytest_ratefloor.sources.sampling import (
-    _CHUNK,
-    _WORD,
-    _exact_weights,
-    _thresholds_from_weights,
-)
+from pytest_ratefloor.sources.chain_sampler import _ChainSampler
+from pytest_ratefloor.sources.sampling import _exact_weights
 
 if TYPE_CHECKING:
     from scipy.sparse import csr_matrix
-
-
-class _ChainSampler:
-    """Sequential sampler over states: the first word picks a start state (emitting
-    its ``prefix`` symbols), each further word picks a row of the current state
-    by exact integer thresholds; the row gives the emitted symbol and next state.
-    """
-
-    def __init__(
-        self,
-        start_weights: Sequence[int],
-        prefixes: Sequence[Sequence[int]],
-        row_weights: Sequence[Sequence[int]],
-        row_symbols: Sequence[Sequence[int]],
-        row_next: Sequence[Sequence[int]],
-    ) -> None:
-        self.start_thresholds = _thresholds_from_weights(start_weights)
-        self.prefixes = [list(p) for p in prefixes]
-        self.thresholds: list[int] = []
-        self.symbols: list[int] = []
-        self.next: list[int] = []
-        self.begin: list[int] = []
-        self.last: list[int] = []
-        for weights, syms, nxt in zip(row_weights, row_symbols, row_next):
-            self.begin.append(len(self.thresholds))
-            self.thresholds.extend(_thresholds_from_weights(weights))
-            self.thresholds.append(_WORD)  # last row of a state: never passed
-            self.symbols.extend(syms)
-            self.next.extend(nxt)
-            self.last.append(len(self.thresholds) - 1)
-
-    def sample(self, n: int, bitgen: np.random.PCG64) -> np.ndarray:
-        if n == 0:
-            return np.zeros(0, dtype=np.int64)
-        first = int(bitgen.random_raw(1)[0])
-        state = bisect_right(self.start_thresholds, first)
-        out = list(self.prefixes[state][:n])
-        steps = n - len(out)
-        thresholds, symbols, nxt = self.thresholds, self.symbols, self.next
-        begin, last = self.begin, self.last
-        append = out.append
-        while steps > 0:  # chunks keep the list of words small
-            chunk = min(steps, _CHUNK)
-            steps -= chunk
-            for word in bitgen.random_raw(chunk).tolist():
-                row = bisect_right(thresholds, word, begin[state], last[state])
-                append(symbols[row])
-                state = nxt[row]
-        return np.array(out, dtype=np.int64)
 
 
 def _stationary_gth(P: np.ndarray) -> np.ndarray:
@@ -458,8 +403,9 @@ class Markov(Source):
     the Poisson equation with the fundamental matrix Z = (I - P + 1π)^-1, see
     :func:`_chain_varentropy_rate`), i.e. Var(information of n symbols) ≈
     n * varentropy_rate for large n, whatever ``initial`` is.
-    Sampling is a loop over time steps (one word per symbol, bisection on
-    exact integer thresholds of the current row).
+    Sampling draws one word per symbol and picks the row of the current state
+    by exact integer thresholds (:mod:`pytest_ratefloor.sources.chain_sampler`
+    does it for whole blocks of words at once).
     """
 
     def __init__(self, transition: ArrayLike, initial: ArrayLike | None = None) -> None:
@@ -553,7 +499,7 @@ class Markov(Source):
                 [[s] for s in states],
                 self._row_weights,
                 [states] * size,
-                [states] * size,
+                states,
             )
         return self._chain.sample(n, bitgen)
 

@@ -42,9 +42,10 @@ class Uniform(_Memoryless):
 
     Sampling: symbol = floor(u * k / 2**64) (the multiply-high of Lemire's
     method, without rejection: each symbol gets floor or ceil of 2**64 / k
-    words). It is computed through the guide table for k <= 65536, from the
-    high half of the word with an exact fix-up for k < 2**32, and with full
-    64x64-bit products above.
+    words). For k a power of two that is the word's top log2(k) bits (a
+    shift); otherwise it is computed through the guide table for k <= 65536,
+    from the high half of the word with an exact fix-up for k < 2**32, and
+    with full 64x64-bit products above.
     """
 
     def __init__(self, k: int) -> None:
@@ -67,9 +68,9 @@ class Uniform(_Memoryless):
 
     def _draw(self, words: np.ndarray) -> np.ndarray:
         k = self.k
+        if k & (k - 1) == 0 and k > 1:  # a power of two: the top bits of the word
+            return (words >> np.uint64(65 - k.bit_length())).astype(np.int64)
         if k > 1 << 16:
-            if k & (k - 1) == 0:
-                return (words >> np.uint64(65 - k.bit_length())).astype(np.int64)
             if k < 1 << 32:
                 return _uniform_below_2_32(words, k)
             return _mulhi(words, k)
@@ -160,6 +161,25 @@ class Bernoulli(_Memoryless):
 
     def _pmf_table(self, tail: float) -> tuple[np.ndarray, np.ndarray]:
         return _positive_support(np.array([0, 1]), np.array([1.0 - self.p, self.p]))
+
+    def rate_distortion(self, D: float, distortion: object = "hamming") -> float:
+        """Hamming: h(p) − h(D) for D <= min(p, 1−p), else 0 (closed form); a matrix: the base."""
+        from pytest_ratefloor import ratedistortion
+
+        if not (isinstance(distortion, str) and distortion == "hamming"):
+            return super().rate_distortion(D, distortion)
+        value = ratedistortion.check_distortion(
+            D, where=f"{self.spec}.rate_distortion", allow_zero=True)
+        return ratedistortion.bernoulli_hamming_rd(self.p, value)
+
+    def distortion_rate(self, R: float, distortion: object = "hamming") -> float:
+        """Hamming: the D <= min(p, 1−p) with h(p) − h(D) = R (closed form inverted); else base."""
+        from pytest_ratefloor import ratedistortion
+
+        if not (isinstance(distortion, str) and distortion == "hamming"):
+            return super().distortion_rate(R, distortion)
+        value = ratedistortion.check_rate(R, where=f"{self.spec}.distortion_rate")
+        return ratedistortion.bernoulli_hamming_dr(self.p, value)
 
 
 class Geometric(_Memoryless):

@@ -28,7 +28,8 @@ from pytest_ratefloor.sources.base import (
     _digest,
     _log2_ratio,
 )
-from pytest_ratefloor.sources.chains import _chain_varentropy_rate, _ChainSampler
+from pytest_ratefloor.sources.chain_sampler import _ChainSampler
+from pytest_ratefloor.sources.chains import _chain_varentropy_rate
 from pytest_ratefloor.sources.sampling import (
     _draw_in_chunks,
     _InverseCdf,
@@ -47,6 +48,34 @@ def _lookup_rows(model: np.ndarray, query: np.ndarray) -> np.ndarray:
     return where[inverse[model.shape[0] :]]
 
 
+#: Most bins a direct count (``numpy.bincount``) may use; wider keys are sorted instead.
+_COUNT_BINS = 1 << 22
+
+
+def _symbol_ranks(data: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(the distinct symbols ascending, each symbol's rank among them), as ``np.unique`` gives.
+
+    Small non-negative symbols (bytes, 16-bit words) are counted in bins
+    instead of sorted.
+    """
+    if data.size and int(data.min()) >= 0 and int(data.max()) < _COUNT_BINS:
+        present = np.bincount(data) > 0
+        rank = np.cumsum(present) - 1
+        return np.flatnonzero(present).astype(np.int64), rank[data]
+    alphabet, ranks = np.unique(data, return_inverse=True)
+    return alphabet, ranks.ravel().astype(np.int64)
+
+
+def _distinct_counts(code: np.ndarray, bins: int) -> tuple[np.ndarray, np.ndarray]:
+    """(distinct values ascending, their counts) of non-negative ``code`` below ``bins``."""
+    if bins <= max(_COUNT_BINS, 4 * code.size):
+        counts = np.bincount(code, minlength=bins)
+        values = np.flatnonzero(counts)
+        return values.astype(np.int64), counts[values]
+    values, counts = np.unique(code, return_counts=True)
+    return values, counts
+
+
 def _context_model(
     data: np.ndarray, k: int
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
@@ -61,16 +90,16 @@ def _context_model(
     """
     n = data.size
     width = k + 1
-    alphabet, ranks = np.unique(data, return_inverse=True)
-    ranks = ranks.ravel().astype(np.int64)
+    alphabet, ranks = _symbol_ranks(data)
     base = int(alphabet.size)
     if base**width < 1 << 62:
         ring = np.concatenate([ranks, ranks[:k]])
-        code = np.zeros(n, dtype=np.int64)
-        for j in range(width):
-            code *= base
+        code = ring[:n] * base if width > 1 else ring[:n].copy()
+        for j in range(1, width):
             code += ring[j : j + n]
-        codes, counts = np.unique(code, return_counts=True)
+            if j < width - 1:
+                code *= base
+        codes, counts = _distinct_counts(code, base**width)
         span = base**k
         ctx_codes, ctx_ids = np.unique(
             np.concatenate([codes // base, codes % span]), return_inverse=True
@@ -94,6 +123,13 @@ def _context_model(
     ctx_ids = ctx_ids.ravel()
     rows = grams.shape[0]
     return grams, counts.astype(np.int64), contexts, ctx_ids[:rows], ctx_ids[rows:]
+
+
+def _distinct_counts_of_symbols(data: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(distinct symbols ascending, their counts): binned for small non-negative symbols."""
+    if data.size and int(data.min()) >= 0 and int(data.max()) < _COUNT_BINS:
+        return _distinct_counts(data, int(data.max()) + 1)
+    return np.unique(data, return_counts=True)
 
 
 def _sample_context_counts(x: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:
@@ -208,7 +244,7 @@ class Empirical(Source):
             -np.log1p(np.where(near_one, (c - t) / t, 0.0)) / _LN2,
             np.log2(t) - np.log2(c),
         )
-        symbols, sym_counts = np.unique(arr, return_counts=True)
+        symbols, sym_counts = _distinct_counts_of_symbols(arr)
         self.symbols = symbols
         self.counts = sym_counts.astype(np.int64)
         if _spec is None:
@@ -267,8 +303,8 @@ class Empirical(Source):
                 self._ctx_counts.tolist(),
                 self._contexts.tolist(),
                 [self._counts[g].tolist() for g in groups],
-                [self._rows[g, -1].tolist() for g in groups],
                 [self._row_next[g].tolist() for g in groups],
+                self._contexts[:, -1].tolist(),  # a gram's symbol ends the context it leads to
             )
         return self._chain.sample(n, bitgen)
 

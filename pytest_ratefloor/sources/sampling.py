@@ -45,6 +45,7 @@ _WORD = 1 << 64  # number of distinct raw words
 _INT64_MIN = -(1 << 63)
 _LOW48 = (1 << 48) - 1  # a word's bits below the top 16
 _CHUNK = 1 << 16  # words per step: keeps the working arrays in cache
+_POSITIONAL_MAX = 1 << 17  # longest table drawn through the alias layout (then: a wider guide)
 
 
 # --------------------------------------------------------------------------
@@ -136,6 +137,11 @@ class _InverseCdf:
     integers the way Vose 1991 describes; from memory): word u goes to bucket
     u >> 48 and to the bucket's larger or smaller share by comparing u mod 2**48
     with the bucket's integer cut. Either way every symbol gets exactly its mass.
+    Longer tables keep the inverse CDF (their samples were always drawn that
+    way) in the same layout (:meth:`_build_positional`), and so does an
+    ``ordered`` table (the chain sampler needs the index of the word's
+    interval, not only a symbol of the right mass); beyond 2**17 thresholds
+    the guide grows to up to 2**20 cells instead.
     """
 
     def __init__(
@@ -143,14 +149,21 @@ class _InverseCdf:
         thresholds: Sequence[int],
         values: np.ndarray,
         resolve: Callable[[np.ndarray], np.ndarray] | None = None,
+        *,
+        ordered: bool = False,
     ) -> None:
         kept = [t for t in thresholds if t < _WORD]
         self.thresholds = np.array(kept, dtype=np.uint64)
         self.values = np.asarray(values[: len(kept) + 1], dtype=np.int64)
         self._resolve = resolve or self._search
+        self._ordered = ordered
         self._guide: np.ndarray | None = None
+        self._first = np.zeros(0, dtype=np.intp)  # per guide cell: thresholds at or below its start
+        self._inside = np.zeros(0, dtype=np.intp)  # per guide cell: thresholds inside it
         self._sentinel = 0
         self._alias: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None
+        self._positional = False  # the alias layout holds the inverse CDF (long tables)
+        self._bits = 16  # guide cells: the top _bits bits of a word (more for very long tables)
 
     def _build_alias(self) -> None:
         """Integer alias table over 65536 buckets of 2**48 words each."""
@@ -204,43 +217,128 @@ class _InverseCdf:
         bucket += over.astype(np.intp) << 16  # second shares follow the first ones
         return np.take(shares, bucket)
 
+    def _build_positional(self) -> None:
+        """The alias layout of :meth:`_draw_alias` holding the inverse CDF itself.
+
+        Bucket b (words with top 16 bits b) holding one threshold T sends the
+        words below T to the symbol below it and the rest to the one above;
+        a bucket holding none names one symbol twice; a bucket holding two or
+        more names the sentinel, and those words are searched (:meth:`rows`).
+        """
+        buckets = 1 << 16
+        first, inside = self._first, self._inside
+        top = self.values.size - 1
+        below = self.values[np.minimum(first, top)]
+        above = self.values[np.minimum(first + 1, top)]
+        one = inside == 1
+        second = np.where(one, above, below)
+        below[inside > 1] = self._sentinel
+        second[inside > 1] = self._sentinel
+        starts = np.arange(buckets, dtype=np.uint64) << np.uint64(48)
+        limits = starts | np.uint64(_LOW48)
+        split = self.thresholds[np.minimum(first[one], self.thresholds.size - 1)]
+        limits[one] = split
+        cut16 = ((limits - starts) >> np.uint64(32)).astype(np.uint16)
+        cut16[~one] = np.uint16(0xFFFF)
+        self._alias = (limits, cut16, np.concatenate([below, second]))
+        self._positional = True
+
+    def _cells(self, words: np.ndarray) -> np.ndarray:
+        """Each word's guide cell: its top 16 bits, or top ``_bits`` bits of a wide guide."""
+        if self._bits == 16:
+            return _top16(words)
+        return (words >> np.uint64(64 - self._bits)).astype(np.intp)
+
     def _search(self, words: np.ndarray) -> np.ndarray:
         """Symbols for words whose guide cell holds thresholds (binary search)."""
         return self.values[np.searchsorted(self.thresholds, words, side="right")]
 
+    def rows(self, words: np.ndarray) -> np.ndarray:
+        """``#{i : thresholds[i] <= word}`` for each word (intp), as ``np.searchsorted`` gives it.
+
+        Only the thresholds inside the word's guide cell can lie between the
+        word and the cell's start: one comparison decides when the cell holds
+        one threshold, a binary search bounded by the cell when it holds up to
+        16, and a search of the whole table beyond (cells that crowded hold
+        symbols of tiny mass, so few words land in them).
+        """
+        self._guide_table()
+        cells = self._cells(words)
+        low = self._first[cells]
+        if self.thresholds.size == 0:
+            return low
+        count = self._inside[cells]
+        last = np.minimum(low, self.thresholds.size - 1)
+        row = low + ((count > 0) & (self.thresholds[last] <= words))
+        # a few thresholds in the cell: a binary search bounded by the cell;
+        # many (the far tail of a long table, rarely hit): numpy's search of the whole table
+        crowded = count > 16
+        many = np.flatnonzero((count > 1) & ~crowded)
+        if many.size:
+            lo = low[many]
+            hi = lo + count[many]
+            w = words[many]
+            for _ in range(5):  # 2**5 > 16
+                mid = (lo + hi) >> 1
+                up = (lo < hi) & (self.thresholds[np.minimum(mid, hi - 1)] <= w)
+                down = (lo < hi) & ~up
+                lo = np.where(up, mid + 1, lo)
+                hi = np.where(down, mid, hi)
+            row[many] = lo
+        far = np.flatnonzero(crowded)
+        if far.size:
+            row[far] = np.searchsorted(self.thresholds, words[far], side="right")
+        return row
+
     def _guide_table(self) -> np.ndarray:
         if self._guide is None:
-            starts = np.arange(1 << 16, dtype=np.uint64) << np.uint64(48)
-            ends = starts | np.uint64((1 << 48) - 1)
-            first = np.searchsorted(self.thresholds, starts, side="right")
-            last = np.searchsorted(self.thresholds, ends, side="right")
-            guide = self.values[first]
-            present = set(self.values.tolist())
-            sentinel = _INT64_MIN
-            while sentinel in present:
-                sentinel += 1
-            guide[first != last] = sentinel
-            self._sentinel = sentinel
-            self._guide = guide
-            split_cells = int(np.count_nonzero(first != last))
-            if (
-                split_cells > (1 << 12)
-                and self.values.size <= (1 << 16)
-                and self._resolve == self._search
-            ):
-                self._build_alias()
+            split_cells = self._index_cells()
+            if split_cells > (1 << 12) and self._resolve == self._search:
+                if self.values.size <= (1 << 16) and not self._ordered:
+                    self._build_alias()
+                elif self.thresholds.size <= _POSITIONAL_MAX:
+                    self._build_positional()
+                else:  # very long: a guide of up to 2**20 cells, about two per threshold
+                    self._bits = min(20, (2 * self.thresholds.size).bit_length())
+                    self._index_cells()
+        assert self._guide is not None
         return self._guide
+
+    def _index_cells(self) -> int:
+        """The guide: per cell the thresholds at or below its start and inside it; split cells."""
+        shift = np.uint64(64 - self._bits)
+        starts = np.arange(1 << self._bits, dtype=np.uint64) << shift
+        ends = starts | ((np.uint64(1) << shift) - np.uint64(1))
+        first = np.searchsorted(self.thresholds, starts, side="right")
+        last = np.searchsorted(self.thresholds, ends, side="right")
+        self._first = first.astype(np.intp)
+        self._inside = (last - first).astype(np.intp)
+        guide = self.values[first]
+        present = set(self.values.tolist())
+        sentinel = _INT64_MIN
+        while sentinel in present:
+            sentinel += 1
+        guide[first != last] = sentinel
+        self._sentinel = sentinel
+        self._guide = guide
+        return int(np.count_nonzero(first != last))
 
     def __call__(self, words: np.ndarray) -> np.ndarray:
         if self.thresholds.size == 0:
             return np.full(words.shape, self.values[0], dtype=np.int64)
         guide = self._guide_table()
         if self._alias is not None:
-            return self._draw_alias(words)
-        out = guide[_top16(words)]
+            out = self._draw_alias(words)
+            if not self._positional:
+                return out
+        else:
+            out = guide[self._cells(words)]
         split = np.flatnonzero(out == self._sentinel)
         if split.size:
-            out[split] = self._resolve(words[split])
+            if self._positional or self._bits > 16:  # long table: search the word's cell
+                out[split] = self.values[self.rows(words[split])]
+            else:
+                out[split] = self._resolve(words[split])
         return out
 
 

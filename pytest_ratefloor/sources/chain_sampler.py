@@ -1,0 +1,320 @@
+"""Drawing a chain over states one raw word per symbol, at array speed.
+
+The sampling contract (:mod:`pytest_ratefloor.sources.sampling`): the first
+raw word picks a start state by exact integer thresholds (its ``prefix``
+symbols are emitted), then each further word ``u`` picks a row of the current
+state ``s``: row ``#{i : T_s[i] <= u}`` of the state's cumulative thresholds
+``T_s``; the row names the next state, and the emitted symbol is a function
+of the next state (Markov: the state itself; an order-k context model: the
+last symbol of the next context).
+
+:meth:`_ChainSampler.sample` computes those very symbols without a Python
+step per symbol:
+
+1. *Classes.* Merge every state's thresholds into one sorted list ``U``;
+   each word falls into one interval (class) ``m`` of ``U``, and inside a
+   class every state picks the same row. So the step is a table lookup,
+   ``next = G[m(u), s]``, and ``m(u)`` is an ordinary inverse CDF over the
+   merged list, computed for a whole block of words at once
+   (:class:`~pytest_ratefloor.sources.sampling._InverseCdf`).
+2. *Chunks in lockstep.* A block is cut into ``C`` chunks of ``L`` words;
+   chunk 0 starts from the true state, every other chunk from a guess, and
+   one Python step advances all chunks at once (two array operations).
+3. *Repair.* A chunk whose guessed start differs from where its predecessor
+   really ended is run again from the true start, all such chunks in
+   lockstep, until its path meets the stored one (two chains fed the same
+   words agree from the first state they share on); a chunk that never meets
+   it hands its changed end to the next chunk, in another round. When few
+   chunks remain, or the chain does not forget its start (a periodic or
+   deterministic chain), the rest is done one step at a time in Python,
+   exactly as before.
+
+Every step is the same integer lookup as the loop's ``bisect_right``, so the
+symbols are the same, word for word (``tests/test_sampling_speed_paths.py``
+compares the two). Chains whose table ``G`` would be too large (many states
+times many distinct thresholds) use the loop.
+"""
+
+from __future__ import annotations
+
+import heapq
+from bisect import bisect_right
+from collections.abc import Sequence
+
+import numpy as np
+
+from pytest_ratefloor.sources.sampling import (
+    _CHUNK,
+    _POSITIONAL_MAX,
+    _WORD,
+    _InverseCdf,
+    _thresholds_from_weights,
+    _top16,
+)
+
+#: Most entries (states × classes) the lockstep table may hold; above it the loop is used.
+_TABLE_ENTRIES = 1 << 21
+#: Chunks stepped together, and the longest chunk (a block is at most their product).
+_CHUNKS = 4001  # not a power of two: transposes of (chunks × length) arrays stay cache-friendly
+_LENGTH = 250
+#: Shortest chunk worth stepping in lockstep; shorter samples use the loop.
+_MIN_LENGTH = 64
+#: Words before a chunk run from the guess to choose its starting state.
+_WARM = 64
+#: Repair rounds before the rest is done step by step.
+_ROUNDS = 6
+#: Fewer chunks than this left to repair: done step by step.
+_FEW = 24
+
+
+class _ChainSampler:
+    """Sequential sampler over states (see the module docstring for the contract).
+
+    ``start_weights``/``prefixes``: the start states' integer weights and the
+    symbols each emits; ``row_weights[s]``/``row_next[s]``: state ``s``'s rows
+    (integer weights, next state of each); ``state_symbols[t]``: the symbol
+    emitted on entering state ``t``.
+    """
+
+    def __init__(
+        self,
+        start_weights: Sequence[int],
+        prefixes: Sequence[Sequence[int]],
+        row_weights: Sequence[Sequence[int]],
+        row_next: Sequence[Sequence[int]],
+        state_symbols: Sequence[int],
+    ) -> None:
+        self.start_thresholds = _thresholds_from_weights(start_weights)
+        self.prefixes = [list(p) for p in prefixes]
+        self.thresholds: list[int] = []
+        self.next: list[int] = []
+        self.begin: list[int] = []
+        self.last: list[int] = []
+        for weights, nxt in zip(row_weights, row_next):
+            self.begin.append(len(self.thresholds))
+            self.thresholds.extend(_thresholds_from_weights(weights))
+            self.thresholds.append(_WORD)  # last row of a state: never passed
+            self.next.extend(nxt)
+            self.last.append(len(self.thresholds) - 1)
+        self.state_symbols = np.asarray(state_symbols, dtype=np.int64)
+        self.symbols = self.state_symbols[np.asarray(self.next, dtype=np.intp)].tolist()
+        weights = list(start_weights)
+        # every chunk but the first starts from the likeliest start state (a guess)
+        self._guess = max(range(len(weights)), key=weights.__getitem__) if weights else 0
+        self._built = False
+        self._warm = _WARM  # words of warm-up (adapts to how fast the chain forgets)
+        self._classes: _InverseCdf | None = None
+        self._table = np.zeros(0, dtype=np.int32)
+        self._keys = np.zeros(0, dtype=np.int32)
+        self._table_list: list[int] | None = None  # the table as Python ints, for the steps
+
+    # ------------------------------------------------------------------
+    # the loop: one word, one bisection
+
+    def _start(self, bitgen: np.random.PCG64, n: int) -> tuple[int, list[int]]:
+        first = int(bitgen.random_raw(1)[0])
+        state = bisect_right(self.start_thresholds, first)
+        return state, list(self.prefixes[state][:n])
+
+    def _loop(self, state: int, words: Sequence[int], out: list[int]) -> int:
+        """Step ``state`` through ``words``, appending the symbols; returns the last state."""
+        thresholds, symbols, nxt = self.thresholds, self.symbols, self.next
+        begin, last = self.begin, self.last
+        append = out.append
+        for word in words:
+            row = bisect_right(thresholds, word, begin[state], last[state])
+            append(symbols[row])
+            state = nxt[row]
+        return state
+
+    def sample_loop(self, n: int, bitgen: np.random.PCG64) -> np.ndarray:
+        """The definition: a Python step per symbol (short samples, and the reference)."""
+        if n == 0:
+            return np.zeros(0, dtype=np.int64)
+        state, out = self._start(bitgen, n)
+        steps = n - len(out)
+        while steps > 0:  # chunks keep the list of words small
+            chunk = min(steps, _CHUNK)
+            steps -= chunk
+            state = self._loop(state, bitgen.random_raw(chunk).tolist(), out)
+        return np.array(out, dtype=np.int64)
+
+    # ------------------------------------------------------------------
+    # the lockstep path
+
+    def _build(self) -> None:
+        """The merged classes and the step table ``G[m * S + s]`` (or none if too large)."""
+        self._built = True
+        states = len(self.begin)
+        reachable = np.array([t for t in self.thresholds if t < _WORD], dtype=np.uint64)
+        merged = np.unique(reachable)  # every state's thresholds below 2**64, merged
+        classes = merged.size + 1
+        if states * classes > _TABLE_ENTRIES or merged.size > _POSITIONAL_MAX:
+            return  # too large for the table (or for a 16-bit guide of the classes): the loop
+        # class m holds the words in [lower_m, next lower); lower_0 = 0
+        lower_array = np.concatenate([np.zeros(1, dtype=np.uint64), merged])
+        table = np.empty((classes, states), dtype=np.int32)
+        nxt = np.asarray(self.next, dtype=np.int32)
+        for s in range(states):
+            begin, last = self.begin[s], self.last[s]
+            own = np.array([t for t in self.thresholds[begin:last] if t < _WORD], dtype=np.uint64)
+            rows = begin + np.searchsorted(own, lower_array, side="right")
+            table[:, s] = nxt[rows]
+        dtype = np.int8 if states <= 127 else np.int16 if states <= 32767 else np.int32
+        self._table = table.ravel().astype(dtype)
+        self._classes = _InverseCdf(
+            merged.tolist(), np.arange(classes, dtype=np.int64), ordered=True
+        )
+        # the class of a word from its top 16 bits, times S; -1 where the cell is split
+        guide = self._classes._guide_table()
+        split = guide == self._classes._sentinel
+        self._keys = np.where(split, -1, guide * states).astype(np.int32)
+
+    def sample(self, n: int, bitgen: np.random.PCG64) -> np.ndarray:
+        """``n`` symbols, the same as :meth:`sample_loop` gives; lockstep whenever it can."""
+        if not self._built:
+            self._build()
+        if n == 0:
+            return np.zeros(0, dtype=np.int64)
+        if self._classes is None or n < 8 * _MIN_LENGTH:
+            return self.sample_loop(n, bitgen)
+        state, prefix = self._start(bitgen, n)
+        out = np.empty(n, dtype=np.int64)
+        out[: len(prefix)] = prefix
+        done = len(prefix)
+        identity = bool(np.array_equal(self.state_symbols, np.arange(len(self.begin))))
+        while done < n:
+            size = min(n - done, _CHUNKS * _LENGTH)
+            if size < 8 * _MIN_LENGTH:  # a short tail: the loop
+                symbols: list[int] = []
+                self._loop(state, bitgen.random_raw(size).tolist(), symbols)
+                out[done:] = symbols
+                break
+            words = np.asarray(bitgen.random_raw(size), dtype=np.uint64)
+            chunks = min(_CHUNKS, size // _MIN_LENGTH)
+            length = size // chunks
+            whole = chunks * length  # the rest (fewer than `chunks` words) goes to the loop
+            path = self._block_states(state, words[:whole], chunks, length)
+            by_time = path.T  # (chunks, length): the words' own order
+            target = out[done : done + whole].reshape(chunks, length)
+            if identity:
+                np.copyto(target, by_time)
+            else:
+                np.take(self.state_symbols, np.ascontiguousarray(by_time), out=target)
+            state = int(path[-1, -1])
+            done += whole
+            if whole < size:
+                symbols = []
+                state = self._loop(state, words[whole:].tolist(), symbols)
+                out[done : done + size - whole] = symbols
+                done += size - whole
+        return out
+
+    def _block_states(self, state: int, words: np.ndarray, chunks: int, length: int) -> np.ndarray:
+        """The state after each word (``chunks * length`` of them), from ``state``.
+
+        Returned as ``path[t, c]``: the state after word ``c * length + t``.
+        """
+        assert self._classes is not None
+        states = len(self.begin)
+        # S * the class of each word, in the words' order
+        # (mode="wrap" only skips numpy's bounds check: every index is in range)
+        in_order = np.take(self._keys, np.ascontiguousarray(_top16(words)), mode="wrap")
+        split = np.flatnonzero(in_order < 0)  # cells holding a class boundary: search
+        if split.size:
+            in_order[split] = self._classes.rows(words[split]) * states
+        # step t of every chunk side by side: keys[t, c] for word c*length + t
+        keys = in_order.reshape(chunks, length).T.copy()
+        table = self._table
+        path = np.empty((length, chunks), dtype=table.dtype)
+        starts = np.full(chunks, self._guess, dtype=table.dtype)
+        # a better guess: run the guess through the last words before each chunk
+        # (chains forget their start; the repair below makes the answer exact anyway)
+        warm = starts[1:]
+        before = np.empty(chunks - 1, dtype=np.intp)
+        for t in range(max(0, length - self._warm), length):
+            np.add(keys[t, :-1], warm, out=before)
+            np.take(table, before, out=warm, mode="wrap")
+        starts[0] = state
+        current = starts.copy()
+        index = np.empty(chunks, dtype=np.intp)
+        for t in range(length):
+            np.add(keys[t], current, out=index)
+            current = path[t]
+            np.take(table, index, out=current, mode="wrap")
+        self._repair(path, keys, starts)
+        return path
+
+    def _repair(self, path: np.ndarray, keys: np.ndarray, starts: np.ndarray) -> None:
+        """Make every chunk start where its predecessor ends (see the module docstring).
+
+        ``starts[c]`` is the state chunk ``c`` was run from. A round runs every
+        chunk whose start is wrong again from its predecessor's end, in
+        lockstep; a chunk whose end changed sends its successor to the next
+        round. Few chunks left, or too many rounds: step by step.
+        """
+        length, chunks = path.shape
+        table = self._table
+        check = np.arange(1, chunks)
+        wrong = check[starts[check] != path[length - 1, check - 1]]
+        # warm up longer next time if many guesses were wrong, shorter if hardly any
+        if wrong.size * 20 > chunks:
+            self._warm = min(2 * self._warm, _LENGTH)
+        elif wrong.size * 200 < chunks:
+            self._warm = max(self._warm // 2, _WARM)
+        for _ in range(_ROUNDS):
+            wrong = check[starts[check] != path[length - 1, check - 1]]
+            if wrong.size < _FEW:
+                break
+            starts[wrong] = path[length - 1, wrong - 1]
+            own_keys = keys[:, wrong]
+            rerun = np.empty((length, wrong.size), dtype=table.dtype)
+            current = starts[wrong].copy()
+            index = np.empty(wrong.size, dtype=np.intp)
+            for t in range(length):
+                np.add(own_keys[t], current, out=index)
+                current = rerun[t]
+                np.take(table, index, out=current, mode="wrap")
+            changed = wrong[rerun[length - 1] != path[length - 1, wrong]]
+            path[:, wrong] = rerun
+            check = changed[changed + 1 < chunks] + 1
+        else:
+            wrong = check[starts[check] != path[length - 1, check - 1]]
+        self._repair_by_steps(path, keys, starts, wrong.tolist())
+
+    def _repair_by_steps(
+        self, path: np.ndarray, keys: np.ndarray, starts: np.ndarray, pending: list[int]
+    ) -> None:
+        """The rest of the repair one step at a time, chunk after chunk.
+
+        ``pending``: the chunks (ascending) whose start may be wrong; a chunk
+        that never meets its stored path hands its new end to its successor.
+        """
+        if not pending:
+            return
+        length, chunks = path.shape
+        if self._table_list is None:
+            self._table_list = self._table.tolist()
+        table = self._table_list
+        todo = sorted(pending)
+        heapq.heapify(todo)
+        while todo:
+            c = heapq.heappop(todo)
+            while todo and todo[0] == c:
+                heapq.heappop(todo)
+            true = int(path[length - 1, c - 1])
+            if int(starts[c]) == true:
+                continue
+            starts[c] = true
+            state = true
+            column = keys[:, c].tolist()
+            stored = path[:, c]
+            old = stored.tolist()
+            for t in range(length):
+                state = table[column[t] + state]
+                if state == old[t]:
+                    break
+                stored[t] = state
+            else:
+                if c + 1 < chunks:
+                    heapq.heappush(todo, c + 1)

@@ -19,20 +19,23 @@ import enum
 import os
 import sys
 import warnings
-from collections.abc import Callable, Mapping
+from collections.abc import Callable, Hashable, Mapping
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any, Final, TypedDict, TypeVar
 
+import numpy as np
+
 from pytest_ratefloor import isolation, validation
-from pytest_ratefloor.codecs import as_codec
+from pytest_ratefloor.codecs import as_codec, codec_identity
 from pytest_ratefloor.edge_cases import (
     EDGE_CASE_SETS,
+    PASSED,
     EdgeCaseLengths,
     EdgeCaseSetting,
     edge_case_inputs,
     edge_case_lengths,
 )
-from pytest_ratefloor.errors import NoisyToleranceWarning, RateFloorFailure
+from pytest_ratefloor.errors import NoisyToleranceWarning, PluginMemoryError, RateFloorFailure
 from pytest_ratefloor.floors import DEFAULT_FLOOR, Floor, check_floor
 from pytest_ratefloor.measurement import CaseKey, Measurement, sample_fingerprint
 from pytest_ratefloor.rate import (
@@ -195,19 +198,28 @@ class CheckPlan:
         The tolerance over the floor. Cost nothing.
     ``edge_cases`` (default ``True``)
         Which edge cases (:func:`~pytest_ratefloor.edge_cases.edge_case_inputs`)
-        are round-tripped, each as its own round trip. Measured on zlib-6
-        and ``uniform(256)`` at ``n`` = 100 000, in process: 8 ms for the
-        check without edge cases, 13 ms with ``"short"``, 22 ms with
-        ``"long"``, 23 ms with all of them.
+        are round-tripped, each as its own round trip. A case the same codec
+        already passed on the same input earlier in the session is not run
+        again (:class:`~pytest_ratefloor.edge_cases.PassedEdgeCases`: the same
+        functions or objects, name, version and layout, the same answers to
+        the probe cases — the empty input, the single symbols, the alternation
+        and every symbol once when that is short, which run in every check —
+        and the same input: a constant run of the same symbol, a prefix of the
+        same draw). So the long cases cost once per codec and alphabet (the
+        sample prefixes once per source, seed and ``n``), and a failing case
+        fails every check that includes it, with the same message. Measured
+        on zlib-6 and ``uniform(256)`` at ``n`` = 100 000, in process
+        (``benchmarks/bench_check.py``): 5.1 ms without edge cases, 5.7 ms
+        with them once shared (the bare zlib round trip: 4.6 ms), 15–30 ms
+        for the codec's first check, which runs them all.
 
         * ``True``: all, 27 round trips (fewer for a one-symbol support) of
           337 763 symbols plus the alphabet's size (every symbol once, at
-          most 65 536) — about 3.4 times the default sample, almost all of
-          it in the five long cases: the two 70 000-symbol constant runs and
-          the sample prefixes of 65 535, 65 536 and 65 537 symbols. When
-          ``n`` < 65 537 those prefixes need a draw of 65 537 symbols of
-          their own (about 30 ms for a two-state Markov chain, which samples
-          in a Python loop).
+          most 65 536) the first time — about 3.4 times the default sample,
+          almost all of it in the five long cases: the two 70 000-symbol
+          constant runs and the sample prefixes of 65 535, 65 536 and 65 537
+          symbols. When ``n`` < 65 537 those prefixes need a draw of 65 537
+          symbols of their own (once per source and seed).
         * ``False``: none; costs nothing.
         * a maximum length (integer >= 1): only the cases of at most that
           many symbols. ``17`` keeps the empty input, one smallest and one
@@ -254,8 +266,9 @@ class CheckPlan:
         check after each trial elsewhere).
     ``isolate`` (``bool``, or ``None``: the run's setting, ini ``ratefloor_isolate``, on by default)
         Run the codec in a forked child (:mod:`pytest_ratefloor.isolation`):
-        one ``fork`` per check, about 4 ms at ``n`` = 10⁵ and 1.02–1.04 times
-        the in-process check at ``n`` = 4·10⁶ (``benchmarks/bench_check.py``).
+        one ``fork`` per check, about 5–6 ms (wall; 6–7 ms of CPU with the
+        child's) at ``n`` = 10⁵, 1.02–1.06 times the in-process check at
+        ``n`` = 4·10⁶ (``benchmarks/bench_check.py``).
     """
 
     n: int | None = None
@@ -348,18 +361,26 @@ def _check_source(source: object) -> None:
             )
 
 
-def _roundtrip(codec: Any, source: Source, plan: CheckPlan) -> RoundTrip:
+def _roundtrip(codec: Any, source: Source, plan: CheckPlan,
+               identity: Hashable | None = None) -> RoundTrip:
     __tracebackhide__ = True
     isolation.step("drawing the sample")
     lengths = plan.edge_case_lengths
     return run_roundtrip(codec, source, plan.size, plan.seed,
-                         False if lengths is None else lengths)
+                         False if lengths is None else lengths, identity)
 
 
 def _measurement(trip: RoundTrip, plan: CheckPlan) -> Measurement:
     isolation.step("measuring the rate")
-    return measurement_of(trip.codec, trip.source, trip.sample, plan.seed, trip.encoded,
-                          plan.floor, trip.encode_seconds, trip.decode_seconds)
+    try:
+        return measurement_of(trip.codec, trip.source, trip.sample, plan.seed, trip.encoded,
+                              plan.floor, trip.encode_seconds, trip.decode_seconds)
+    except MemoryError as exc:  # the floor and the sample's information: the plugin's own
+        raise PluginMemoryError(
+            f"ratefloor ran out of memory at n={plan.size} while measuring the {plan.floor} "
+            f"floor and the sample's information ({exc}); not codec {trip.codec.name!r}: "
+            f"check a smaller n or give the test more memory\n  (source {trip.source.spec}, "
+            f"n={plan.size}, seed={plan.seed})") from None
 
 
 def _survive_damage(trip: RoundTrip, settings: DamageSettings, save_dir: SaveDir | None) -> None:
@@ -369,8 +390,8 @@ def _survive_damage(trip: RoundTrip, settings: DamageSettings, save_dir: SaveDir
 
     isolation.step("feeding damaged streams to the decoder")
     sample, encoded = trip.prefix(CORRUPTION_N)  # a prefix of the one sample, not a re-draw
-    survive_damage(trip.codec, sample, encoded, source=trip.source.spec, seed=trip.seed,
-                   save_dir=save_dir, **settings)
+    survive_damage(trip.codec, sample.astype(np.int64), encoded, source=trip.source.spec,
+                   seed=trip.seed, save_dir=save_dir, **settings)
 
 
 def _outside_the_package() -> int:
@@ -396,6 +417,13 @@ def _guarded(work: Callable[[], _T], codec: Any, source: Source, plan: CheckPlan
     return isolation.guarded(work, case=_case(codec, source, plan), isolate=plan.isolated)
 
 
+def _sharing(codec: Any, plan: CheckPlan) -> tuple[Hashable | None, tuple[object, ...]]:
+    """The codec's identity for the session's passed edge cases and the objects kept
+    alive with it (``(None, ())``: nothing shared); decided in the test's process."""
+    found = None if plan.edge_case_lengths is None else codec_identity(codec)
+    return (None, ()) if found is None else found
+
+
 def run_check(
     codec: Any,
     source: Source,
@@ -417,9 +445,12 @@ def run_check(
     _check_source(source)
     plan = plan.for_source(source)
 
-    def work() -> tuple[Measurement, RateFloorFailure | None, RateFloorFailure | None]:
+    identity, refs = _sharing(codec, plan)
+
+    def work() -> tuple[Measurement, RateFloorFailure | None, RateFloorFailure | None,
+                        tuple[Hashable, ...]]:
         __tracebackhide__ = True
-        trip = _roundtrip(codec, source, plan)
+        trip = _roundtrip(codec, source, plan, identity)
         m = _measurement(trip, plan)
         m = dataclasses.replace(
             m, tolerance_bits=allowed_excess_bits(m.floor_bits, m.n, plan.rel, plan.abs))
@@ -431,9 +462,10 @@ def run_check(
                 _survive_damage(trip, settings, save_dir)
             except RateFloorFailure as exc:
                 damage = exc
-        return m, failure, damage
+        return m, failure, damage, trip.passed_edge_cases
 
-    m, failure, damage = _guarded(work, codec, source, plan)
+    m, failure, damage, passed = _guarded(work, codec, source, plan)
+    PASSED.remember(passed, refs)  # in this process: a forked child sent them home
     noisy = noise_warning(m)
     if noisy is not None:
         warnings.warn(NoisyToleranceWarning(noisy), stacklevel=_outside_the_package())
@@ -485,11 +517,13 @@ def assert_roundtrip(
     plan = CheckPlan(n=n, seed=seed, edge_cases=edge_cases,
                      isolate=isolate).for_source(source, ROUNDTRIP_N)
 
-    def work() -> None:  # the round trip itself stays in the child: only failures come back
-        __tracebackhide__ = True
-        _roundtrip(codec, source, plan)
+    identity, refs = _sharing(codec, plan)
 
-    _guarded(work, codec, source, plan)
+    def work() -> tuple[Hashable, ...]:  # the round trip stays in the child: failures and
+        __tracebackhide__ = True         # the keys of the edge cases passed come back
+        return _roundtrip(codec, source, plan, identity).passed_edge_cases
+
+    PASSED.remember(_guarded(work, codec, source, plan), refs)
 
 
 def assert_rate(

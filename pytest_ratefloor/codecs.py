@@ -47,7 +47,7 @@ finds a name for that object and writes the line.
 
 from __future__ import annotations
 
-from collections.abc import Callable, Mapping
+from collections.abc import Callable, Hashable, Mapping
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any, Protocol, runtime_checkable
 
@@ -55,7 +55,7 @@ import numpy as np
 from bitarray import bitarray
 
 from pytest_ratefloor import validation
-from pytest_ratefloor.errors import CodecContractError, LayoutError
+from pytest_ratefloor.errors import CodecContractError, LayoutError, PluginMemoryError
 from pytest_ratefloor.layouts import AUTO, LAYOUTS, pack, packed_size, resolve_layout, unpack
 from pytest_ratefloor.streams import (
     PAYLOAD_KINDS,
@@ -85,6 +85,7 @@ __all__ = [
     "ReplayCall",
     "StreamCodec",
     "as_codec",
+    "codec_identity",
     "decoded_array",
     "encoded_from_stream",
     "symbols_from_decoder",
@@ -138,6 +139,15 @@ class ReplayCall:
         """The call on the object named by the expression ``name``."""
         attribute = f".{self.method}" if self.method else ""
         return f"{name}{attribute}({self.args})"
+
+
+def _converted(value: object, n: int) -> np.ndarray:
+    """A decoder's output checked and made int64; the plugin's own allocation failing
+    is a :class:`PluginMemoryError`, not the decoder's."""
+    try:
+        return symbols_from_decoder(value, n)
+    except MemoryError as exc:
+        raise PluginMemoryError(f"converting the decoder's {n} symbols to int64") from exc
 
 
 def _callable_name(fn: Callable[..., Any]) -> str:
@@ -198,7 +208,7 @@ class StreamCodec:
 
     def decode(self, encoded: Encoded, n: int) -> np.ndarray:
         """Call the user's decoder and validate what it returned."""
-        return symbols_from_decoder(self._decode(encoded.payload, n), n)
+        return _converted(self._decode(encoded.payload, n), n)
 
     def for_source(self, source: Source) -> StreamCodec:
         """Nothing to resolve: the same codec."""
@@ -286,10 +296,28 @@ class ByteCodec:
         bound._trusted = lo is not None and hi is not None and LAYOUTS[layout].holds(lo, hi)
         return bound
 
-    def encode(self, symbols: np.ndarray) -> Encoded:
-        """Write the symbols in the layout, compress, and charge ``8 · len`` bits."""
+    def pack_symbols(self, symbols: np.ndarray) -> bytes:
+        """The symbols written in the layout (the bytes the compressor is given).
+
+        :raises LayoutError: a symbol that does not fit the layout.
+        :raises PluginMemoryError: no memory for the packed copy (the plugin's own
+            allocation, not the codec's).
+        """
         layout = resolve_layout(self.symbol)
-        out = self._compress(pack(symbols, layout, trusted=self._trusted))
+        word = LAYOUTS[layout]
+        try:
+            arr = np.asarray(symbols)
+            if (word.dtype is not None and not word.zigzag and arr.dtype == np.dtype(word.dtype)
+                    and arr.ndim == 1):
+                return arr.tobytes()  # already in the layout's words: one copy, no widening
+            return pack(arr, layout, trusted=self._trusted)
+        except MemoryError as exc:
+            raise PluginMemoryError(
+                f"packing {len(symbols)} symbols into layout {layout!r}") from exc
+
+    def compress_packed(self, data: bytes) -> Encoded:
+        """Compress packed symbols (:meth:`pack_symbols`) and charge ``8 · len`` bits."""
+        out = self._compress(data)
         raw = bytes_of(out)
         if raw is None:
             raise CodecContractError(
@@ -297,8 +325,13 @@ class ByteCodec:
             )
         return Encoded(payload=raw, bits=8 * len(raw))
 
-    def decode(self, encoded: Encoded, n: int) -> np.ndarray:
-        """Decompress (told ``n`` with ``pass_n``) and read back exactly ``n`` symbols."""
+    def encode(self, symbols: np.ndarray) -> Encoded:
+        """Write the symbols in the layout, compress, and charge ``8 · len`` bits."""
+        return self.compress_packed(self.pack_symbols(symbols))
+
+    def decompress_packed(self, encoded: Encoded, n: int) -> bytes:
+        """Decompress (told ``n`` with ``pass_n``): the packed bytes of ``n`` symbols,
+        their length checked (compare with :meth:`pack_symbols`, or :meth:`unpack_symbols`)."""
         layout = resolve_layout(self.symbol)
         if self.pass_n:
             out = self._decompress(encoded.payload, n)
@@ -316,7 +349,23 @@ class ByteCodec:
                 f"decompressor returned {len(raw)} bytes; {n} symbols in layout {layout!r} "
                 f"take {want} bytes"
             )
-        return unpack(raw, n, layout)
+        return raw
+
+    def unpack_symbols(self, raw: bytes, n: int) -> np.ndarray:
+        """``n`` symbols read back from packed bytes, as int64.
+
+        :raises PluginMemoryError: no memory for the int64 copy (the plugin's own).
+        """
+        layout = resolve_layout(self.symbol)
+        try:
+            return unpack(raw, n, layout)
+        except MemoryError as exc:
+            raise PluginMemoryError(
+                f"reading {n} decoded symbols of layout {layout!r} back as int64") from exc
+
+    def decode(self, encoded: Encoded, n: int) -> np.ndarray:
+        """Decompress (told ``n`` with ``pass_n``) and read back exactly ``n`` symbols."""
+        return self.unpack_symbols(self.decompress_packed(encoded, n), n)
 
     def replay_call(self, payload: str, n: int) -> ReplayCall:
         """The user's ``decompress(payload)``, or ``decompress(payload, n)`` with
@@ -357,7 +406,7 @@ class CodebookCodec:
 
     def decode(self, encoded: Encoded, n: int) -> np.ndarray:
         """Decode ``n`` symbols with the codebook's decode tree."""
-        return symbols_from_decoder(self.codebook.decode(encoded.payload, n), n)
+        return _converted(self.codebook.decode(encoded.payload, n), n)
 
     def for_source(self, source: Source) -> CodebookCodec:
         """Nothing to resolve: the same codec."""
@@ -424,3 +473,53 @@ def as_codec(obj: object) -> Codec:
         "CommandCodec, Codebook, a {symbol: codeword} mapping, an (encode, decode) pair of "
         "callables, or an object with encode(symbols) and decode(data, n)"
     )
+
+
+def _parts(fn: object) -> tuple[object, ...]:
+    """The objects a callable stands for: a bound method is its object and function
+    (a fresh bound-method object is made at each attribute access)."""
+    owner, func = getattr(fn, "__self__", None), getattr(fn, "__func__", None)
+    if owner is not None and func is not None:
+        return (owner, func)
+    return (fn,)
+
+
+def codec_identity(obj: object) -> tuple[tuple[Hashable, ...], tuple[object, ...]] | None:
+    """What makes ``obj`` (a codec as a user passes it) the same codec as before.
+
+    Returns ``(key, refs)``: ``key`` holds the ids of the user's own objects
+    behind the codec (its functions, compressor, codebook, command object) and
+    the settings that change what it does (layout option, ``pass_n``, the
+    command lines); ``refs`` are those objects, to be kept alive while the key
+    is used so that no other object can take their ids. Two codec objects
+    built from the same functions and settings get the same key. ``None`` for
+    a plain mapping used as a code table (a dict can change in place) and for
+    anything :func:`as_codec` would refuse. The name and version are not in
+    the key: the checks add those of the bound codec.
+    """
+    from pytest_ratefloor.command import CommandCodec
+
+    parts: tuple[object, ...]
+    settings: tuple[Hashable, ...] = ()
+    if isinstance(obj, StreamCodec):
+        parts = (*_parts(obj._encode), *_parts(obj._decode))
+    elif isinstance(obj, ByteCodec):
+        parts = (*_parts(obj._compress), *_parts(obj._decompress))
+        settings = ("bytes", obj.symbol, obj.pass_n)
+    elif isinstance(obj, CodebookCodec):
+        parts = (obj.codebook,)
+    elif isinstance(obj, CommandCodec):
+        parts = (obj,)
+        settings = ("command", obj.encode_cmd, obj.decode_cmd, obj.symbol)
+    elif _is_codebook(obj):
+        parts = (obj,)
+    elif isinstance(obj, Mapping):
+        return None
+    elif isinstance(obj, (tuple, list)) and len(obj) == 2 and all(callable(f) for f in obj):
+        parts = (*_parts(obj[0]), *_parts(obj[1]))
+    elif callable(getattr(obj, "encode", None)) and callable(getattr(obj, "decode", None)):
+        parts = (obj, *_parts(obj.encode), *_parts(obj.decode))  # type: ignore[attr-defined]
+    else:
+        return None
+    key = (type(obj).__qualname__, *(("id", id(p)) for p in parts), *settings)
+    return key, parts

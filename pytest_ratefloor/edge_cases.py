@@ -15,11 +15,14 @@ the prefixes around 2¹⁶, cost nothing when they are left out).
 
 from __future__ import annotations
 
+import hashlib
 import math
-from collections.abc import Mapping
+from collections import OrderedDict
+from collections.abc import Callable, Hashable, Iterable, Mapping
 from dataclasses import dataclass
+from functools import partial
 from types import MappingProxyType
-from typing import TYPE_CHECKING, TypeAlias
+from typing import TYPE_CHECKING, NamedTuple, TypeAlias
 
 import numpy as np
 
@@ -33,14 +36,18 @@ __all__ = [
     "EDGE_CASE_SETS",
     "LIKELY_TAIL",
     "MAX_ALPHABET_CASE",
+    "PASSED",
     "SHORT_CASE_LIMIT",
     "SHORT_LENGTHS",
     "SPREAD_SYMBOLS",
     "WORD_BOUNDARY_LENGTHS",
+    "EdgeCase",
     "EdgeCaseLengths",
     "EdgeCaseSetting",
+    "PassedEdgeCases",
     "edge_case_inputs",
     "edge_case_lengths",
+    "plan_edge_cases",
 ]
 
 #: Longer than 2¹⁶, so a 16-bit run or length counter overflows on it.
@@ -114,8 +121,27 @@ def _spread(symbols: np.ndarray, count: int) -> np.ndarray:
     return symbols[np.unique(np.linspace(0, len(symbols) - 1, count).round().astype(np.intp))]
 
 
+#: Supports already computed, by source class, spec and codec table (equal specs are
+#: equal distributions); bounded, oldest out.
+_SUPPORTS: OrderedDict[Hashable, np.ndarray] = OrderedDict()
+_SUPPORTS_KEPT = 64
+
+
 def _support(source: Source, codec_symbols: list[int] | None) -> np.ndarray:
-    """Sorted symbols used for the symbol edge cases (see :func:`edge_case_inputs`)."""
+    """Sorted symbols used for the symbol edge cases (see :func:`edge_case_inputs`),
+    computed once per source spec and codec table."""
+    key = (type(source).__qualname__, source.spec,
+           None if codec_symbols is None else tuple(codec_symbols))
+    known = _SUPPORTS.get(key)
+    if known is None:
+        known = _SUPPORTS[key] = _support_of(source, codec_symbols)
+        known.flags.writeable = False
+        while len(_SUPPORTS) > _SUPPORTS_KEPT:
+            _SUPPORTS.popitem(last=False)
+    return known
+
+
+def _support_of(source: Source, codec_symbols: list[int] | None) -> np.ndarray:
     size = source.alphabet_size
     if size is not None and size <= MAX_ALPHABET_CASE:
         symbols, probs = source.pmf_table()
@@ -140,6 +166,131 @@ def _valid(source: Source, symbols: np.ndarray) -> bool:
         return False
 
 
+class EdgeCase(NamedTuple):
+    """One edge case, built only when it runs.
+
+    ``key`` says what the input is: two cases with equal keys have equal
+    inputs (the case's kind and length, the symbols it is made of, or a digest
+    of the sample prefix it is taken from). ``probe`` marks the short cases that
+    do not depend on the sample (the empty input, the single symbols, the
+    alternation, every symbol once when that is short): they run in every
+    check, and what the codec made of them joins the key under which the other
+    cases are remembered (:class:`PassedEdgeCases`). ``make`` returns the
+    int64 input, or ``None`` when the source cannot produce it.
+    """
+
+    name: str
+    key: Hashable
+    length: int
+    probe: bool
+    make: Callable[[], np.ndarray | None]
+
+
+def _digest(symbols: np.ndarray) -> str:
+    """A digest of ``symbols`` and their dtype (equal digests: equal values; the same
+    values in another dtype only miss a chance to share)."""
+    arr = np.ascontiguousarray(symbols)
+    digest = hashlib.blake2b(f"{arr.dtype.str}:{arr.size}:".encode(), digest_size=16)
+    digest.update(arr.data.cast("B"))
+    return digest.hexdigest()
+
+
+def _head(whole: Callable[[], np.ndarray], length: int) -> np.ndarray:
+    return whole()[:length]
+
+
+def plan_edge_cases(
+    source: Source,
+    sample: np.ndarray,
+    seed: int = 0,
+    codec_symbols: list[int] | None = None,
+    lengths: EdgeCaseLengths = ALL_EDGE_CASES,
+) -> list[EdgeCase]:
+    """The edge cases of :func:`edge_case_inputs`, in its order, each built on demand.
+
+    Nothing long is allocated here: the constant runs, the long prefixes (and
+    the draw behind them when ``sample`` is shorter) are made by
+    :attr:`EdgeCase.make`. A prefix is keyed by what it is cut from: the
+    source's class and spec, ``seed`` and the length of the draw (``sample``
+    is ``source.sample(len(sample), seed)``, or a fresh draw of the longest
+    prefix when ``sample`` is shorter). Equal specs are equal distributions
+    (a file's spec holds its hash) and a draw is fixed by its seed and length,
+    as the ledger's sample fingerprints also rely on.
+    """
+    keeps = lengths.keeps
+    cases: list[EdgeCase] = []
+    if keeps(0):
+        cases.append(EdgeCase("edge case 'empty input'", ("empty",), 0, True,
+                              lambda: np.zeros(0, np.int64)))
+    support = _support(source, codec_symbols)
+
+    def checked(values: Callable[[], np.ndarray]) -> Callable[[], np.ndarray | None]:
+        if source.memoryless:  # any string of symbols of the support has a probability > 0
+            return values
+
+        def make() -> np.ndarray | None:
+            arr = values()
+            return arr if _valid(source, arr) else None
+        return make
+
+    if len(support):
+        low, high = int(support[0]), int(support[-1])
+        ends = [low] if low == high else [low, high]
+        if keeps(1):
+            for s in ends:
+                which = "smallest" if s == low else "largest"
+                cases.append(EdgeCase(
+                    f"edge case 'single {which} symbol {s}'", ("single", s), 1, True,
+                    checked(partial(np.full, 1, s, np.int64))))
+        if keeps(CONSTANT_RUN):
+            for s in ends:
+                cases.append(EdgeCase(
+                    f"edge case 'constant run of {s}'", ("constant", s, CONSTANT_RUN),
+                    CONSTANT_RUN, False,
+                    checked(partial(np.full, CONSTANT_RUN, s, np.int64))))
+        if low != high and keeps(ALTERNATING_RUN):
+            cases.append(EdgeCase(
+                f"edge case 'alternating {low}/{high}'",
+                ("alternating", low, high, ALTERNATING_RUN), ALTERNATING_RUN, True,
+                checked(lambda: np.where(np.arange(ALTERNATING_RUN) % 2 == 0, low, high)
+                        .astype(np.int64))))
+        everything = _spread(support, MAX_ALPHABET_CASE if len(support) <= MAX_ALPHABET_CASE
+                             else SPREAD_SYMBOLS)
+        if keeps(len(everything)):
+            label = ("every symbol once" if len(everything) == len(support)
+                     else "a spread of symbols")
+            if source.alphabet_size is None:
+                label = "a spread of symbols of the likely range"
+            cases.append(EdgeCase(
+                f"edge case '{label}' ({len(everything)} symbols)",
+                ("symbols", _digest(everything)), len(everything),
+                len(everything) <= SHORT_CASE_LIMIT, checked(lambda: everything)))
+    # a source of fixed length (a corpus file) has no longer sample to take a prefix of
+    available = getattr(source, "length", None)
+    prefixes = [n for n in (*SHORT_LENGTHS, *WORD_BOUNDARY_LENGTHS) if keeps(n)
+                and (available is None or n <= max(int(available), len(sample)))]
+    if prefixes:
+        longest = max(prefixes)
+        drawn: list[np.ndarray] = []
+
+        def long() -> np.ndarray:
+            if len(sample) >= longest:
+                return sample
+            if not drawn:
+                drawn.append(np.asarray(source.sample(longest, seed)))
+            return drawn[0]
+
+        # what the prefixes are cut from, named without reading it: the spec fixes the
+        # distribution (and names a file by its hash), the seed and length fix the draw
+        origin: Hashable = (type(source).__qualname__, source.spec, seed,
+                            len(sample) if len(sample) >= longest else ("drawn", longest))
+        for length in prefixes:
+            cases.append(EdgeCase(
+                f"edge case 'sample prefix of length {length}'", ("prefix", length, origin),
+                length, False, partial(_head, long, length)))
+    return cases
+
+
 def edge_case_inputs(
     source: Source,
     sample: np.ndarray,
@@ -147,7 +298,7 @@ def edge_case_inputs(
     codec_symbols: list[int] | None = None,
     lengths: EdgeCaseLengths = ALL_EDGE_CASES,
 ) -> list[tuple[str, np.ndarray]]:
-    """The edge-case inputs for ``source``: a list of (name, int64 array).
+    """The edge-case inputs for ``source``: a list of (name, array).
 
     * empty input;
     * length 1 with the smallest and with the largest symbol;
@@ -155,7 +306,7 @@ def edge_case_inputs(
     * 1 000 symbols alternating smallest/largest;
     * prefixes of length 1…17 and 65 535, 65 536, 65 537 of a source sample
       (``sample`` if it is as long as the longest prefix kept, else
-      ``source.sample(<that length>, seed)``);
+      ``source.sample(<that length>, seed)``; of the sample's dtype);
     * every symbol of a finite alphabet once, ascending (alphabets over
       65 536 symbols, and unbounded ones: an even spread of 4 096 symbols).
 
@@ -167,45 +318,62 @@ def edge_case_inputs(
     is valid for the source.
 
     Only the cases whose length ``lengths`` keeps are built (default: all);
-    the order of the cases kept is that of the full list above.
+    the order of the cases kept is that of the full list above. A check
+    builds them one at a time through :func:`plan_edge_cases` and skips those
+    the same codec already passed (:class:`PassedEdgeCases`).
     """
-    keeps = lengths.keeps
-    cases: list[tuple[str, np.ndarray]] = []
-    if keeps(0):
-        cases.append(("edge case 'empty input'", np.zeros(0, np.int64)))
-    candidates: list[tuple[str, np.ndarray]] = []
-    support = _support(source, codec_symbols)
-    if len(support):
-        low, high = int(support[0]), int(support[-1])
-        ends = [low] if low == high else [low, high]
-        if keeps(1):
-            for s in ends:
-                which = "smallest" if s == low else "largest"
-                candidates.append(
-                    (f"edge case 'single {which} symbol {s}'", np.array([s], np.int64)))
-        if keeps(CONSTANT_RUN):
-            for s in ends:
-                candidates.append(
-                    (f"edge case 'constant run of {s}'", np.full(CONSTANT_RUN, s, np.int64)))
-        if low != high and keeps(ALTERNATING_RUN):
-            alt = np.where(np.arange(ALTERNATING_RUN) % 2 == 0, low, high).astype(np.int64)
-            candidates.append((f"edge case 'alternating {low}/{high}'", alt))
-        everything = _spread(support, MAX_ALPHABET_CASE if len(support) <= MAX_ALPHABET_CASE
-                             else SPREAD_SYMBOLS)
-        if keeps(len(everything)):
-            label = ("every symbol once" if len(everything) == len(support)
-                     else "a spread of symbols")
-            if source.alphabet_size is None:
-                label = "a spread of symbols of the likely range"
-            candidates.append((f"edge case '{label}' ({len(everything)} symbols)", everything))
-    cases.extend((name, arr) for name, arr in candidates if _valid(source, arr))
-    # a source of fixed length (a corpus file) has no longer sample to take a prefix of
-    available = getattr(source, "length", None)
-    prefixes = [n for n in (*SHORT_LENGTHS, *WORD_BOUNDARY_LENGTHS) if keeps(n)
-                and (available is None or n <= max(int(available), len(sample)))]
-    if prefixes:
-        longest = max(prefixes)
-        long = sample if len(sample) >= longest else np.asarray(source.sample(longest, seed))
-        for length in prefixes:
-            cases.append((f"edge case 'sample prefix of length {length}'", long[:length]))
+    cases = []
+    for case in plan_edge_cases(source, sample, seed, codec_symbols, lengths):
+        arr = case.make()
+        if arr is not None:
+            cases.append((case.name, arr))
     return cases
+
+
+class PassedEdgeCases:
+    """The edge cases a codec passed in this session, so that a check skips those it
+    would only repeat.
+
+    An entry's key is the codec's identity (the user's own objects — functions,
+    codebook, command — held here so that their ids cannot be reused while the
+    entry lives — with their settings), its name, version and layout, the
+    digest of what it made of the probe cases of this check (see
+    :class:`EdgeCase`) and the case's :attr:`EdgeCase.key`. So a case is
+    skipped only for the very same input to the very same codec objects,
+    which gave the very same output on the probe inputs in this check; a codec
+    rebuilt, renamed, re-versioned or behaving differently on the probes runs
+    every case again. Only passes are remembered: a failing case runs (and
+    fails, with its own message) in every check that includes it.
+    The entries are bounded (:attr:`limit`, least recently used first out).
+    Under fork isolation the child sends the keys it passed back with its
+    result and the parent remembers them (:func:`pytest_ratefloor.checks.run_check`).
+    """
+
+    def __init__(self, limit: int = 4096) -> None:
+        self.limit = limit
+        self._entries: OrderedDict[Hashable, tuple[object, ...]] = OrderedDict()
+
+    def __len__(self) -> int:
+        return len(self._entries)
+
+    def __contains__(self, key: object) -> bool:
+        if key in self._entries:
+            self._entries.move_to_end(key)
+            return True
+        return False
+
+    def remember(self, keys: Iterable[Hashable], refs: tuple[object, ...]) -> None:
+        """Note ``keys`` as passed; ``refs`` are the objects whose ids the keys hold."""
+        for key in keys:
+            self._entries[key] = refs
+            self._entries.move_to_end(key)
+        while len(self._entries) > self.limit:
+            self._entries.popitem(last=False)
+
+    def clear(self) -> None:
+        """Forget every pass (every edge case runs again)."""
+        self._entries.clear()
+
+
+#: The session's passed edge cases (one per process; each xdist worker has its own).
+PASSED = PassedEdgeCases()

@@ -109,15 +109,29 @@ def tolerance(rel: float | None, abs: float | None) -> tuple[float, float]:
 
 #: Declared alphabets up to this size get their sample information from a histogram.
 _HISTOGRAM_LIMIT = 1 << 16
+#: Symbols counted at a time (bounds the int64 copy ``np.bincount`` makes of a narrow sample).
+_COUNT_CHUNK = 1 << 20
+
+
+def _histogram(sample: np.ndarray, size: int) -> np.ndarray:
+    """Counts of the symbols ``0..size-1`` of ``sample``, a chunk at a time."""
+    counts = np.zeros(size, dtype=np.int64)
+    for start in range(0, len(sample), _COUNT_CHUNK):
+        counts += np.bincount(sample[start:start + _COUNT_CHUNK], minlength=size)[:size]
+    return counts
 
 
 def sample_information(source: Source, sample: np.ndarray) -> float:
     """``source.information(sample)``, from the histogram where that is cheaper.
 
-    For a memoryless source with a declared alphabet ``0..max ≤ 2¹⁶`` the sum
-    ``Σᵢ −log₂ P(xᵢ)`` equals ``Σₐ nₐ·(−log₂ P(a))`` over the distinct symbols
-    (``source.self_information`` of those, which also rejects symbols outside
-    the support); one counting pass replaces a float array of ``n`` entries.
+    For a memoryless source with a declared alphabet ``0..max`` of at most
+    2¹⁶ symbols, and a sample at least four times longer than the alphabet, the
+    sum ``Σᵢ −log₂ P(xᵢ)`` equals ``Σₐ nₐ·(−log₂ P(a))`` over the distinct
+    symbols (``source.self_information`` of those, which also rejects symbols
+    outside the support); one counting pass replaces a float array of ``n``
+    entries. The two sums add the same terms in another order: they agree to
+    the last few bits of a double. Other sources get ``source.information`` of
+    the sample as int64.
     """
     lo, hi = source.min_symbol, source.max_symbol
     if (
@@ -126,13 +140,15 @@ def sample_information(source: Source, sample: np.ndarray) -> float:
         or hi is None
         or lo != 0
         or hi >= _HISTOGRAM_LIMIT
-        or len(sample) < 4 * _HISTOGRAM_LIMIT
+        or len(sample) < 4 * (int(hi) + 1)
+        or sample.dtype.kind not in "iu"
     ):
-        return float(source.information(sample))
-    try:
-        counts = np.bincount(sample)
-    except ValueError:  # a negative symbol: let the source name it
-        return float(source.information(sample))
+        return float(source.information(np.asarray(sample, dtype=np.int64)))
+    if sample.dtype.kind == "i" and len(sample) and int(sample.min()) < 0:
+        return float(source.information(np.asarray(sample, dtype=np.int64)))  # let it name it
+    counts = _histogram(sample, int(hi) + 1)
+    if int(counts.sum()) != len(sample):  # a symbol above the declared range: let it name it
+        return float(source.information(np.asarray(sample, dtype=np.int64)))
     present = np.flatnonzero(counts)
     per_symbol = np.asarray(source.self_information(present), dtype=np.float64)
     return float(np.dot(counts[present].astype(np.float64), per_symbol))

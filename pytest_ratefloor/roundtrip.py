@@ -16,18 +16,21 @@ deterministic — naming the codec, the source, ``n`` and the seed).
 
 from __future__ import annotations
 
+import hashlib
 import time
+from collections.abc import Callable, Hashable
 from dataclasses import dataclass
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, TypeVar
 
 import numpy as np
 
-from pytest_ratefloor.codecs import Codec, Encoded, as_codec
-from pytest_ratefloor.edge_cases import ALL_EDGE_CASES, EdgeCaseLengths, edge_case_inputs
+from pytest_ratefloor.codecs import ByteCodec, Codec, Encoded, as_codec
+from pytest_ratefloor.edge_cases import PASSED, EdgeCaseLengths, plan_edge_cases
 from pytest_ratefloor.errors import (
     CodecContractError,
     CodecMisbehaviour,
     LayoutError,
+    PluginMemoryError,
     RoundTripFailure,
 )
 from pytest_ratefloor.isolation import step
@@ -35,7 +38,9 @@ from pytest_ratefloor.isolation import step
 if TYPE_CHECKING:
     from pytest_ratefloor.sources import Source
 
-__all__ = ["CONTRACT_SLICE", "RoundTrip", "run_roundtrip"]
+__all__ = ["CONTRACT_SLICE", "RoundTrip", "narrow_dtype", "run_roundtrip"]
+
+_T = TypeVar("_T")
 
 #: Symbols of the slice on which mutation and determinism are checked.
 CONTRACT_SLICE = 4096
@@ -59,6 +64,15 @@ class _Run:
     def origin(self) -> str:
         return f"source {self.source.spec}, n={self.n}, seed={self.seed}"
 
+    def out_of_memory(self, doing: str, exc: BaseException) -> PluginMemoryError:
+        """The plugin's own allocation failed: say so, with ``n`` and the step."""
+        detail = f" ({exc})" if str(exc) else ""
+        return PluginMemoryError(
+            f"ratefloor ran out of memory at n={self.n} while {doing}{detail}: the plugin's "
+            f"own allocation failed, not codec {self.codec.name!r}; check a smaller n or "
+            f"give the test more memory\n  ({self.origin})"
+        )
+
     def misbehaviour(self, case: str, detail: str) -> CodecMisbehaviour:
         return CodecMisbehaviour(
             f"codec {self.codec.name!r} misbehaved on {case}: {detail}\n  ({self.origin})"
@@ -70,6 +84,8 @@ def _encode(codec: Codec, symbols: np.ndarray, run: _Run, case: str) -> Encoded:
     step(f"encoding {case}")
     try:
         return codec.encode(symbols)
+    except PluginMemoryError as exc:
+        raise run.out_of_memory(f"encoding {case}", exc) from None
     except CodecContractError as exc:
         raise run.misbehaviour(case, str(exc)) from None
     except LayoutError as exc:
@@ -95,6 +111,8 @@ def _decode(codec: Codec, encoded: Encoded, n: int, run: _Run, case: str) -> np.
     step(f"decoding {case}")
     try:
         return codec.decode(encoded, n)
+    except PluginMemoryError as exc:
+        raise run.out_of_memory(f"decoding {case}", exc) from None
     except CodecContractError as exc:
         raise run.misbehaviour(case, str(exc)) from None
     except Exception as exc:
@@ -127,10 +145,48 @@ def _readonly(arr: np.ndarray) -> np.ndarray:
     return view
 
 
-def _roundtrip_one(codec: Codec, symbols: np.ndarray, run: _Run, case: str) -> None:
+def _plugin_step(run: _Run, doing: str, work: Callable[[], _T]) -> _T:
+    """Run one of the plugin's own steps; its ``MemoryError`` is the plugin's, named so."""
     __tracebackhide__ = True
-    encoded = _encode(codec, _readonly(symbols), run, case)
+    try:
+        return work()
+    except MemoryError as exc:
+        raise run.out_of_memory(doing, exc) from None
+
+
+#: The narrow dtypes a sample is kept in, narrowest first, with the symbols each holds.
+_NARROW: tuple[tuple[str, int, int], ...] = (
+    ("u1", 0, 0xFF), ("<u2", 0, 0xFFFF), ("<i4", -(2**31), 2**31 - 1),
+)
+
+
+def narrow_dtype(source: Source) -> np.dtype[Any]:
+    """The narrowest of ``u1``, ``u2``, ``i4`` holding the source's declared range
+    (``int64`` when the range is undeclared or wider): the dtype a check keeps its
+    sample in. Values, and so fingerprints, do not depend on it."""
+    lo, hi = source.min_symbol, source.max_symbol
+    if lo is not None and hi is not None:
+        for dtype, low, high in _NARROW:
+            if low <= int(lo) and int(hi) <= high:
+                return np.dtype(dtype)
+    return np.dtype(np.int64)
+
+
+def _as_input(codec: Codec, symbols: np.ndarray, run: _Run) -> np.ndarray:
+    """What the codec is given: a ``ByteCodec`` packs any integer dtype itself; every
+    other codec gets int64 symbols, as its contract says."""
+    if type(codec) is ByteCodec or symbols.dtype == np.int64:
+        return symbols
+    return _plugin_step(run, f"widening {len(symbols)} symbols to int64 for the codec",
+                        lambda: symbols.astype(np.int64))
+
+
+def _roundtrip_one(codec: Codec, symbols: np.ndarray, run: _Run, case: str) -> Encoded:
+    __tracebackhide__ = True
+    given = _as_input(codec, symbols, run)
+    encoded = _encode(codec, _readonly(given), run, case)
     _compare(symbols, _decode(codec, encoded, len(symbols), run, case), run, case)
+    return encoded
 
 
 def _check_untouched(source: Source, sample: np.ndarray, run: _Run, case: str) -> None:
@@ -152,7 +208,7 @@ def _check_untouched(source: Source, sample: np.ndarray, run: _Run, case: str) -
 def _check_contract(codec: Codec, sample: np.ndarray, run: _Run) -> None:
     """Mutation and determinism on a short slice (two extra small encodes)."""
     __tracebackhide__ = True
-    head = sample[:CONTRACT_SLICE]
+    head = _as_input(codec, sample[:CONTRACT_SLICE], run)
     case = f"the first {len(head)} symbols of the sample"
     probe = head.copy()  # writable on purpose: a mutation must be seen, not refused
     first = _encode(codec, probe, run, case)
@@ -180,7 +236,13 @@ def _check_contract(codec: Codec, sample: np.ndarray, run: _Run) -> None:
 
 @dataclass(frozen=True)
 class RoundTrip:
-    """One passed round trip: the bound codec, the sample, its encoding and the timings."""
+    """One passed round trip: the bound codec, the sample, its encoding and the timings.
+
+    ``sample`` is int64, or for a ``ByteCodec`` the narrowest dtype of the
+    source's declared range (:func:`narrow_dtype`); ``passed_edge_cases`` are
+    the keys of the edge cases this round trip ran and passed (for
+    :data:`~pytest_ratefloor.edge_cases.PASSED`).
+    """
 
     codec: Codec
     source: Source
@@ -189,6 +251,7 @@ class RoundTrip:
     encoded: Encoded
     encode_seconds: float
     decode_seconds: float
+    passed_edge_cases: tuple[Hashable, ...] = ()
 
     def prefix(self, count: int) -> tuple[np.ndarray, Encoded]:
         """The first ``count`` symbols and their encoding (this round trip's own for all of it).
@@ -200,38 +263,140 @@ class RoundTrip:
             return self.sample, self.encoded
         head = self.sample[:count]
         run = _Run(self.codec, self.source, len(self.sample), self.seed)
-        return head, _encode(self.codec, _readonly(head), run,
+        return head, _encode(self.codec, _readonly(_as_input(self.codec, head, run)), run,
                              f"the first {count} symbols of the sample")
 
 
+def _sample_roundtrip(bound: Codec, sample: np.ndarray, run: _Run,
+                      case: str) -> tuple[Encoded, float, float]:
+    """Encode and decode the sample once and compare: (encoding, encode s, decode s).
+
+    A ``ByteCodec`` is compared on the packed bytes (the sample's packed copy against
+    what the decompressor returned), so no int64 copy of the decoded symbols is made;
+    bytes that differ are read back as symbols and compared as such (a ``bits``
+    layout may differ only in its padding).
+    """
+    __tracebackhide__ = True
+    if type(bound) is not ByteCodec:  # a subclass may encode otherwise: the general path
+        start = time.perf_counter()
+        encoded = _encode(bound, _readonly(_as_input(bound, sample, run)), run, case)
+        encode_seconds = time.perf_counter() - start
+        start = time.perf_counter()
+        decoded = _decode(bound, encoded, run.n, run, case)
+        decode_seconds = time.perf_counter() - start
+        _compare(sample, decoded, run, case)
+        return encoded, encode_seconds, decode_seconds
+    start = time.perf_counter()
+    step(f"packing {case}")
+    try:
+        packed = bound.pack_symbols(_readonly(sample))
+    except PluginMemoryError as exc:
+        raise run.out_of_memory(f"packing {case}", exc) from None
+    except LayoutError as exc:
+        raise LayoutError(f"{exc} — codec {bound.name!r} on {case} ({run.origin})") from None
+    encoded = _call(bound, lambda: bound.compress_packed(packed), run, case, "encod")
+    encode_seconds = time.perf_counter() - start
+    start = time.perf_counter()
+    raw = _call(bound, lambda: bound.decompress_packed(encoded, run.n), run, case, "decod")
+    decode_seconds = time.perf_counter() - start
+    if raw != packed:
+        del packed
+        decoded = _plugin_step(run, f"reading back {case}",
+                               lambda: bound.unpack_symbols(raw, run.n))
+        _compare(sample, decoded, run, case)
+    return encoded, encode_seconds, decode_seconds
+
+
+def _call(codec: Codec, work: Callable[[], _T], run: _Run, case: str, verb: str) -> _T:
+    """One codec call of the byte path, with the messages of :func:`_encode`/:func:`_decode`
+    (``verb`` is ``"encod"`` or ``"decod"``)."""
+    __tracebackhide__ = True
+    step(f"{verb}ing {case}")
+    role = "encoder" if verb == "encod" else "decoder"
+    try:
+        return work()
+    except CodecContractError as exc:
+        raise run.misbehaviour(case, str(exc)) from None
+    except Exception as exc:
+        raise run.misbehaviour(case, f"the {role} raised {type(exc).__name__}: {exc}") from exc
+    except SystemExit as exc:
+        raise run.misbehaviour(case, f"the {role} called sys.exit({exc.code!r})") from exc
+
+
+def _layout_text(codec: Codec) -> Hashable:
+    layout = getattr(codec, "layout", None)
+    return layout if isinstance(layout, (str, tuple)) else repr(layout)
+
+
+def _edge_cases(bound: Codec, source: Source, sample: np.ndarray, run: _Run,
+                lengths: EdgeCaseLengths, identity: Hashable | None) -> tuple[Hashable, ...]:
+    """Run the edge cases in their order; those this codec already passed on the same
+    input are skipped.
+
+    The probe cases (short, not drawn from the sample) run every time, and what
+    the codec made of those before a case joins that case's key (see
+    :class:`~pytest_ratefloor.edge_cases.PassedEdgeCases`). Returns the keys
+    of the cases passed here (``()`` without an ``identity``: nothing is shared).
+    """
+    __tracebackhide__ = True
+    scope = None if identity is None else (
+        identity, bound.name, bound.version, _layout_text(bound))
+    behaviour = hashlib.blake2b(digest_size=16)
+    answers = behaviour.hexdigest()
+    passed: list[Hashable] = []
+    for case in plan_edge_cases(source, sample, run.seed, bound.symbols, lengths):
+        if case.probe:
+            symbols = case.make()
+            if symbols is not None:
+                bits, stream = _roundtrip_one(bound, symbols, run, case.name).signature()
+                behaviour.update(f"{case.key!r}:{bits}:{len(stream)}:".encode())
+                behaviour.update(stream)
+                answers = behaviour.hexdigest()
+            continue
+        key = None if scope is None else (scope, answers, case.key)
+        if key is not None and key in PASSED:
+            continue
+        symbols = case.make()
+        if symbols is None:
+            continue
+        _roundtrip_one(bound, symbols, run, case.name)
+        if key is not None:
+            passed.append(key)
+    return tuple(passed)
+
+
 def run_roundtrip(
-    codec: Any, source: Source, n: int, seed: int, edge_cases: bool | EdgeCaseLengths
+    codec: Any, source: Source, n: int, seed: int, edge_cases: bool | EdgeCaseLengths,
+    identity: Hashable | None = None,
 ) -> RoundTrip:
     """Encode and decode the sample once, check the contract and the edge cases.
 
     ``edge_cases``: ``True`` for all of them, ``False`` for none, or the
-    :class:`~pytest_ratefloor.edge_cases.EdgeCaseLengths` to run. The
+    :class:`~pytest_ratefloor.edge_cases.EdgeCaseLengths` to run. ``identity``
+    (the key of :func:`~pytest_ratefloor.codecs.codec_identity`, or ``None``)
+    lets edge cases this codec already passed in the session be skipped; the
+    keys of those passed here are in :attr:`RoundTrip.passed_edge_cases`. The
     arguments are already validated (see :class:`pytest_ratefloor.checks.CheckPlan`).
     """
     __tracebackhide__ = True
     bound = as_codec(codec).for_source(source)
     run = _Run(bound, source, n, seed)
-    sample = np.asarray(source.sample(n, seed), dtype=np.int64)
+    # a ByteCodec packs the symbols itself: its sample is kept narrow (memory); every
+    # other codec is handed the sample itself, as int64
+    dtype = narrow_dtype(source) if type(bound) is ByteCodec else np.dtype(np.int64)
+    sample = _plugin_step(
+        run, f"drawing the sample ({n} symbols) and keeping it as {dtype}",
+        lambda: np.asarray(source.sample(n, seed)).astype(dtype, copy=False))
     case = f"the sample ({n} symbols)"
-    start = time.perf_counter()
-    encoded = _encode(bound, _readonly(sample), run, case)
-    encode_seconds = time.perf_counter() - start
-    start = time.perf_counter()
-    decoded = _decode(bound, encoded, n, run, case)
-    decode_seconds = time.perf_counter() - start
     try:
-        _compare(sample, decoded, run, case)
+        encoded, encode_seconds, decode_seconds = _sample_roundtrip(bound, sample, run, case)
     except RoundTripFailure:
         _check_untouched(source, sample, run, case)
         raise
     _check_contract(bound, sample, run)
+    passed: tuple[Hashable, ...] = ()
     if edge_cases is not False:
-        lengths = ALL_EDGE_CASES if edge_cases is True else edge_cases
-        for name, symbols in edge_case_inputs(source, sample, seed, bound.symbols, lengths):
-            _roundtrip_one(bound, symbols, run, name)
-    return RoundTrip(bound, source, seed, sample, encoded, encode_seconds, decode_seconds)
+        lengths = EdgeCaseLengths() if edge_cases is True else edge_cases
+        passed = _edge_cases(bound, source, sample, run, lengths, identity)
+    return RoundTrip(bound, source, seed, sample, encoded, encode_seconds, decode_seconds,
+                     passed)

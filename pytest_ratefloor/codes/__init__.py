@@ -10,11 +10,17 @@ module               holds
 ===================  =========================================================
 ``codebook``         :class:`Codebook` (a table ``{symbol: codeword}`` that is
                      also a working codec) and the parsing of tables
+``entries``          reading one entry: a symbol, a codeword, with the message
+                     naming a bad one
+``bulk``             reading a big integer-keyed table at once (pairs or
+                     strings); anything unusual goes entry by entry
 ``properties``       prefix-freeness with a witness, exact Kraft sums, canonical
                      order and :func:`canonical_codebook`, the length cap, and
                      :func:`assert_prefix_free` / :func:`assert_kraft`
 ``decodability``     Sardinas–Patterson: :func:`ambiguity`,
                      :func:`assert_uniquely_decodable`
+``sp_layers``        the same search on integers, a layer of buckets at a time
+                     (codewords up to 62 bits; same answers)
 ``optimal``          Huffman and package-merge lengths, Golomb/Rice parameters
                      and expected lengths, :func:`entropy_bits`,
                      :func:`expected_length`, :func:`redundancy`,

@@ -13,6 +13,12 @@ meaning the low ``length`` bits of ``value``, MSB first. A bad table raises
 type with a bad value), naming the symbol and the codeword. A codeword is at most
 :data:`MAX_CODEWORD_BITS` bits long.
 
+A big table keyed by integers, its codewords all ``(value, length)`` tuples or all
+``'0'/'1'`` strings, is read with a few array operations over all entries
+(:mod:`pytest_ratefloor.codes.bulk`: 2**20 entries in a fraction of a second); any
+other table, and any table with a bad entry, is read entry by entry, so the table
+built and the message naming a bad entry are the same either way.
+
 Symbols are the team's own keys: integers, characters, strings, bytes, tuples, any
 hashable value, so a text or tokeniser table is analysed as it is keyed. Two rules:
 
@@ -42,6 +48,7 @@ import numpy as np
 import numpy.typing as npt
 from bitarray import bitarray, decodetree, frozenbitarray
 
+from pytest_ratefloor.codes.bulk import bulk_table
 from pytest_ratefloor.codes.entries import (
     MAX_CODEWORD_BITS,
     _bool_refused,
@@ -102,8 +109,8 @@ class Codebook(Generic[K]):
             raise TypeError(f"codebook name must be a string, got {show(name)}")
         self.name = name
         if isinstance(mapping, Codebook):
-            self._set_table(mapping._ints, mapping._keys, mapping._lengths, mapping._pyvalues,
-                            mapping._index)
+            self._set_table(mapping._ints, mapping._keys, mapping._lengths, mapping._values,
+                            mapping._index, mapping._values64)
             return
         where = f"codebook {name!r}"
         if not isinstance(mapping, Mapping):
@@ -113,6 +120,11 @@ class Codebook(Generic[K]):
             )
         if len(mapping) == 0:
             raise ValueError(f"{where}: mapping must hold at least one codeword, got {{}}")
+        bulk = bulk_table(mapping)  # a big table of a common shape, read at once
+        if bulk is not None:
+            self._set_table(bulk.symbols, None, bulk.lengths, bulk.values, None, bulk.values64)
+            return
+        # entry by entry: any table, and the one message naming a bad entry
         syms: list[int] = []
         values: list[int] = []
         lengths: list[int] = []
@@ -153,8 +165,7 @@ class Codebook(Generic[K]):
         """Fast path for integer tables built here (symbols ascending, entries valid)."""
         self: Codebook[int] = Codebook.__new__(Codebook)
         self.name = name
-        self._set_table(symbols, None, lengths, values)
-        self._values64 = values64
+        self._set_table(symbols, None, lengths, values, None, values64)
         return self
 
     @classmethod
@@ -173,22 +184,27 @@ class Codebook(Generic[K]):
         ints: IntArray | None,
         keys: list[Any] | None,
         lengths: IntArray,
-        values: list[int],
+        values: list[int] | None,
         index: dict[Any, int] | None = None,
+        values64: npt.NDArray[np.uint64] | None = None,
     ) -> None:
         # Exactly one of ``ints`` (integer symbols, ascending) and ``keys`` (any symbols,
         # in symbol order, with ``index``: key → position) is set. Entries are stored in
-        # symbol order, so a position stands for a symbol in every analysis.
+        # symbol order, so a position stands for a symbol in every analysis. The values
+        # are kept as Python ints, as uint64, or both (at least one; each made from the
+        # other when first needed).
+        if values is None and values64 is None:
+            raise ValueError("a codebook needs its codeword values")  # an internal invariant
         self._ints = ints
         self._keys = keys
         self._index = index
         self._lengths = lengths
-        self._pyvalues = values
+        self._values = values
         self._max_length = int(lengths.max())
         self._codewords: dict[Any, bitarray] | None = None
         self._encode_table: dict[Any, bitarray] | None = None
         self._tree: decodetree | None = None
-        self._values64: npt.NDArray[np.uint64] | None = None
+        self._values64 = values64 if self._max_length <= 64 else None
 
     # ---- symbols
     def _integers(self, doing: str) -> IntArray:
@@ -291,10 +307,10 @@ class Codebook(Generic[K]):
         """The codeword of ``symbol`` as '0'/'1' text (``KeyError`` if it has none;
         ``TypeError`` for a ``bool``, never a symbol, or an unhashable value)."""
         i = self._position(symbol)
-        return _word_text(self._pyvalues[i], int(self._lengths[i]))
+        return _word_text(self._value(i), int(self._lengths[i]))
 
     def __len__(self) -> int:
-        return len(self._pyvalues)
+        return int(self._lengths.size)
 
     def __contains__(self, symbol: object) -> bool:
         try:
@@ -310,6 +326,21 @@ class Codebook(Generic[K]):
         )
 
     # ---- internal views used by the analysis functions
+    @property
+    def _pyvalues(self) -> list[int]:
+        """Codeword values as Python ints, in symbol order."""
+        if self._values is None:
+            assert self._values64 is not None
+            self._values = self._values64.tolist()
+        return self._values
+
+    def _value(self, position: int) -> int:
+        """The codeword value at ``position`` as a Python int."""
+        if self._values is not None:
+            return self._values[position]
+        assert self._values64 is not None
+        return int(self._values64[position])
+
     def _texts(self) -> list[str]:
         return [_word_text(v, ln) for v, ln in zip(self._pyvalues, self._lengths.tolist())]
 

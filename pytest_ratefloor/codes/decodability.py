@@ -10,6 +10,12 @@ search is bounded by :data:`SP_SUFFIX_LIMIT` dangling suffixes
 
 The search runs on positions in the table; parses are given back in the table's own
 symbols (any hashable keys), and the failure message shows them with ``repr``.
+
+Two implementations of the one search give the same answers (the same shortest
+string, the same two parses, the same point where ``limit`` stops them): codewords of
+at most 62 bits are searched as integers, a whole layer of the
+search at a time (:mod:`pytest_ratefloor.codes.sp_layers`); longer ones as text,
+one dangling suffix at a time (:func:`_ambiguity_text`).
 """
 
 from __future__ import annotations
@@ -17,11 +23,15 @@ from __future__ import annotations
 import heapq
 import itertools
 from bisect import bisect_left
+from collections.abc import Callable
 from typing import Any
 
 from pytest_ratefloor.codes.codebook import Codebook, CodeLike, _as_codebook
+from pytest_ratefloor.codes.entries import _word_text
 from pytest_ratefloor.codes.properties import prefix_witness
-from pytest_ratefloor.errors import AmbiguousCode, SearchLimitError
+from pytest_ratefloor.codes.sp_layers import FAST_MAX_BITS as _FAST_MAX_BITS
+from pytest_ratefloor.codes.sp_layers import Duplicate, layered_search, limit_error
+from pytest_ratefloor.errors import AmbiguousCode
 from pytest_ratefloor.validation import integer, show
 
 #: Default bound of the Sardinas–Patterson search: the number of distinct dangling
@@ -58,6 +68,26 @@ def _ambiguity(cb: Codebook[Any], limit: int) -> tuple[str, list[int], list[int]
     """:func:`ambiguity` on positions in the table (a position stands for a symbol)."""
     if prefix_witness(cb) is None:
         return None
+    if cb.max_length <= _FAST_MAX_BITS:
+        found = layered_search(cb, limit)
+        if found is None:
+            return None
+        if isinstance(found, Duplicate):  # two symbols, one codeword
+            return _text_of(cb, found.first), [found.first], [found.second]
+        return _replay(found.long_first, found.short_first, found.steps, found.last,
+                       lambda i: _text_of(cb, i))
+    return _ambiguity_text(cb, limit)
+
+
+def _text_of(cb: Codebook[Any], position: int) -> str:
+    return _word_text(cb._value(position), int(cb._lengths[position]))
+
+
+def _ambiguity_text(cb: Codebook[Any], limit: int) -> tuple[str, list[int], list[int]] | None:
+    """The search on '0'/'1' text, one dangling suffix at a time (any codeword length).
+
+    A heap of (cost, kind, push order): the first item popped for a suffix is how it
+    arose, and the first ``_DONE`` popped is the answer."""
     texts = cb._texts()
     first_symbol: dict[str, int] = {}
     heap: list[tuple[Any, ...]] = []
@@ -84,10 +114,7 @@ def _ambiguity(cb: Codebook[Any], limit: int) -> tuple[str, list[int], list[int]
             continue
         settled[suffix] = how
         if len(settled) > limit:
-            raise SearchLimitError(
-                f"Sardinas–Patterson search on codebook {cb.name!r} passed limit={limit} "
-                f"dangling suffixes without a verdict; raise limit= to search further"
-            )
+            raise limit_error(cb.name, limit)
         exact = first_symbol.get(suffix)
         if exact is not None:  # the lagging parse catches up exactly
             heapq.heappush(heap, (cost, _DONE, next(seq), None, ("end", suffix, exact)))
@@ -131,14 +158,27 @@ def _rebuild(
         steps.append((sym, swapped))
         rec = settled[prev]
     _, long_first, short_first = rec
+    return _replay(long_first, short_first, steps, last, text_of.__getitem__)
+
+
+def _replay(
+    long_first: int,
+    short_first: int,
+    steps: list[tuple[int, bool]],
+    last: int,
+    text_of: Callable[[int], str],
+) -> tuple[str, list[int], list[int]]:
+    """The two parses from a derivation: the start (the longer first codeword and the
+    shorter one it begins with), the ``steps`` back from the end (a symbol added to
+    the lagging parse, and whether that parse then leads), and the ``last`` symbol."""
     ahead, behind = [long_first], [short_first]
     for sym, swapped in reversed(steps):
         behind.append(sym)
         if swapped:
             ahead, behind = behind, ahead
     behind.append(last)
-    bits = "".join(text_of[s] for s in ahead)
-    if bits != "".join(text_of[s] for s in behind):  # an internal invariant
+    bits = "".join(text_of(s) for s in ahead)
+    if bits != "".join(text_of(s) for s in behind):  # an internal invariant
         raise RuntimeError(f"Sardinas–Patterson rebuild gave unequal parses {ahead} {behind}")
     first, second = (ahead, behind) if ahead[0] == short_first else (behind, ahead)
     return bits, first, second
@@ -154,11 +194,10 @@ def assert_uniquely_decodable(code: CodeLike, limit: int = SP_SUFFIX_LIMIT) -> N
     if found is None:
         return
     bits, parse_a, parse_b = found
-    texts = cb._texts()
 
     def shown(parse: list[int]) -> str:
         symbols = ", ".join(show(cb._key(i)) for i in parse)
-        return f"[{symbols}] = " + "·".join(repr(texts[i]) for i in parse)
+        return f"[{symbols}] = " + "·".join(repr(_text_of(cb, i)) for i in parse)
 
     raise AmbiguousCode(
         f"codebook {cb.name!r} is not uniquely decodable: the bit string {bits!r} "

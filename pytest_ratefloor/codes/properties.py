@@ -81,6 +81,10 @@ def prefix_witness(code: CodeLike) -> Witness | None:
     top = cb.max_length
     keys = values << (top - lengths).astype(np.uint64)
     # entries are stored in symbol order, so ties by position are ties by symbol
+    index_bits = max(1, (n - 1).bit_length())
+    length_bits = top.bit_length()
+    if top + length_bits + index_bits <= 64:  # key, length, position in one uint64
+        return _packed_witness(cb, keys, length_bits, index_bits)
     if top <= 57:  # key and length fit one uint64 sort key (stable: ties by symbol)
         order = np.argsort((keys << np.uint64(7)) | lengths.astype(np.uint64), kind="stable")
     else:
@@ -92,11 +96,39 @@ def prefix_witness(code: CodeLike) -> Witness | None:
     if not bool(hit.any()):
         return None
     k = int(np.argmax(hit))
-    ia, ib = int(a[k]), int(b[k])
+    return _witness_pair(cb, int(a[k]), int(b[k]))
+
+
+def _witness_pair(cb: Codebook[Any], ia: int, ib: int) -> Witness:
     return (
-        (cb._key(ia), _word_text(cb._pyvalues[ia], int(lengths[ia]))),
-        (cb._key(ib), _word_text(cb._pyvalues[ib], int(lengths[ib]))),
+        (cb._key(ia), _word_text(cb._value(ia), int(cb._lengths[ia]))),
+        (cb._key(ib), _word_text(cb._value(ib), int(cb._lengths[ib]))),
     )
+
+
+def _packed_witness(
+    cb: Codebook[Any], keys: npt.NDArray[np.uint64], length_bits: int, index_bits: int
+) -> Witness | None:
+    """:func:`prefix_witness` with one plain sort of (left-aligned word, length,
+    position) packed in a uint64. In that order ``a`` comes right before ``b`` with
+    ``ka <= kb``, and ``a`` is a prefix of (or equal to) ``b`` exactly when ``kb``
+    lies in the span of ``a``: ``kb - ka < 2**(top - la)``."""
+    low = np.uint64(index_bits)
+    packed = (
+        (keys << np.uint64(length_bits + index_bits))
+        | (cb._lengths.astype(np.uint64) << low)
+        | np.arange(len(cb), dtype=np.uint64)
+    )
+    packed.sort()
+    key = packed >> np.uint64(length_bits + index_bits)
+    length = (packed >> low) & np.uint64((1 << length_bits) - 1)
+    span = np.left_shift(np.uint64(1), np.uint64(cb.max_length) - length[:-1])
+    hit = np.flatnonzero((key[1:] - key[:-1]) < span)
+    if hit.size == 0:
+        return None
+    k = int(hit[0])
+    position = np.uint64((1 << index_bits) - 1)
+    return _witness_pair(cb, int(packed[k] & position), int(packed[k + 1] & position))
 
 
 def _prefix_witness_text(cb: Codebook[Any]) -> Witness | None:
@@ -287,7 +319,7 @@ def _canonical_mismatch(cb: Codebook[Any]) -> tuple[Any, str, str | None] | None
             return None
         want, ln, i = exact[first], int(lens[first]), int(order[first])
     expected = _word_text(want, ln) if want < (1 << ln) else None
-    return cb._key(i), _word_text(cb._pyvalues[i], ln), expected
+    return cb._key(i), _word_text(cb._value(i), ln), expected
 
 
 def is_canonical(code: CodeLike) -> bool:

@@ -31,6 +31,13 @@ _EXPORTS: dict[str, str] = {
     "assert_survives_corruption": "pytest_ratefloor.corruption",
     "Measurement": "pytest_ratefloor.measurement",
     "Floor": "pytest_ratefloor.floors",
+    # lossy codecs and checks
+    "LossyCodec": "pytest_ratefloor.lossy",
+    "LossyMeasurement": "pytest_ratefloor.lossy",
+    "measure_lossy": "pytest_ratefloor.lossy",
+    "assert_lossy": "pytest_ratefloor.lossy",
+    "assert_error_bound": "pytest_ratefloor.lossy",
+    "lossy_curve": "pytest_ratefloor.lossy",
     # the pytest side
     "gate": "pytest_ratefloor.harness",
     "RateFloorHarness": "pytest_ratefloor.harness",
@@ -47,6 +54,9 @@ _EXPORTS: dict[str, str] = {
     "RegressionFailure": "pytest_ratefloor.errors",
     "CorruptionFailure": "pytest_ratefloor.errors",
     "NewCaseFailure": "pytest_ratefloor.errors",
+    "LossyRateFailure": "pytest_ratefloor.errors",
+    "DistortionFailure": "pytest_ratefloor.errors",
+    "ErrorBoundFailure": "pytest_ratefloor.errors",
     "NoisyToleranceWarning": "pytest_ratefloor.errors",
     "LedgerError": "pytest_ratefloor.errors",
 }
@@ -95,6 +105,12 @@ if TYPE_CHECKING:  # pragma: no cover - for type checkers only
         CorruptionFailure as CorruptionFailure,
     )
     from pytest_ratefloor.errors import (
+        DistortionFailure as DistortionFailure,
+    )
+    from pytest_ratefloor.errors import (
+        ErrorBoundFailure as ErrorBoundFailure,
+    )
+    from pytest_ratefloor.errors import (
         ImpossibleRate as ImpossibleRate,
     )
     from pytest_ratefloor.errors import (
@@ -102,6 +118,9 @@ if TYPE_CHECKING:  # pragma: no cover - for type checkers only
     )
     from pytest_ratefloor.errors import (
         LedgerError as LedgerError,
+    )
+    from pytest_ratefloor.errors import (
+        LossyRateFailure as LossyRateFailure,
     )
     from pytest_ratefloor.errors import (
         NewCaseFailure as NewCaseFailure,
@@ -127,4 +146,10 @@ if TYPE_CHECKING:  # pragma: no cover - for type checkers only
     from pytest_ratefloor.floors import Floor as Floor
     from pytest_ratefloor.harness import RateFloorHarness as RateFloorHarness
     from pytest_ratefloor.harness import gate as gate
+    from pytest_ratefloor.lossy import LossyCodec as LossyCodec
+    from pytest_ratefloor.lossy import LossyMeasurement as LossyMeasurement
+    from pytest_ratefloor.lossy import assert_error_bound as assert_error_bound
+    from pytest_ratefloor.lossy import assert_lossy as assert_lossy
+    from pytest_ratefloor.lossy import lossy_curve as lossy_curve
+    from pytest_ratefloor.lossy import measure_lossy as measure_lossy
     from pytest_ratefloor.measurement import Measurement as Measurement

@@ -26,9 +26,10 @@ options (tolerance, floor, ...) over the gate's.
 from __future__ import annotations
 
 import dataclasses
+import math
 import sys
 from collections.abc import Callable, Iterable, Mapping
-from typing import TYPE_CHECKING, Any, cast
+from typing import TYPE_CHECKING, Any, cast, overload
 
 import pytest
 
@@ -36,6 +37,8 @@ from pytest_ratefloor import checks
 from pytest_ratefloor.checks import CheckOptions, CheckPlan, SaveDir, plan_for_case
 from pytest_ratefloor.codecs import as_codec
 from pytest_ratefloor.floors import DEFAULT_FLOOR, Floor
+from pytest_ratefloor.lossy.codec import LossyCodec
+from pytest_ratefloor.lossy.gating import LossyOptions, LossyPlan, run_lossy_check
 from pytest_ratefloor.measurement import Measurement, figure
 
 if TYPE_CHECKING:
@@ -49,7 +52,7 @@ __all__ = ["RateFloorHarness", "gate", "junit_properties"]
 
 def junit_properties(m: Measurement) -> list[tuple[str, str | int | float]]:
     """The ``(name, value)`` pairs a measurement contributes to JUnit XML."""
-    return [
+    out: list[tuple[str, str | int | float]] = [
         ("ratefloor.codec", str(m.codec)),
         ("ratefloor.source", str(m.source)),
         ("ratefloor.n", int(m.n)),
@@ -58,9 +61,17 @@ def junit_properties(m: Measurement) -> list[tuple[str, str | int | float]]:
         ("ratefloor.rate", figure(m.rate)),
         ("ratefloor.floor", str(m.floor)),
         ("ratefloor.floor_rate", figure(m.floor_rate)),
-        ("ratefloor.entropy", figure(m.entropy)),
-        ("ratefloor.efficiency", figure(m.efficiency)),
     ]
+    if math.isfinite(m.entropy):  # a real-valued source (lossy) has none
+        out.append(("ratefloor.entropy", figure(m.entropy)))
+    out.append(("ratefloor.efficiency", figure(m.efficiency)))
+    if m.distortion is not None:
+        out += [("ratefloor.distortion", figure(m.distortion)),
+                ("ratefloor.distortion_measure", str(m.distortion_measure)),
+                ("ratefloor.gap", figure(m.excess))]
+        if m.snr_db is not None and math.isfinite(m.snr_db):
+            out.append(("ratefloor.snr_db", figure(m.snr_db)))
+    return out
 
 
 class RateFloorHarness:
@@ -117,8 +128,28 @@ class RateFloorHarness:
         return checks.run_check(codec, source, plan, on_measurement=self._record,
                                 save_dir=self._save_dir)
 
-    def check(self, codec: Any, source: Source, **options: Unpack[CheckOptions]) -> Measurement:
+    def run_lossy(self, codec: LossyCodec, source: Any, plan: LossyPlan) -> Measurement:
+        """A lossy check with its options already validated (what ``gate()`` calls)."""
+        __tracebackhide__ = True
+        return run_lossy_check(codec, source, plan, on_measurement=self._record,
+                               default_isolate=self._isolate)
+
+    @overload
+    def check(self, codec: LossyCodec, source: Any, **options: Unpack[LossyOptions]
+              ) -> Measurement: ...
+
+    @overload
+    def check(self, codec: Any, source: Source, **options: Unpack[CheckOptions]
+              ) -> Measurement: ...
+
+    def check(self, codec: Any, source: Any, **options: Any) -> Measurement:
         """Round trip (sample and edge cases), rate within tolerance, recorded.
+
+        A :class:`~pytest_ratefloor.LossyCodec` is checked against the source's
+        rate–distortion function instead: its options are ``n``, ``seed``,
+        ``distortion``, ``max_gap``, ``max_distortion``, ``max_abs`` and
+        ``isolate`` (see :class:`~pytest_ratefloor.lossy.gating.LossyPlan`); the
+        ledger keeps its bits and its distortion.
 
         ``options`` are the :class:`~pytest_ratefloor.checks.CheckOptions`:
         ``n`` (default 100 000; a corpus file: all of it), ``seed`` (0), ``floor`` (``"sample"``),
@@ -138,7 +169,9 @@ class RateFloorHarness:
         (given without it they are a ``ValueError``). Returns the measurement.
         """
         __tracebackhide__ = True
-        return self.run(codec, source, CheckPlan(**options))
+        if isinstance(codec, LossyCodec):
+            return self.run_lossy(codec, source, LossyPlan.of(options))
+        return self.run(codec, source, CheckPlan(**cast("CheckOptions", options)))
 
     def measure(
         self,
@@ -157,10 +190,21 @@ class RateFloorHarness:
         return m
 
 
+@overload
+def gate(codec: LossyCodec, sources: Any = None, **options: Unpack[LossyOptions]
+         ) -> Callable[..., None]: ...
+
+
+@overload
+def gate(codec: Any,
+         sources: Source | Iterable[Source] | Mapping[Source, CheckOptions] | None = None,
+         **options: Unpack[CheckOptions]) -> Callable[..., None]: ...
+
+
 def gate(
     codec: Any,
-    sources: Source | Iterable[Source] | Mapping[Source, CheckOptions] | None = None,
-    **options: Unpack[CheckOptions],
+    sources: Any = None,
+    **options: Any,
 ) -> Callable[..., None]:
     """A test function that checks ``codec`` on every source (default: the standard suite).
 
@@ -170,7 +214,10 @@ def gate(
 
     ``options`` are those of :meth:`RateFloorHarness.check`
     (:class:`~pytest_ratefloor.checks.CheckOptions`; rules and costs in
-    :class:`~pytest_ratefloor.checks.CheckPlan`) and apply to every source.
+    :class:`~pytest_ratefloor.checks.CheckPlan`) and apply to every source; for a
+    :class:`~pytest_ratefloor.LossyCodec` they are those of a lossy check
+    (:class:`~pytest_ratefloor.lossy.gating.LossyPlan`: ``n``, ``seed``,
+    ``distortion``, ``max_gap``, ``max_distortion``, ``max_abs``, ``isolate``).
 
     ``sources`` is an iterable of sources, or a mapping from each source to
     its own options, which are merged over the gate's::
@@ -196,8 +243,11 @@ def gate(
     mapping (``TypeError``), or a bad value. Test ids are the source specs
     either way.
     """
-    as_codec(codec)
-    plan = CheckPlan(**options)
+    lossy = isinstance(codec, LossyCodec)
+    if not lossy:
+        as_codec(codec)
+    plan: CheckPlan | LossyPlan = (LossyPlan.of(options) if lossy
+                                   else CheckPlan(**cast("CheckOptions", options)))
     own: Mapping[Source, object] = {}
     if sources is None:
         from pytest_ratefloor.sources import standard_suite
@@ -215,19 +265,36 @@ def gate(
     for s in suite:
         if not isinstance(getattr(s, "spec", None), str):
             raise TypeError(f"gate sources must be reference sources, got {s!r}")
-    plans = {s.spec: plan_for_case(options, own[s], f"gate source {s.spec}") if s in own
-             else plan for s in suite}
+    plans: dict[str, CheckPlan | LossyPlan] = {
+        s.spec: (_lossy_plan_for_case(options, own[s], f"gate source {s.spec}") if lossy
+                 else plan_for_case(options, own[s], f"gate source {s.spec}"))
+        if s in own else plan for s in suite}
 
     @pytest.mark.parametrize("ratefloor_source", suite, ids=[s.spec for s in suite])
     def test_ratefloor_gate(ratefloor: RateFloorHarness, ratefloor_source: Source) -> None:
         __tracebackhide__ = True
-        ratefloor.run(codec, ratefloor_source, plans[ratefloor_source.spec])
+        case_plan = plans[ratefloor_source.spec]
+        if isinstance(case_plan, LossyPlan):
+            ratefloor.run_lossy(codec, ratefloor_source, case_plan)
+        else:
+            ratefloor.run(codec, ratefloor_source, case_plan)
 
     caller = sys._getframe(1)
     # pytest reports a test at its function's source; these tests are the user's gate() call
     test_ratefloor_gate.place_as = _anchor_at(  # type: ignore[attr-defined]
         caller.f_code.co_filename, caller.f_lineno)
     return test_ratefloor_gate
+
+
+def _lossy_plan_for_case(shared: Mapping[str, Any], own: object, where: str) -> LossyPlan:
+    """A lossy gate source's own options merged over the gate's (a source's own value
+    replaces the gate's of the same name)."""
+    if not isinstance(own, Mapping):
+        raise TypeError(f"{where}: options must be a mapping, got {own!r}")
+    for key in own:
+        if not isinstance(key, str):
+            raise TypeError(f"{where}: option names must be strings, got {key!r}")
+    return LossyPlan.of({**shared, **own}, where)
 
 
 def _anchor_at(filename: str, lineno: int) -> Callable[[], None]:

@@ -3,7 +3,8 @@
 :func:`plot_run` draws, for every case of a run, the excess over the floor the
 case actually used (rate − floor rate, bits/symbol), with the ledger's value
 beside it where the ledger has the case; regressions have a colour of their own.
-A second panel shows the Bernoulli cases against p on a log axis.
+A second panel shows the Bernoulli cases against p on a log axis; lossy cases
+add a row of rate–distortion panels (:mod:`pytest_ratefloor.rd_plot`).
 :func:`plot_history` draws each case's efficiency release by release (the data
 of ``ratefloor history``).
 
@@ -29,6 +30,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING
 
 from pytest_ratefloor.escaping import plot_text
+from pytest_ratefloor.rd_plot import RD_PANEL_LIMIT, draw_rd_panels, rd_series
 from pytest_ratefloor.verdicts import Comparison, compare
 
 if TYPE_CHECKING:
@@ -184,13 +186,21 @@ def build_run_figure(rows: Sequence[Comparison], title: str | None = None, *,
     others: list[str] = []
     marker_of = {pt.floor: _floor_marker(pt.floor, others) for pt in points}
 
-    height = min(3.0 + 0.22 * len(points), 30.0)
-    fig = Figure(figsize=(13.0 if bern else 8.5, max(height, 5.0)))
+    lossy = rd_series(rows)
+    height = max(min(3.0 + 0.22 * len(points), 30.0), 5.0)
+    rd_height = 4.2 if lossy else 0.0
+    fig = Figure(figsize=(13.0 if bern or len(lossy) > 1 else 8.5, height + rd_height))
     FigureCanvasAgg(fig)
-    if bern:
-        ax, bax = fig.subplots(1, 2, gridspec_kw={"width_ratios": (3, 2)})
-    else:
-        ax, bax = fig.subplots(1, 1), None
+    grid = fig.add_gridspec(2 if lossy else 1, 2 if bern else 1,
+                            height_ratios=(height, rd_height) if lossy else None,
+                            width_ratios=(3, 2) if bern else None)
+    ax = fig.add_subplot(grid[0, 0])
+    bax = fig.add_subplot(grid[0, 1]) if bern else None
+    if lossy:
+        shown = min(len(lossy), RD_PANEL_LIMIT)
+        bottom = grid[1, :].subgridspec(1, shown)
+        draw_rd_panels([fig.add_subplot(bottom[0, i]) for i in range(shown)], lossy,
+                       colour_of, REGRESSION_COLOUR)
 
     _draw_run_rows(ax, points, colour_of, marker_of)
 

@@ -312,9 +312,11 @@ def rate_verdict(
     margin = impossible_margin(m.bits)
     where = f"{m.source} (n={m.n}, seed={m.seed})"
     if m.sample_information is not None and m.bits < m.sample_information - margin:
+        below = m.sample_information - m.bits
         return ImpossibleRate(
-            f"codec {m.codec!r} reports an impossible length on {where}: {m.bits} bits, "
-            f"but the sample's self-information is {m.sample_information:.1f} bits\n"
+            f"{below:,.0f} bits below the sample's information: codec {m.codec!r} reports an "
+            f"impossible length on {where}: {m.bits:,} bits, but the sample's "
+            f"self-information is {m.sample_information:,.1f} bits\n"
             f"  no decodable code falls {margin:.0f} bits below it except with probability "
             f"2^-{IMPOSSIBLE_CONFIDENCE_BITS} (Kraft–McMillan; the decoder is told only n)\n"
             "  the decoder must be getting information from outside the stream (shared "
@@ -325,12 +327,16 @@ def rate_verdict(
     if m.bits <= allowed_bits:
         return None
     excess = m.rate - m.floor_rate
-    percent = f"{100.0 * excess / m.floor_rate:+.2f} %" if m.floor_rate > 0 else "n/a (floor 0)"
+    percent = f"{100.0 * excess / m.floor_rate:+.3f}%" if m.floor_rate > 0 else "n/a (floor 0)"
+    allowed_pct = (f"{100.0 * (allowed_bits - m.floor_bits) / m.floor_bits:+.3f}%"
+                   if m.floor_bits > 0 else f"+{allowed_bits - m.floor_bits:,.1f} bits")
+    headline = (f"{percent} over the {m.floor} floor (allowed {allowed_pct})"
+                if m.floor_rate > 0 else f"{excess:+.6f} bits/symbol over a zero floor")
     worst = _worst_codewords(codec, source) if codec is not None and source is not None else ""
     meaning = FLOORS.get(cast(Floor, m.floor), "")
     return RateFailure(
-        f"codec {m.codec!r} misses the {m.floor} floor on {where}\n"
-        f"  measured rate  {m.rate:.6f} bits/symbol ({m.bits} bits)\n"
+        f"{headline}: codec {m.codec!r} misses the {m.floor} floor on {where}\n"
+        f"  measured rate  {m.rate:.6f} bits/symbol ({m.bits:,} bits)\n"
         f"  floor          {m.floor_rate:.6f} bits/symbol ({m.floor}: {meaning})\n"
         f"  entropy        {m.entropy:.6f} bits/symbol\n"
         f"  allowed        {allowed_bits / m.n:.6f} bits/symbol (rel={rel_:g}, abs={abs_:g})\n"

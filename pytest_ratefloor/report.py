@@ -152,7 +152,7 @@ def delta_text(row: Comparison, short: bool = False) -> str:
     text = signed_pct(row.delta_pct) if short else \
         f"{row.delta_bits:+,} bits ({signed_pct(row.delta_pct)})"
     d_pct = row.delta_distortion_pct
-    if d_pct is not None:
+    if d_pct:  # a lossy case whose distortion moved
         text += f", D {signed_pct(d_pct)}"
     return f"{text} {row.status}"
 

@@ -150,6 +150,7 @@ class Comparison:
         new, old = self.current.distortion, self.baseline.distortion
         if new is None or old is None:
             return None
+        new = figure(new)  # as the ledger keeps it: last-digit noise is no change
         if old == 0.0:
             return 0.0 if new == 0.0 else math.inf
         return 100.0 * ((new - old) / old)

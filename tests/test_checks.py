@@ -276,7 +276,7 @@ def test_a_decoder_with_a_side_channel_is_impossible() -> None:
         assert_rate(SideChannel(lambda s: 0, name="cheat"), source, n=N)
     text = str(info.value)
     assert "codec 'cheat' reports an impossible length on bernoulli(p=0.5) (n=2000, seed=0)" in text
-    assert "0 bits, but the sample's self-information is 2000.0 bits" in text
+    assert "0 bits, but the sample's self-information is 2,000.0 bits" in text
     assert "33 bits below it" in text  # margin 32 + δ(1) = 33
 
 
@@ -325,11 +325,11 @@ def test_rate_failure_message() -> None:
     h = -(0.1 * math.log2(0.1) + 0.9 * math.log2(0.9))
     spread = math.sqrt(0.1 * 0.9 * math.log2(9) ** 2 / N)
     assert "codec 'zlib-9' misses the entropy floor on bernoulli(p=0.1) (n=2000, seed=2)" in text
-    assert f"measured rate  {m.rate:.6f} bits/symbol ({m.bits} bits)" in text
+    assert f"measured rate  {m.rate:.6f} bits/symbol ({m.bits:,} bits)" in text
     assert f"floor          {h:.6f} bits/symbol (entropy: n·H" in text
     assert f"entropy        {h:.6f}" in text
     assert f"allowed        {1.01 * h:.6f} bits/symbol (rel=0.01, abs=0)" in text
-    assert f"excess         {m.rate - h:+.6f} bits/symbol ({100 * (m.rate - h) / h:+.2f} %" in text
+    assert f"excess         {m.rate - h:+.6f} bits/symbol ({100 * (m.rate - h) / h:+.3f}%" in text
     assert f"sample spread  ±{spread:.6f} bits/symbol" in text
 
 

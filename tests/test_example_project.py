@@ -35,6 +35,13 @@ REGRESSED_ID = f"example_project/tests/test_rates.py::test_levels[{REGRESSED_SOU
 CORPUS_SOURCE = sources.corpus(EXAMPLE / "corpus" / "level_changes_one_day.u8",
                                symbol="zigzag-u8").spec
 CORPUS_ID = f"example_project/tests/test_rates.py::test_levels_day[{CORPUS_SOURCE}]"
+# ... and the lossy surge coder, which codes its quantizer indices with the same Rice coder:
+# its bits grow at the same distortion, which the ledger calls a regression (its gap to R(D)
+# stays inside the tolerance)
+SURGE_SPECS = (sources.gauss_markov(0.95, sigma=0.3).spec, sources.gaussian(0.3).spec)
+SURGE_IDS = [f"example_project/tests/test_rates.py::test_surge[{spec}]" for spec in SURGE_SPECS]
+SURGE_IDS.append(
+    f"example_project/tests/test_rates.py::test_surge_bounded[{SURGE_SPECS[0]}]")
 TIMEOUT = 300
 
 
@@ -88,24 +95,28 @@ def test_example_suite_passes_and_the_regression_switch_fails_its_cases(tmp_path
     assert "failed" not in counts, clean_out
     assert "ratefloor: measured rate against the floor" in clean_out
     report = (tmp_path / "clean" / "report.md").read_text()
-    for codec in ("kelpwick-seastate-huffman", "kelpwick-levels-rice", "kelpwick-faults-range"):
+    for codec in ("kelpwick-seastate-huffman", "kelpwick-levels-rice", "kelpwick-faults-range",
+                  "kelpwick-surge-dpcm"):
         assert codec in report
     assert (tmp_path / "clean" / "rates.png").stat().st_size > 0
 
-    # The regression run: exactly the two cases whose Rice parameter the switch changes
-    # fail, and they fail on the ledger.
+    # The regression run: exactly the cases whose Rice parameter the switch changes fail
+    # (two level-change cases and the surge coder's three), and they fail on the ledger.
     assert naive_rc == 1, naive_out
     failed = re.findall(r"^FAILED (\S+)", naive_out, flags=re.MULTILINE)
-    assert sorted(failed) == sorted([REGRESSED_ID, CORPUS_ID]), naive_out
+    assert sorted(failed) == sorted([REGRESSED_ID, CORPUS_ID, *SURGE_IDS]), naive_out
     assert re.search(
         r"RegressionFailure: \+\d+\.\d{3}% bits vs ledger \(\+[\d,]+ bits, slack 0%\): "
         + re.escape(f"codec 'kelpwick-levels-rice' on {REGRESSED_SOURCE}, n=100000, seed=0"),
         naive_out), naive_out
     assert "RateFailure" not in naive_out  # within the floor tolerance: only the ledger sees it
-    assert _outcomes(naive_out) == {"passed": counts["passed"] - 2, "failed": 2}, naive_out
+    failing = 2 + len(SURGE_IDS)
+    assert _outcomes(naive_out) == {"passed": counts["passed"] - failing, "failed": failing}, \
+        naive_out
 
 
 def test_committed_ledger_covers_every_codec_of_the_example() -> None:
     text = json.dumps(json.loads(LEDGER.read_text()))
-    for codec in ("kelpwick-seastate-huffman", "kelpwick-levels-rice", "kelpwick-faults-range"):
+    for codec in ("kelpwick-seastate-huffman", "kelpwick-levels-rice", "kelpwick-faults-range",
+                  "kelpwick-surge-dpcm", "kelpwick-surge-dpcm-bound-0.01"):
         assert codec in text

@@ -241,16 +241,17 @@ MISBEHAVIOURS = {
     "rate": (
         "codec = StreamCodec(lambda s: s.astype('u1').tobytes(), lambda d, n: list(d), "
         "name='bytewise')",
-        ["*RateFailure: codec 'bytewise' misses the sample floor on uniform(k=16) "
-         "(n=500, seed=0)",
-         "*measured rate  8.000000 bits/symbol (4000 bits)",
+        ["*RateFailure: +100.000% over the sample floor (allowed +1.000%): codec 'bytewise' "
+         "misses the sample floor on uniform(k=16) (n=500, seed=0)",
+         "*measured rate  8.000000 bits/symbol (4,000 bits)",
          "*floor          4.000000 bits/symbol (sample*",
-         "*excess         +4.000000 bits/symbol (+100.00 % over the floor)"],
+         "*excess         +4.000000 bits/symbol (+100.000% over the floor)"],
     ),
     "impossible": (
         "box = {}\ncodec = StreamCodec(lambda s: box.__setitem__(len(s), s.copy()) or b'', "
         "lambda d, n: box[n], name='psychic')",
-        ["*ImpossibleRate: codec 'psychic' reports an impossible length on uniform(k=16)*"],
+        ["*ImpossibleRate: 2,000 bits below the sample's information: codec 'psychic' reports "
+         "an impossible length on uniform(k=16)*"],
     ),
 }
 

@@ -166,4 +166,5 @@ def test_mypy_sees_the_installed_package_types(tmp_path: Path) -> None:
     assert any('Revealed type is "float"' in line and ":11:" in line for line in lines), lines
     (error,) = [line for line in lines if "error:" in line]
     assert ":12:" in error
-    assert "Literal['shannon']" in error
+    # a lossy codec has its own overload of check(): mypy names the call, not the literal
+    assert "Literal['shannon']" in error or 'No overload variant of "check"' in error

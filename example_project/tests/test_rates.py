@@ -10,9 +10,16 @@ from __future__ import annotations
 from pathlib import Path
 
 import numpy as np
-from pytest_ratefloor import StreamCodec, assert_kraft, assert_prefix_free, gate, sources
+from pytest_ratefloor import (
+    LossyCodec,
+    StreamCodec,
+    assert_kraft,
+    assert_prefix_free,
+    gate,
+    sources,
+)
 
-from kelpwick import faults, levels, seastate
+from kelpwick import faults, levels, seastate, surge
 
 SEASTATE = StreamCodec(seastate.encode, seastate.decode, name=seastate.NAME,
                        version=seastate.VERSION)
@@ -116,3 +123,19 @@ def test_seastate_table_on_air_is_a_complete_prefix_code() -> None:
     table = seastate.shipped_table(message)
     assert_prefix_free(table, max_length=seastate.MAX_LENGTH, canonical=True)
     assert_kraft(table, complete=True, max_length=seastate.MAX_LENGTH)
+
+# Surge residuals (lossy): a closed-loop DPCM quantizer with the Rice coder behind it,
+# held to R(D) of a Gauss–Markov model of the residual (rho = 0.95, sigma = 0.3 m) under
+# mean-squared error. At fine steps a uniform quantizer with an ideal entropy coder sits
+# 0.254 bits/sample above R(D) (Gish & Pierce 1968, from memory); the Rice code of the
+# quantizer indices adds about 0.13, so 0.5 bits/sample is allowed. R(D) of a model
+# source says nothing certain about the real residuals of the gauges.
+SURGE_SOURCE = sources.gauss_markov(0.95, sigma=0.3)
+SURGE = LossyCodec(surge.encode, surge.decode, name=surge.NAME, version=surge.VERSION)
+test_surge = gate(SURGE, sources=[SURGE_SOURCE, sources.gaussian(0.3)], max_gap=0.5)
+
+# The error-bounded mode: every residual within 1 cm of the truth, whatever the sample.
+SURGE_STEP, SURGE_BOUNDED_NAME = surge.for_error_bound(0.01)
+SURGE_BOUNDED = LossyCodec(lambda x: surge.encode(x, SURGE_STEP), surge.decode,
+                           name=SURGE_BOUNDED_NAME, version=surge.VERSION)
+test_surge_bounded = gate(SURGE_BOUNDED, sources=[SURGE_SOURCE], max_gap=0.5, max_abs=0.01)

@@ -20,6 +20,8 @@ own module:
 ``summed``             Zipf, Poisson, categorical (entropy as a sum)
 ``chains``             Markov chains and the chain sampler
 ``empirical``          data-fitted order-k context models, :func:`from_file`
+``continuous``         real-valued sources with a known R(D): Gaussian,
+                       Laplacian, Gauss–Markov (not :class:`Source`: no entropy)
 =====================  ======================================================
 
 Entropies are exact closed forms where they exist (uniform, Bernoulli,
@@ -48,6 +50,7 @@ from pytest_ratefloor.sources.closed_form import (
     binary_entropy as binary_entropy,  # for the report's plot; not in __all__
 )
 from pytest_ratefloor.sources.composite import Piecewise, RandomWalk
+from pytest_ratefloor.sources.continuous import ContinuousSource, Gaussian, GaussMarkov, Laplacian
 from pytest_ratefloor.sources.corpora import MAX_CORPUS_BYTES, Corpus
 from pytest_ratefloor.sources.corpora import corpus as _corpus
 from pytest_ratefloor.sources.corpora import corpus_files as _corpus_files
@@ -57,9 +60,13 @@ from pytest_ratefloor.sources.summed import Categorical, Poisson, Zipf
 __all__ = [
     "Bernoulli",
     "Categorical",
+    "ContinuousSource",
     "Corpus",
     "Empirical",
+    "GaussMarkov",
+    "Gaussian",
     "Geometric",
+    "Laplacian",
     "Markov",
     "Piecewise",
     "Poisson",
@@ -74,7 +81,10 @@ __all__ = [
     "corpus_files",
     "empirical",
     "from_file",
+    "gauss_markov",
+    "gaussian",
     "geometric",
+    "laplacian",
     "markov",
     "piecewise",
     "poisson",
@@ -175,6 +185,28 @@ def piecewise(pieces: Sequence[tuple[Source, int]], repeat: bool = True) -> Piec
     source. See :class:`Piecewise`.
     """
     return Piecewise(pieces, repeat)
+
+
+def gaussian(sigma: float = 1.0) -> Gaussian:
+    """Independent real samples N(0, σ²); with MSE, R(D) = max(0, ½ log2(σ²/D))."""
+    return Gaussian(sigma)
+
+
+def laplacian(scale: float = 1.0) -> Laplacian:
+    """Independent real samples of density e^(−|x|/b)/(2b), b = ``scale``.
+
+    With absolute error, R(D) = log2(b/D) for D <= b, else 0 (Berger 1971).
+    """
+    return Laplacian(scale)
+
+
+def gauss_markov(rho: float, sigma: float = 1.0) -> GaussMarkov:
+    """Stationary AR(1): X_t = ρ X_{t-1} + sqrt(1−ρ²) σ W_t, |ρ| < 1, X_0 ~ N(0, σ²).
+
+    With MSE, R(D) by reverse water-filling over its power spectrum; for
+    D <= σ²(1−|ρ|)/(1+|ρ|) it is ½ log2(σ²(1−ρ²)/D).
+    """
+    return GaussMarkov(rho, sigma)
 
 
 def standard_suite() -> list[Source]:

@@ -226,10 +226,13 @@ def floor_kind(m: Measurement) -> str:
     return "R(D)" if m.lossy else terminal_text(m.floor or "entropy")
 
 
-def distortion_text(m: Measurement) -> str:
-    """A lossy case's distortion and measure (``0.0123 mse``), ``–`` for a lossless one."""
+def distortion_text(m: Measurement, with_measure: bool = False) -> str:
+    """A lossy case's mean distortion (``0.0123``; ``with_measure``: ``0.0123 mse``), ``–``
+    for a lossless one."""
     if m.distortion is None:
         return "–"
+    if not with_measure:
+        return f"{m.distortion:.3g}"
     return f"{m.distortion:.4g} {terminal_text(m.distortion_measure or '')}".rstrip()
 
 
@@ -254,7 +257,7 @@ def _compact_table(rows: Sequence[Comparison], width: int | None) -> list[Line]:
     lossy = any(r.case.lossy for r in rows)
     header = ["source", *(["n"] if need_n else []), *(["seed"] if need_seed else []),
               "H", "floor", "kind", "rate", *(["D"] if lossy else []), "eff.", "vs. ledger"]
-    numeric = {"n", "seed", "H", "floor", "rate", "eff."}
+    numeric = {"n", "seed", "H", "floor", "rate", "D", "eff."}
 
     def cells(r: Comparison, source_width: int | None) -> list[str]:
         m = r.case
@@ -313,7 +316,8 @@ def _verbose_table(rows: Sequence[Comparison]) -> list[Line]:
             _codec_title(r), terminal_text(m.source), f"{m.n:,}", str(m.seed),
             terminal_text(m.layout) if m.layout else "–", figure_text(m.entropy),
             figure_text(m.floor_rate), floor_kind(m), figure_text(m.rate),
-            *([distortion_text(m), figure_text(m.snr_db, 2)] if lossy else []),
+            *([distortion_text(m, with_measure=True), figure_text(m.snr_db, 2)] if lossy
+              else []),
             percent_text(m.efficiency), f"{m.bits:,}",
             "–" if r.ledger_bits is None else f"{r.ledger_bits:,}", figure_text(m.excess),
             figure_text(m.detectable_excess), figure_text(m.encode_seconds, 3),

@@ -106,12 +106,13 @@ def test_summary_and_report_show_distortion_and_snr(tmp_path: Path) -> None:
                                 "ledger"]
     case = lines[2]
     assert "R(D)" in case
-    assert "0.0625 mse" in case
+    assert " 0.0625 " in case
     assert " – " in case  # no entropy for a real-valued source
     verbose = "\n".join(line.text for line in summary.summary_lines(
         [row], report.RunOutcome(), verbose=True))
     # SNR = 10 log10(1 / 0.0625) = 12.04 dB (closed form)
     assert "12.04" in verbose
+    assert "0.0625 mse" in verbose
     md = report.markdown_report([row], report.RunOutcome(ledger_path=tmp_path / "l.json"))
     assert "| distortion | SNR (dB) |" in md
     assert "0.0625 (`mse`) | 12.04 |" in md

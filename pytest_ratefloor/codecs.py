@@ -150,7 +150,8 @@ def _converted(value: object, n: int) -> np.ndarray:
         raise PluginMemoryError(f"converting the decoder's {n} symbols to int64") from exc
 
 
-def _callable_name(fn: Callable[..., Any]) -> str:
+def callable_name(fn: Callable[..., Any]) -> str:
+    """The default name of a codec: its encoder's qualified name (``module.func``)."""
     module = getattr(fn, "__module__", None)
     qual = getattr(fn, "__qualname__", None) or getattr(fn, "__name__", None)
     if qual is None:
@@ -158,11 +159,13 @@ def _callable_name(fn: Callable[..., Any]) -> str:
     return f"{module}.{qual}" if module and module != "builtins" else str(qual)
 
 
-def _check_name(name: object, parameter: str = "name") -> str:
+def check_name(name: object, parameter: str = "name") -> str:
+    """A codec's name: non-empty text (``TypeError``/``ValueError`` naming it otherwise)."""
     return validation.text(name, f"codec {parameter}")
 
 
-def _check_version(version: object) -> str | None:
+def check_version(version: object) -> str | None:
+    """A codec's version: a string or ``None`` (``TypeError`` naming it otherwise)."""
     if version is not None and not isinstance(version, str):
         raise TypeError(validation.message("codec version", "a string or None", version))
     return version
@@ -190,8 +193,8 @@ class StreamCodec:
         validation.function(decode, "StreamCodec decode")
         self._encode = encode
         self._decode = decode
-        self.name = _check_name(name if name is not None else _callable_name(encode))
-        self.version = _check_version(version)
+        self.name = check_name(name if name is not None else callable_name(encode))
+        self.version = check_version(version)
         self.symbols: list[int] | None = None
 
     def __repr__(self) -> str:
@@ -256,8 +259,8 @@ class ByteCodec:
         self._compress = compress
         self._decompress = decompress
         self.pass_n = validation.flag(pass_n, "ByteCodec pass_n")
-        self.name = _check_name(name if name is not None else _callable_name(compress))
-        self.version = _check_version(version)
+        self.name = check_name(name if name is not None else callable_name(compress))
+        self.version = check_version(version)
         self.symbols: list[int] | None = None
         self.symbol = symbol
         # Set by for_source when the source's declared range fits the layout:
@@ -385,7 +388,7 @@ class CodebookCodec:
 
     def __init__(self, codebook: Any) -> None:
         self.codebook = codebook
-        self.name = _check_name(getattr(codebook, "name", None) or "codebook")
+        self.name = check_name(getattr(codebook, "name", None) or "codebook")
         self.version: str | None = getattr(codebook, "version", None)
         self.symbols: list[int] | None = [int(s) for s in codebook.sample_symbols()]
 

@@ -83,7 +83,7 @@ from typing import TYPE_CHECKING, Literal, get_args
 import numpy as np
 
 from pytest_ratefloor import validation
-from pytest_ratefloor.codecs import Encoded, ReplayCall, _check_name, _check_version
+from pytest_ratefloor.codecs import Encoded, ReplayCall, check_name, check_version
 from pytest_ratefloor.errors import CodecContractError, CommandError, LayoutError
 from pytest_ratefloor.layouts import AUTO, LAYOUTS, pack, packed_size, resolve_layout, unpack
 
@@ -404,8 +404,8 @@ class CommandCodec:
         self.timeout = validation.real(timeout, "timeout", minimum=0.0, low_open=True,
                                        where=_WHERE)
         self.stderr: StderrPolicy = _stderr_policy(stderr)
-        self.name = _check_name(name if name is not None else _short(self._encode_argv))
-        self.version = _check_version(version)
+        self.name = check_name(name if name is not None else _short(self._encode_argv))
+        self.version = check_version(version)
         self.symbols: list[int] | None = None
         # Set by for_source when the source's declared range fits the layout:
         # its samples then need no range scan.

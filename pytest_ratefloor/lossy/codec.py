@@ -27,6 +27,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from pytest_ratefloor import validation
+from pytest_ratefloor.codecs import callable_name, check_name, check_version
 from pytest_ratefloor.errors import CodecContractError, CodecMisbehaviour
 from pytest_ratefloor.isolation import step
 from pytest_ratefloor.streams import Encoded, encoded_from_stream, symbols_from_decoder, type_name
@@ -38,14 +39,6 @@ __all__ = ["CONTRACT_SLICE", "LossyCodec", "LossyRun", "reconstruction_array", "
 
 #: Samples of the slice on which mutation and determinism are checked.
 CONTRACT_SLICE = 4096
-
-
-def _callable_name(fn: Callable[..., Any]) -> str:
-    module = getattr(fn, "__module__", None)
-    qual = getattr(fn, "__qualname__", None) or getattr(fn, "__name__", None)
-    if qual is None:
-        return type_name(fn)
-    return f"{module}.{qual}" if module and module != "builtins" else str(qual)
 
 
 class LossyCodec:
@@ -69,11 +62,8 @@ class LossyCodec:
         validation.function(decode, "LossyCodec decode")
         self._encode = encode
         self._decode = decode
-        chosen = name if name is not None else _callable_name(encode)
-        self.name = validation.text(chosen, "codec name")
-        if version is not None and not isinstance(version, str):
-            raise TypeError(validation.message("codec version", "a string or None", version))
-        self.version = version
+        self.name = check_name(name if name is not None else callable_name(encode))
+        self.version = check_version(version)
 
     def __repr__(self) -> str:
         return f"LossyCodec(name={self.name!r}, version={self.version!r})"

@@ -59,6 +59,7 @@ _EXPORTS: dict[str, str] = {
     "ErrorBoundFailure": "pytest_ratefloor.errors",
     "NoisyToleranceWarning": "pytest_ratefloor.errors",
     "LedgerError": "pytest_ratefloor.errors",
+    "PluginMemoryError": "pytest_ratefloor.errors",
 }
 
 __all__ = ["__version__", *_EXPORTS]
@@ -118,6 +119,9 @@ if TYPE_CHECKING:  # pragma: no cover - for type checkers only
     )
     from pytest_ratefloor.errors import (
         LedgerError as LedgerError,
+    )
+    from pytest_ratefloor.errors import (
+        PluginMemoryError as PluginMemoryError,
     )
     from pytest_ratefloor.errors import (
         LossyRateFailure as LossyRateFailure,

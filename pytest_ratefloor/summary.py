@@ -37,6 +37,7 @@ from __future__ import annotations
 
 import math
 import os
+import textwrap
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -60,6 +61,7 @@ __all__ = [
     "Line",
     "ordered",
     "recorded_text",
+    "fitted",
     "shorten",
     "summary_lines",
 ]
@@ -386,4 +388,28 @@ def summary_lines(rows: Sequence[Comparison], outcome: RunOutcome, verbose: bool
     lines += [Line(f"ERROR: {terminal_text(str(p))}", "red") for p in outcome.problems]
     if shown and not very_quiet:
         lines.append(Line(CAUTION))
-    return lines
+    # -v prints every line whole, whatever the width (a log to search); compact fits
+    return lines if width is None or verbose else fitted(lines, width)
+
+
+def fitted(lines: Sequence[Line], width: int) -> list[Line]:
+    """Every line in at most ``width`` characters. A longer ``what: figures`` line is broken
+    after its last ``": "`` when both parts then fit (the tally keeps its counts on one
+    line); any other is wrapped at spaces (a word longer than the width, such as a path,
+    is cut). Continuations are indented by two more spaces; each piece keeps the line's
+    colour."""
+    out: list[Line] = []
+    for line in lines:
+        if len(line.text) <= width:
+            out.append(line)
+            continue
+        indent = " " * (len(line.text) - len(line.text.lstrip(" ")) + 2)
+        head, _, rest = line.text.rpartition(": ")
+        if head and len(head) + 1 <= width and len(indent) + len(rest) <= width:
+            # "what: figures": the figures whole on a line of their own
+            out += [Line(head + ":", line.colour), Line(indent + rest, line.colour)]
+            continue
+        pieces = textwrap.wrap(line.text, width=max(width, len(indent) + 10),
+                               subsequent_indent=indent, break_on_hyphens=False)
+        out += [Line(piece, line.colour) for piece in pieces]
+    return out

@@ -66,11 +66,20 @@ def test_gate_records_bits_and_distortion_and_fails_worse_distortion(
     # uniform quantization noise at step 0.1: D ≈ step²/12 (common practice)
     assert gauss["distortion"] == pytest.approx(0.01 / 12, rel=0.05)
     assert cases["laplacian(scale=1.0)"]["distortion_measure"] == "abs"
-    # the same bits at a worse distortion: the ledger fails both tests
-    (pytester.path / "step.txt").write_text("0.1000001")
+    # a rerun: both cases as recorded
+    result = pytester.runpytest(*INNER)
+    result.assert_outcomes(passed=2)
+    result.stdout.fnmatch_lines(["*0 regressed, 0 improved, 0 new, 2*"])
+    # a finer step: the same bits at less distortion is an improvement
+    (pytester.path / "step.txt").write_text("0.09")
+    result = pytester.runpytest(*INNER)
+    result.assert_outcomes(passed=2)
+    result.stdout.fnmatch_lines(["*0 regressed, 2 improved, 0 new, 0*"])
+    # a coarser step: the same bits at a worse distortion fails both tests on the ledger
+    (pytester.path / "step.txt").write_text("0.11")
     result = pytester.runpytest(*INNER, "--junitxml=j.xml")
     result.assert_outcomes(failed=2)
-    result.stdout.fnmatch_lines(["*+0.000% bits, +0.000*% distortion vs ledger*"])
+    result.stdout.fnmatch_lines(["*RegressionFailure: +0.000% bits, +*% distortion vs ledger*"])
     root = ET.parse(pytester.path / "j.xml").getroot()
     props = {p.get("name"): p.get("value") for p in root.iter("property")}
     assert props["ratefloor.distortion_measure"] in ("mse", "abs")

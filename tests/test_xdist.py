@@ -61,7 +61,7 @@ def test_two_workers_write_the_same_ledger_as_one_process(pytester: pytest.Pytes
     set_pad(pytester, "beta", 1)
     result = pytester.runpytest(*INNER, "-n", "2")
     result.assert_outcomes(passed=4, failed=3)
-    result.stdout.fnmatch_lines(["*3 regressed, 0 improved, 0 new, 4 unchanged*"])
+    assert "3 regressed, 0 improved, 0 new, 4 unchanged" in " ".join(result.stdout.str().split())
     assert ledger.read_bytes() == one
 
 
@@ -72,9 +72,10 @@ def test_lost_worker_payload_fails_the_run(pytester: pytest.Pytester) -> None:
     result.assert_outcomes(passed=7)  # every test passed ...
     assert result.ret == pytest.ExitCode.TESTS_FAILED  # ... but the run fails
     result.stdout.fnmatch_lines([
-        "ERROR: xdist worker(s) gw* went down without sending their measurements*",
-        "ERROR: ledger * not written*",
+        "ERROR: xdist worker(s) gw* went down without*",
+        "ERROR: ledger *",
     ])
+    assert "not written" in " ".join(result.stdout.str().split())
     assert not ledger.exists()
 
 

@@ -31,15 +31,30 @@ step per symbol:
 
 Every step is the same integer lookup as the loop's ``bisect_right``, so the
 symbols are the same, word for word (``tests/test_sampling_speed_paths.py``
-compares the two). Chains whose table ``G`` would be too large (many states
-times many distinct thresholds) use the loop.
+compares the two).
+
+Chains whose table ``G`` would be too large (many states times many distinct
+thresholds: an order-2 model of a file has up to 65,536 contexts) step
+through a *per-state guide* instead (:meth:`_ChainSampler._build_guide`): all
+states' thresholds lie in one flat array, state after state; a word's top
+``h`` bits name one of ``2**h`` cells, and ``guide[s * 2**h + cell]`` is the
+first row of state ``s`` whose threshold is not below the cell's start. The
+step is then ``row = guide[s, cell(u)]`` followed by ``R`` comparisons
+``row += T[row] <= u`` (exact when the cell holds at most ``R`` of the
+state's thresholds; the rare crowded cells are marked and bisected), and
+``next = N[row]``: about ten array operations per lockstep step, whatever
+the number of states. The chunks, warm-up and repair are the same. Chains
+that forget their start slowly (random bytes of order 2: two paths fed the
+same words typically meet only after thousands of words) are caught by the
+repair and sampled by the loop from then on. Chains too large even for the
+guide use the loop.
 """
 
 from __future__ import annotations
 
 import heapq
 from bisect import bisect_right
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 
 import numpy as np
 
@@ -52,8 +67,19 @@ from pytest_ratefloor.sources.sampling import (
     _top16,
 )
 
-#: Most entries (states × classes) the lockstep table may hold; above it the loop is used.
+#: Most entries (states × classes) the lockstep table may hold; above it the per-state guide.
 _TABLE_ENTRIES = 1 << 21
+#: Most entries (states × cells, an int32 each) of the per-state guide; above it the loop.
+_GUIDE_ENTRIES = 1 << 22
+#: Most bits of a word that name its guide cell.
+_GUIDE_BITS = 12
+#: Most comparisons after the guide lookup; cells that need more are bisected.
+_REFINE = 4
+#: Share of crowded (bisected) guide cells that is acceptable when choosing the comparisons.
+_CROWDED = 1e-4
+#: Largest raw word; a block holding it is drawn by the loop on the guide path (the
+#: flat threshold array marks each state's end with it, so it must never be compared).
+_TOP_WORD = np.uint64(_WORD - 1)
 #: Chunks stepped together, and the longest chunk (a block is at most their product).
 _CHUNKS = 4001  # not a power of two: transposes of (chunks × length) arrays stay cache-friendly
 _LENGTH = 250
@@ -107,6 +133,12 @@ class _ChainSampler:
         self._table = np.zeros(0, dtype=np.int32)
         self._keys = np.zeros(0, dtype=np.int32)
         self._table_list: list[int] | None = None  # the table as Python ints, for the steps
+        # the per-state guide (many states): states are kept as s << _shift in the paths
+        self._shift = 0
+        self._guide = np.zeros(0, dtype=np.int32)
+        self._flat = np.zeros(0, dtype=np.uint64)  # every state's thresholds, then 2**64 - 1
+        self._refine = 0
+        self._slow = False  # the chain forgets too slowly for the lockstep path: the loop
 
     # ------------------------------------------------------------------
     # the loop: one word, one bisection
@@ -143,14 +175,19 @@ class _ChainSampler:
     # the lockstep path
 
     def _build(self) -> None:
-        """The merged classes and the step table ``G[m * S + s]`` (or none if too large)."""
+        """The merged classes and the step table ``G[m * S + s]``, else the per-state guide."""
         self._built = True
         states = len(self.begin)
+        widest = max(b - a for a, b in zip(self.begin, self.last))  # a state's rows, minus one
+        if states * (widest + 1) > _TABLE_ENTRIES:  # more classes than that: no table
+            self._build_guide()
+            return
         reachable = np.array([t for t in self.thresholds if t < _WORD], dtype=np.uint64)
         merged = np.unique(reachable)  # every state's thresholds below 2**64, merged
         classes = merged.size + 1
         if states * classes > _TABLE_ENTRIES or merged.size > _POSITIONAL_MAX:
-            return  # too large for the table (or for a 16-bit guide of the classes): the loop
+            self._build_guide()  # too large for the table (or for a 16-bit guide of the classes)
+            return
         # class m holds the words in [lower_m, next lower); lower_0 = 0
         lower_array = np.concatenate([np.zeros(1, dtype=np.uint64), merged])
         table = np.empty((classes, states), dtype=np.int32)
@@ -170,13 +207,78 @@ class _ChainSampler:
         split = guide == self._classes._sentinel
         self._keys = np.where(split, -1, guide * states).astype(np.int32)
 
+    def _build_guide(self) -> None:
+        """The per-state guide (module docstring); none if it would exceed ``_GUIDE_ENTRIES``.
+
+        ``guide[s << h | c]``: the first row of state ``s`` whose threshold is
+        at least ``c << (64 - h)``, or -1 if cell ``c`` holds more than
+        ``R`` of the state's thresholds (``R`` the fewest comparisons, at most
+        ``_REFINE``, that leave at most a ``_CROWDED`` share of cells crowded).
+        ``N[row]``: the next state of a row, shifted left by ``h``.
+        """
+        states, rows = len(self.begin), len(self.thresholds)
+        bits = _GUIDE_BITS
+        while bits > 1 and states << bits > _GUIDE_ENTRIES:
+            bits -= 1
+        if states << bits > _GUIDE_ENTRIES:
+            return  # the loop
+        cells = 1 << bits
+        flat = np.fromiter(
+            (t if t < _WORD else _WORD - 1 for t in self.thresholds), dtype=np.uint64, count=rows
+        )
+        sizes = np.asarray(self.last, dtype=np.int64) - np.asarray(self.begin, dtype=np.int64) + 1
+        owner = np.repeat(np.arange(states, dtype=np.int64), sizes)
+        # the key of a row: its state's cells, then its threshold's cell (non-decreasing)
+        key = (owner << bits) + (flat >> np.uint64(64 - bits)).astype(np.int64)
+        counts = np.bincount(key, minlength=states << bits)
+        counts[cells - 1 :: cells] -= 1  # each state's end mark is not a threshold
+        refine = _REFINE
+        for r in range(1, _REFINE):
+            if np.count_nonzero(counts > r) <= _CROWDED * counts.size:
+                refine = r
+                break
+        crowded = counts > refine
+        counts[cells - 1 :: cells] += 1
+        guide = np.cumsum(counts)
+        guide -= counts  # rows before the cell: of earlier states, and of this one below it
+        guide[crowded] = -1
+        self._guide = guide.astype(np.int32)
+        self._flat = flat
+        self._refine = refine
+        self._shift = bits
+        self._table = (np.asarray(self.next, dtype=np.int32) << bits).astype(np.int32)
+
+    def _step_guide(
+        self, cells: np.ndarray, words: np.ndarray, current: np.ndarray, out: np.ndarray
+    ) -> None:
+        """One step of the guide path: ``out`` = the next states (shifted) of ``current``."""
+        rows = np.take(self._guide, current + cells, mode="wrap")
+        crowded = rows.min() < 0
+        flat = self._flat
+        for _ in range(self._refine):
+            rows += np.take(flat, rows, mode="wrap") <= words
+        np.take(self._table, rows, out=out, mode="wrap")
+        if crowded:  # a crowded cell: bisect those few rows
+            shift = self._shift
+            for i in np.flatnonzero(np.take(self._guide, current + cells) < 0).tolist():
+                s = int(current[i]) >> shift
+                row = bisect_right(self.thresholds, int(words[i]), self.begin[s], self.last[s])
+                out[i] = self.next[row] << shift
+
+    def _step_table(
+        self, keys: np.ndarray, words: np.ndarray, current: np.ndarray, out: np.ndarray
+    ) -> None:
+        """One step of the table path: ``out`` = ``G[keys + current]`` (``words`` unused)."""
+        np.take(self._table, keys + current, out=out, mode="wrap")
+
     def sample(self, n: int, bitgen: np.random.PCG64) -> np.ndarray:
         """``n`` symbols, the same as :meth:`sample_loop` gives; lockstep whenever it can."""
         if not self._built:
             self._build()
         if n == 0:
             return np.zeros(0, dtype=np.int64)
-        if self._classes is None or n < 8 * _MIN_LENGTH:
+        guided = self._classes is None
+        if (guided and self._guide.size == 0) or self._slow or n < 8 * _MIN_LENGTH:
             return self.sample_loop(n, bitgen)
         state, prefix = self._start(bitgen, n)
         out = np.empty(n, dtype=np.int64)
@@ -185,23 +287,26 @@ class _ChainSampler:
         identity = bool(np.array_equal(self.state_symbols, np.arange(len(self.begin))))
         while done < n:
             size = min(n - done, _CHUNKS * _LENGTH)
-            if size < 8 * _MIN_LENGTH:  # a short tail: the loop
-                symbols: list[int] = []
-                self._loop(state, bitgen.random_raw(size).tolist(), symbols)
-                out[done:] = symbols
-                break
             words = np.asarray(bitgen.random_raw(size), dtype=np.uint64)
+            if size < 8 * _MIN_LENGTH or self._slow or (guided and words.max() == _TOP_WORD):
+                symbols: list[int] = []  # a short tail, or a block the loop must draw
+                state = self._loop(state, words.tolist(), symbols)
+                out[done : done + size] = symbols
+                done += size
+                continue
             chunks = min(_CHUNKS, size // _MIN_LENGTH)
             length = size // chunks
             whole = chunks * length  # the rest (fewer than `chunks` words) goes to the loop
             path = self._block_states(state, words[:whole], chunks, length)
             by_time = path.T  # (chunks, length): the words' own order
+            if guided:
+                by_time = by_time >> self._shift
             target = out[done : done + whole].reshape(chunks, length)
             if identity:
                 np.copyto(target, by_time)
             else:
                 np.take(self.state_symbols, np.ascontiguousarray(by_time), out=target)
-            state = int(path[-1, -1])
+            state = int(by_time[-1, -1])
             done += whole
             if whole < size:
                 symbols = []
@@ -213,48 +318,60 @@ class _ChainSampler:
     def _block_states(self, state: int, words: np.ndarray, chunks: int, length: int) -> np.ndarray:
         """The state after each word (``chunks * length`` of them), from ``state``.
 
-        Returned as ``path[t, c]``: the state after word ``c * length + t``.
+        Returned as ``path[t, c]``: the state after word ``c * length + t``
+        (on the guide path shifted left by ``h``).
         """
-        assert self._classes is not None
-        states = len(self.begin)
-        # S * the class of each word, in the words' order
-        # (mode="wrap" only skips numpy's bounds check: every index is in range)
-        in_order = np.take(self._keys, np.ascontiguousarray(_top16(words)), mode="wrap")
-        split = np.flatnonzero(in_order < 0)  # cells holding a class boundary: search
-        if split.size:
-            in_order[split] = self._classes.rows(words[split]) * states
+        if self._classes is not None:
+            states = len(self.begin)
+            # S * the class of each word, in the words' order
+            # (mode="wrap" only skips numpy's bounds check: every index is in range)
+            in_order = np.take(self._keys, np.ascontiguousarray(_top16(words)), mode="wrap")
+            split = np.flatnonzero(in_order < 0)  # cells holding a class boundary: search
+            if split.size:
+                in_order[split] = self._classes.rows(words[split]) * states
+            step = self._step_table
+            guess, state = self._guess, state
+        else:
+            in_order = (words >> np.uint64(64 - self._shift)).astype(np.int32)
+            step = self._step_guide
+            guess, state = self._guess << self._shift, state << self._shift
         # step t of every chunk side by side: keys[t, c] for word c*length + t
         keys = in_order.reshape(chunks, length).T.copy()
+        by_step = words.reshape(chunks, length).T.copy()
         table = self._table
         path = np.empty((length, chunks), dtype=table.dtype)
-        starts = np.full(chunks, self._guess, dtype=table.dtype)
+        starts = np.full(chunks, guess, dtype=table.dtype)
         # a better guess: run the guess through the last words before each chunk
         # (chains forget their start; the repair below makes the answer exact anyway)
         warm = starts[1:]
-        before = np.empty(chunks - 1, dtype=np.intp)
         for t in range(max(0, length - self._warm), length):
-            np.add(keys[t, :-1], warm, out=before)
-            np.take(table, before, out=warm, mode="wrap")
+            step(keys[t, :-1], by_step[t, :-1], warm, warm)
         starts[0] = state
-        current = starts.copy()
-        index = np.empty(chunks, dtype=np.intp)
+        current = starts
         for t in range(length):
-            np.add(keys[t], current, out=index)
+            step(keys[t], by_step[t], current, path[t])
             current = path[t]
-            np.take(table, index, out=current, mode="wrap")
-        self._repair(path, keys, starts)
+        self._repair(path, keys, by_step, starts, step)
         return path
 
-    def _repair(self, path: np.ndarray, keys: np.ndarray, starts: np.ndarray) -> None:
+    def _repair(
+        self,
+        path: np.ndarray,
+        keys: np.ndarray,
+        words: np.ndarray,
+        starts: np.ndarray,
+        step: Callable[[np.ndarray, np.ndarray, np.ndarray, np.ndarray], None],
+    ) -> None:
         """Make every chunk start where its predecessor ends (see the module docstring).
 
         ``starts[c]`` is the state chunk ``c`` was run from. A round runs every
         chunk whose start is wrong again from its predecessor's end, in
         lockstep; a chunk whose end changed sends its successor to the next
-        round. Few chunks left, or too many rounds: step by step.
+        round. Few chunks left, or too many rounds: step by step. If most
+        chunks are left for that, the chain forgets too slowly for this path
+        and later draws use the loop.
         """
         length, chunks = path.shape
-        table = self._table
         check = np.arange(1, chunks)
         wrong = check[starts[check] != path[length - 1, check - 1]]
         # warm up longer next time if many guesses were wrong, shorter if hardly any
@@ -267,23 +384,28 @@ class _ChainSampler:
             if wrong.size < _FEW:
                 break
             starts[wrong] = path[length - 1, wrong - 1]
-            own_keys = keys[:, wrong]
-            rerun = np.empty((length, wrong.size), dtype=table.dtype)
-            current = starts[wrong].copy()
-            index = np.empty(wrong.size, dtype=np.intp)
+            own_keys, own_words = keys[:, wrong], words[:, wrong]
+            rerun = np.empty((length, wrong.size), dtype=path.dtype)
+            current = starts[wrong]
             for t in range(length):
-                np.add(own_keys[t], current, out=index)
+                step(own_keys[t], own_words[t], current, rerun[t])
                 current = rerun[t]
-                np.take(table, index, out=current, mode="wrap")
             changed = wrong[rerun[length - 1] != path[length - 1, wrong]]
             path[:, wrong] = rerun
             check = changed[changed + 1 < chunks] + 1
         else:
             wrong = check[starts[check] != path[length - 1, check - 1]]
-        self._repair_by_steps(path, keys, starts, wrong.tolist())
+        if wrong.size * 4 > chunks:
+            self._slow = True
+        self._repair_by_steps(path, keys, words, starts, wrong.tolist())
 
     def _repair_by_steps(
-        self, path: np.ndarray, keys: np.ndarray, starts: np.ndarray, pending: list[int]
+        self,
+        path: np.ndarray,
+        keys: np.ndarray,
+        words: np.ndarray,
+        starts: np.ndarray,
+        pending: list[int],
     ) -> None:
         """The rest of the repair one step at a time, chunk after chunk.
 
@@ -293,9 +415,13 @@ class _ChainSampler:
         if not pending:
             return
         length, chunks = path.shape
-        if self._table_list is None:
-            self._table_list = self._table.tolist()
-        table = self._table_list
+        if self._classes is not None:
+            if self._table_list is None:
+                self._table_list = self._table.tolist()
+            table = self._table_list
+        else:
+            shift, thresholds, nxt = self._shift, self.thresholds, self.next
+            begin, last = self.begin, self.last
         todo = sorted(pending)
         heapq.heapify(todo)
         while todo:
@@ -307,11 +433,22 @@ class _ChainSampler:
                 continue
             starts[c] = true
             state = true
-            column = keys[:, c].tolist()
             stored = path[:, c]
             old = stored.tolist()
-            for t in range(length):
-                state = table[column[t] + state]
+            if self._classes is not None:
+                column = keys[:, c].tolist()
+                for t in range(length):
+                    state = table[column[t] + state]
+                    if state == old[t]:
+                        break
+                    stored[t] = state
+                else:
+                    if c + 1 < chunks:
+                        heapq.heappush(todo, c + 1)
+                continue
+            for t, word in enumerate(words[:, c].tolist()):
+                s = state >> shift
+                state = nxt[bisect_right(thresholds, word, begin[s], last[s])] << shift
                 if state == old[t]:
                     break
                 stored[t] = state

@@ -60,6 +60,8 @@ def _symbol_ranks(data: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """
     if data.size and int(data.min()) >= 0 and int(data.max()) < _COUNT_BINS:
         present = np.bincount(data) > 0
+        if present.all():  # every symbol 0..max occurs: each is its own rank
+            return np.arange(present.size, dtype=np.int64), data.astype(np.int64)
         rank = np.cumsum(present) - 1
         return np.flatnonzero(present).astype(np.int64), rank[data]
     alphabet, ranks = np.unique(data, return_inverse=True)
@@ -74,6 +76,32 @@ def _distinct_counts(code: np.ndarray, bins: int) -> tuple[np.ndarray, np.ndarra
         return values.astype(np.int64), counts[values]
     values, counts = np.unique(code, return_counts=True)
     return values, counts
+
+
+def _context_ids(codes: np.ndarray, base: int, span: int) -> tuple[np.ndarray, np.ndarray]:
+    """The contexts of packed grams, as ``np.unique(..., return_inverse=True)`` gives them.
+
+    ``codes``: the distinct packed (k+1)-grams of a ring, ascending; a gram's
+    first context is ``code // base`` and the context it leads to
+    ``code % span``. Returns (the distinct contexts ascending, the index of
+    each gram's first context then of each gram's next context). On a ring
+    every context that ends a gram also begins one, so the distinct first
+    contexts (change points of a sorted array) are all of them.
+    """
+    first = codes // base
+    last = codes - codes // span * span  # codes % span (numpy's integer % is the slower)
+    starts = np.empty(first.size, dtype=bool)
+    starts[:1] = True
+    np.not_equal(first[1:], first[:-1], out=starts[1:])
+    contexts = first[starts]
+    if span <= max(_COUNT_BINS, 4 * codes.size):
+        rank = np.zeros(span, dtype=np.int64)
+        rank[contexts] = np.arange(contexts.size)
+        first_ids, last_ids = np.take(rank, first), np.take(rank, last)
+    else:
+        first_ids = np.cumsum(starts, dtype=np.int64) - 1
+        last_ids = np.searchsorted(contexts, last)
+    return contexts.astype(np.int64), np.concatenate([first_ids, last_ids])
 
 
 def _context_model(
@@ -93,25 +121,27 @@ def _context_model(
     alphabet, ranks = _symbol_ranks(data)
     base = int(alphabet.size)
     if base**width < 1 << 62:
-        ring = np.concatenate([ranks, ranks[:k]])
+        # narrower integers (and sorts) when the packed grams fit in 31 bits
+        dtype = np.int32 if base**width < 1 << 31 else np.int64
+        ring = np.concatenate([ranks, ranks[:k]]).astype(dtype)
         code = ring[:n] * base if width > 1 else ring[:n].copy()
         for j in range(1, width):
             code += ring[j : j + n]
             if j < width - 1:
                 code *= base
         codes, counts = _distinct_counts(code, base**width)
-        span = base**k
-        ctx_codes, ctx_ids = np.unique(
-            np.concatenate([codes // base, codes % span]), return_inverse=True
-        )
+        ctx_codes, ctx_ids = _context_ids(codes, base, base**k)
+        identity = bool(alphabet[-1] == base - 1)  # the symbols are 0..base-1: their own ranks
 
         def unpack(packed: np.ndarray, size: int) -> np.ndarray:
             out = np.empty((packed.size, size), dtype=np.int64)
-            rest = packed.copy()
+            rest = packed
             for j in range(size - 1, -1, -1):
-                out[:, j] = rest % base
-                rest //= base
-            return alphabet[out].astype(np.int64)
+                above = rest // base
+                digit = rest - above * base  # rest % base (numpy's integer % is the slower)
+                out[:, j] = digit if identity else np.take(alphabet, digit)
+                rest = above
+            return out
 
         grams, contexts = unpack(codes, width), unpack(ctx_codes, k)
     else:
@@ -238,12 +268,10 @@ class Empirical(Source):
         # -log2(c(w x) / c(w)), via log1p where the ratio is near 1
         c = counts.astype(np.float64)
         t = self._ctx_counts[row_ctx].astype(np.float64)
-        near_one = 2 * c > t
-        self._row_neg_log2 = np.where(
-            near_one,
-            -np.log1p(np.where(near_one, (c - t) / t, 0.0)) / _LN2,
-            np.log2(t) - np.log2(c),
-        )
+        neg_log2 = np.log2(t) - np.log2(c)
+        near = np.flatnonzero(2 * c > t)
+        neg_log2[near] = -np.log1p((c[near] - t[near]) / t[near]) / _LN2
+        self._row_neg_log2 = neg_log2
         symbols, sym_counts = _distinct_counts_of_symbols(arr)
         self.symbols = symbols
         self.counts = sym_counts.astype(np.int64)

@@ -121,9 +121,6 @@ if TYPE_CHECKING:  # pragma: no cover - for type checkers only
         LedgerError as LedgerError,
     )
     from pytest_ratefloor.errors import (
-        PluginMemoryError as PluginMemoryError,
-    )
-    from pytest_ratefloor.errors import (
         LossyRateFailure as LossyRateFailure,
     )
     from pytest_ratefloor.errors import (
@@ -131,6 +128,9 @@ if TYPE_CHECKING:  # pragma: no cover - for type checkers only
     )
     from pytest_ratefloor.errors import (
         NoisyToleranceWarning as NoisyToleranceWarning,
+    )
+    from pytest_ratefloor.errors import (
+        PluginMemoryError as PluginMemoryError,
     )
     from pytest_ratefloor.errors import (
         PrefixFailure as PrefixFailure,

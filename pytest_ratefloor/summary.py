@@ -59,9 +59,9 @@ __all__ = [
     "NOT_RECORDED_HEADING",
     "NOT_RECORDED_SHOWN",
     "Line",
+    "fitted",
     "ordered",
     "recorded_text",
-    "fitted",
     "shorten",
     "summary_lines",
 ]

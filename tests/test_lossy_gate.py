@@ -9,10 +9,12 @@ import math
 import xml.etree.ElementTree as ET
 from pathlib import Path
 
+import jsonschema
 import numpy as np
 import pytest
+from referencing import Registry, Resource
 
-from pytest_ratefloor import LossyCodec, sources
+from pytest_ratefloor import LossyCodec, schemas, sources
 from pytest_ratefloor.lossy.gating import LossyPlan, case_record, lossy_fingerprint
 from pytest_ratefloor.measurement import LOSSY_FLOOR
 from pytest_ratefloor.rd_plot import rd_bound, rd_series, source_of
@@ -66,9 +68,19 @@ def test_gate_records_bits_and_distortion_and_fails_worse_distortion(
     # uniform quantization noise at step 0.1: D ≈ step²/12 (common practice)
     assert gauss["distortion"] == pytest.approx(0.01 / 12, rel=0.05)
     assert cases["laplacian(scale=1.0)"]["distortion_measure"] == "abs"
-    # a rerun: both cases as recorded
-    result = pytester.runpytest(*INNER)
+    # a rerun: both cases as recorded; the JSON report carries the lossy figures and
+    # matches the published schema (checked with jsonschema), as does the ledger
+    result = pytester.runpytest(*INNER, "--ratefloor-report", "r.json")
     result.assert_outcomes(passed=2)
+    doc = json.loads((pytester.path / "r.json").read_text())
+    registry = Registry().with_resource("ledger.schema.json",
+                                        Resource.from_contents(schemas.load("ledger")))
+    jsonschema.validate(doc, schemas.load("report"), registry=registry)
+    jsonschema.validate(ledger, schemas.load("ledger"))
+    by_source = {c["source"]: c for c in doc["cases"]}
+    assert by_source["gaussian(sigma=1.0)"]["distortion_measure"] == "mse"
+    assert by_source["gaussian(sigma=1.0)"]["snr_db"] == pytest.approx(
+        10 * math.log10(1.0 / by_source["gaussian(sigma=1.0)"]["distortion"]))
     result.stdout.fnmatch_lines(["*0 regressed, 0 improved, 0 new, 2*"])
     # a finer step: the same bits at less distortion is an improvement
     (pytester.path / "step.txt").write_text("0.09")

@@ -11,6 +11,12 @@ at the default n = 10⁵ and at n = 4·10⁶.
   a forked child (the default) and in process (``isolate=False``).
 * **bare** — what a hand-written test does: sample, pack to bytes,
   ``zlib.compress``, ``zlib.decompress``, unpack, ``numpy.array_equal``.
+* **fork, no work** (forked group only) — ``isolation.guarded`` of a function
+  that does nothing: the fixed cost of a fork per check (the ``fork`` call,
+  the child's start and exit, the copy-on-write faults of both processes
+  afterwards). A forked check costs this plus the faults of every page its
+  work writes (each is first written in a fresh child); no change to the
+  check itself brings "forked" below "in process" + this line.
 
 Sampling the source is part of **both** sides (the same ``source.sample``
 call). Each side is run ``--repeat`` times, interleaved, and the minimum is
@@ -51,6 +57,10 @@ def bare(source: sources.Source, n: int) -> int:
     if not np.array_equal(sample, decoded):
         raise AssertionError("zlib did not round-trip")
     return 8 * len(compressed)
+
+
+def _nothing() -> None:
+    """The work of the "fork, no work" side."""
 
 
 def _cpu() -> float:
@@ -105,6 +115,8 @@ def _one_size(codec: ByteCodec, source: sources.Source, n: int, repeat: int) -> 
             f"edge cases on, {where}": run_check(True, isolate),
             f"edge cases off, {where}": run_check(False, isolate),
         }
+        if isolate:
+            sides["fork, no work"] = lambda: isolation.guarded(_nothing, case="no work")
         times = _interleaved(sides, repeat)
         best = {k: (min(w for w, _ in v), min(c for _, c in v)) for k, v in times.items()}
         bw, bc = best["bare"]

@@ -95,7 +95,6 @@ class _StepBoard:
     SLOT = (SIZE - 8) // 2 - 4  # bytes of text; each slot is a 4-byte length and the text
 
     def __init__(self) -> None:
-        self.owner = os.getpid()
         self.memory = mmap.mmap(-1, self.SIZE)  # anonymous: shared with children forked later
 
     def _offset(self, slot: int) -> int:
@@ -523,6 +522,7 @@ def _sigint_watch() -> Iterator[list[bool]]:
 
 def _in_process(work: Callable[[], T], case: str) -> T:
     __tracebackhide__ = True
+    reap_children()  # children of earlier forked checks would make _child_pids read /proc
     threads_before, children_before = _live_threads(), _child_pids()
     _progress.text = _START
     with _sigint_watch() as sigint, _intercept_exit():

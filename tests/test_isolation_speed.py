@@ -156,6 +156,18 @@ def test_a_fresh_child_has_no_children_until_the_codec_starts_one() -> None:
     assert isolation.guarded(work, case="codec 'p' on test") == (False, True, False)
 
 
+@needs_fork
+def test_an_in_process_check_first_reaps_the_children_of_earlier_forked_ones() -> None:
+    isolation.guarded(lambda: None, case="codec 'f' on test")
+    pids = list(isolation._ending)
+    assert pids  # the forked child is reaped later, not while the test waits
+    isolation.guarded(lambda: None, case="codec 'i' on test", isolate=False)
+    assert isolation._ending == []
+    for pid in pids:
+        with pytest.raises(ChildProcessError):
+            os.waitpid(pid, os.WNOHANG)  # gone: no child left for _child_pids to look up
+
+
 @needs_proc
 @pytest.mark.parametrize("isolate", [True, False])
 def test_a_child_that_ended_unwaited_is_not_left_running(isolate: bool) -> None:

@@ -270,8 +270,10 @@ def unique_model(data, k):
         np.frombuffer(np.random.default_rng(2).bytes(3000), dtype=np.uint8).astype(np.int64),
         np.array([-3, 10**12, 5, -3, 5, 5, 10**12, -3] * 30, dtype=np.int64),
         np.array([7] * 50, dtype=np.int64),
+        # every symbol 0..3 occurs: the symbols are their own ranks
+        np.random.default_rng(8).integers(0, 4, 700),
     ],
-    ids=["text", "bytes", "wide-symbols", "constant"],
+    ids=["text", "bytes", "wide-symbols", "constant", "dense-small"],
 )
 @pytest.mark.parametrize("k", [0, 1, 2, 3])
 def test_context_model_counts_equal_numpy_unique(data, k):
@@ -281,3 +283,109 @@ def test_context_model_counts_equal_numpy_unique(data, k):
     assert np.array_equal(counts, want_counts)
     assert np.array_equal(contexts[gram_context], grams[:, :k])
     assert np.array_equal(contexts[gram_next], grams[:, 1:])
+
+
+# --------------------------------------------------------------------------
+# chains with many states: the per-state guide, against the reference loop
+
+
+NOISE = np.random.default_rng(21).bytes(300_000)  # random bytes: order 2 has 65,536 contexts
+
+
+def many_context_models():
+    text = np.frombuffer(TIDE * 3, dtype=np.uint8)
+    noise = np.frombuffer(NOISE, dtype=np.uint8)
+    return {
+        "noise-order-1": sources.empirical(noise, order=1),  # 256 states, ~256 rows each
+        "noise-order-2": sources.empirical(noise, order=2),  # forgets slowly: longer chunks
+        "noise-order-3": sources.empirical(noise[:60_000], order=3),  # nearly deterministic
+        "text-order-1": sources.empirical(text, order=1),
+        "text-order-2": sources.empirical(text, order=2),
+        "text-order-3": sources.empirical(text, order=3),
+    }
+
+
+@pytest.fixture
+def guide_for_all(monkeypatch):
+    """Every chain takes the guide path (no class table), and slow chains escalate quickly."""
+    monkeypatch.setattr(chain_sampler, "_TABLE_ENTRIES", 0)
+    monkeypatch.setattr(chain_sampler, "_LONGEST", 2000)
+    monkeypatch.setattr(chain_sampler, "_GUIDE_BLOCK", 1 << 18)
+
+
+@pytest.mark.parametrize("name", list(many_context_models()))
+def test_guide_path_samples_equal_the_loop(guide_for_all, name):
+    src = many_context_models()[name]
+    reference = reference_of(src)
+    # lengths across a block, its chunks and tails (a block is 2**18 words here)
+    for n, seed in [(513, 2), (4001 * 64 + 5, 7), ((1 << 18) + 17, 4), (3 * (1 << 18) + 999, 1)]:
+        assert np.array_equal(src.sample(n, seed=seed), reference.sample(n, seed)), (name, n)
+    chain = src._chain
+    assert chain._classes is None
+    assert chain._guide.size > 0
+
+
+def test_many_contexts_take_the_guide_by_default():
+    # ~65,000 contexts: too many for the class table (states x classes > 2**21)
+    src = many_context_models()["noise-order-2"]
+    n = (1 << 21) + 3
+    assert np.array_equal(src.sample(n, seed=8), reference_of(src).sample(n, 8))
+    chain = src._chain
+    assert chain._classes is None
+    assert chain._guide.size == len(chain.begin) << chain._shift
+    # two paths fed the same words meet only after thousands of words: chunks grew
+    assert chain._length > chain_sampler._LENGTH
+
+
+def test_guide_step_is_the_bisection():
+    # the guide's row against Python's bisect_right on each state's own thresholds
+    src = many_context_models()["noise-order-1"]
+    src.sample(10)
+    chain = src._chain
+    chain._build()
+    rng = np.random.default_rng(4)
+    states = rng.integers(0, len(chain.begin), 30_000)
+    inner = np.array([t for t in chain.thresholds if t < WORD], dtype=np.uint64)
+    words = np.concatenate(
+        [
+            np.random.PCG64(6).random_raw(10_000),
+            inner[rng.integers(0, inner.size, 10_000)],  # on a threshold
+            inner[rng.integers(0, inner.size, 10_000)] - np.uint64(1),  # just below one
+        ]
+    )
+    shift = chain._shift
+    cells = (words >> np.uint64(64 - shift)).astype(np.int64)
+    out = np.empty(words.size, dtype=np.int32)
+    chain._step_guide(cells, words, (states << shift).astype(np.int64), out)
+    want = [
+        chain.next[bisect_right(chain.thresholds, int(u), chain.begin[s], chain.last[s])]
+        for s, u in zip(states.tolist(), words.tolist())
+    ]
+    assert np.array_equal(out >> shift, want)
+
+
+def test_crowded_guide_cells_are_bisected(guide_for_all, monkeypatch):
+    # four cells a state and one comparison: most cells are crowded
+    monkeypatch.setattr(chain_sampler, "_GUIDE_BITS", 2)
+    monkeypatch.setattr(chain_sampler, "_REFINE", 1)
+    for name in ("text-order-1", "noise-order-1"):
+        src = many_context_models()[name]
+        assert np.array_equal(src.sample(300_000, seed=3), reference_of(src).sample(300_000, 3))
+        assert src._chain._refine == 1
+        assert (src._chain._guide < 0).any()
+
+
+def test_guide_blocks_holding_the_top_word_use_the_loop(guide_for_all, monkeypatch):
+    # the flat array marks each state's end with 2**64 - 1; such a block goes to the loop
+    monkeypatch.setattr(chain_sampler, "_TOP_WORD", np.uint64(0))
+    src = many_context_models()["text-order-2"]
+    assert np.array_equal(src.sample(100_000, seed=5), reference_of(src).sample(100_000, 5))
+
+
+def test_chains_too_large_for_the_guide_use_the_loop(monkeypatch):
+    monkeypatch.setattr(chain_sampler, "_TABLE_ENTRIES", 0)
+    monkeypatch.setattr(chain_sampler, "_GUIDE_ENTRIES", 10)
+    src = many_context_models()["text-order-2"]
+    assert np.array_equal(src.sample(50_000, seed=2), reference_of(src).sample(50_000, 2))
+    assert src._chain._classes is None
+    assert src._chain._guide.size == 0

@@ -43,18 +43,21 @@ step is then ``row = guide[s, cell(u)]`` followed by ``R`` comparisons
 ``row += T[row] <= u`` (exact when the cell holds at most ``R`` of the
 state's thresholds; the rare crowded cells are marked and bisected), and
 ``next = N[row]``: about ten array operations per lockstep step, whatever
-the number of states. The chunks, warm-up and repair are the same. Chains
-that forget their start slowly (random bytes of order 2: two paths fed the
-same words typically meet only after thousands of words) are caught by the
-repair and sampled by the loop from then on. Chains too large even for the
-guide use the loop.
+the number of states. The chunks, warm-up and repair are the same. A chain
+that forgets its start slowly (random bytes of order 2: two paths fed the
+same words typically meet only after thousands of words) leaves many chunks
+to the step-by-step repair; the repair notices and the next blocks use
+chunks (and warm-ups) eight times longer, up to ``_LONGEST`` words. A chain
+that still leaves many (one that never forgets: periodic, deterministic)
+is drawn by the loop from then on, on either path. Chains too large even
+for the guide use the loop.
 """
 
 from __future__ import annotations
 
 import heapq
 from bisect import bisect_right
-from collections.abc import Callable, Sequence
+from collections.abc import Sequence
 
 import numpy as np
 
@@ -69,6 +72,10 @@ from pytest_ratefloor.sources.sampling import (
 
 #: Most entries (states × classes) the lockstep table may hold; above it the per-state guide.
 _TABLE_ENTRIES = 1 << 21
+#: Longest chunk of the guide path (chains that forget slowly get longer chunks and warm-ups).
+_LONGEST = 8192
+#: Most words of one block on the guide path.
+_GUIDE_BLOCK = 1 << 21
 #: Most entries (states × cells, an int32 each) of the per-state guide; above it the loop.
 _GUIDE_ENTRIES = 1 << 22
 #: Most bits of a word that name its guide cell.
@@ -139,6 +146,7 @@ class _ChainSampler:
         self._flat = np.zeros(0, dtype=np.uint64)  # every state's thresholds, then 2**64 - 1
         self._refine = 0
         self._slow = False  # the chain forgets too slowly for the lockstep path: the loop
+        self._length = _LENGTH  # the chunk length the guide path aims at (grows for slow chains)
 
     # ------------------------------------------------------------------
     # the loop: one word, one bisection
@@ -249,10 +257,14 @@ class _ChainSampler:
         self._table = (np.asarray(self.next, dtype=np.int32) << bits).astype(np.int32)
 
     def _step_guide(
-        self, cells: np.ndarray, words: np.ndarray, current: np.ndarray, out: np.ndarray
+        self, keys: np.ndarray, words: np.ndarray, current: np.ndarray, out: np.ndarray
     ) -> None:
-        """One step of the guide path: ``out`` = the next states (shifted) of ``current``."""
-        rows = np.take(self._guide, current + cells, mode="wrap")
+        """One step of the guide path: ``out`` = the next states of ``current`` (both shifted).
+
+        ``keys``: each word's cell; ``out`` may be ``current`` itself.
+        """
+        index = current + keys  # s << h | cell
+        rows = np.take(self._guide, index, mode="wrap")
         crowded = rows.min() < 0
         flat = self._flat
         for _ in range(self._refine):
@@ -260,16 +272,10 @@ class _ChainSampler:
         np.take(self._table, rows, out=out, mode="wrap")
         if crowded:  # a crowded cell: bisect those few rows
             shift = self._shift
-            for i in np.flatnonzero(np.take(self._guide, current + cells) < 0).tolist():
-                s = int(current[i]) >> shift
+            for i in np.flatnonzero(np.take(self._guide, index) < 0).tolist():
+                s = int(index[i]) >> shift
                 row = bisect_right(self.thresholds, int(words[i]), self.begin[s], self.last[s])
                 out[i] = self.next[row] << shift
-
-    def _step_table(
-        self, keys: np.ndarray, words: np.ndarray, current: np.ndarray, out: np.ndarray
-    ) -> None:
-        """One step of the table path: ``out`` = ``G[keys + current]`` (``words`` unused)."""
-        np.take(self._table, keys + current, out=out, mode="wrap")
 
     def sample(self, n: int, bitgen: np.random.PCG64) -> np.ndarray:
         """``n`` symbols, the same as :meth:`sample_loop` gives; lockstep whenever it can."""
@@ -286,15 +292,19 @@ class _ChainSampler:
         done = len(prefix)
         identity = bool(np.array_equal(self.state_symbols, np.arange(len(self.begin))))
         while done < n:
-            size = min(n - done, _CHUNKS * _LENGTH)
+            size = min(n - done, _GUIDE_BLOCK if guided else _CHUNKS * _LENGTH)
             words = np.asarray(bitgen.random_raw(size), dtype=np.uint64)
-            if size < 8 * _MIN_LENGTH or self._slow or (guided and words.max() == _TOP_WORD):
+            chunks = min(_CHUNKS, size // (self._length if guided else _MIN_LENGTH))
+            if (
+                size < 8 * _MIN_LENGTH
+                or self._slow
+                or (guided and (chunks < _FEW or words.max() >= _TOP_WORD))
+            ):
                 symbols: list[int] = []  # a short tail, or a block the loop must draw
                 state = self._loop(state, words.tolist(), symbols)
                 out[done : done + size] = symbols
                 done += size
                 continue
-            chunks = min(_CHUNKS, size // _MIN_LENGTH)
             length = size // chunks
             whole = chunks * length  # the rest (fewer than `chunks` words) goes to the loop
             path = self._block_states(state, words[:whole], chunks, length)
@@ -329,30 +339,51 @@ class _ChainSampler:
             split = np.flatnonzero(in_order < 0)  # cells holding a class boundary: search
             if split.size:
                 in_order[split] = self._classes.rows(words[split]) * states
-            step = self._step_table
             guess, state = self._guess, state
         else:
             in_order = (words >> np.uint64(64 - self._shift)).astype(np.int32)
-            step = self._step_guide
             guess, state = self._guess << self._shift, state << self._shift
         # step t of every chunk side by side: keys[t, c] for word c*length + t
         keys = in_order.reshape(chunks, length).T.copy()
-        by_step = words.reshape(chunks, length).T.copy()
+        if self._classes is None:  # the guide path compares the words themselves
+            by_step = words.reshape(chunks, length).T.copy()
+        else:
+            by_step = np.empty((length, 0), dtype=np.uint64)  # not needed
         table = self._table
         path = np.empty((length, chunks), dtype=table.dtype)
         starts = np.full(chunks, guess, dtype=table.dtype)
         # a better guess: run the guess through the last words before each chunk
         # (chains forget their start; the repair below makes the answer exact anyway)
-        warm = starts[1:]
-        for t in range(max(0, length - self._warm), length):
-            step(keys[t, :-1], by_step[t, :-1], warm, warm)
+        first = max(0, length - self._warm)
+        warm = self._run(keys[first:, :-1], by_step[first:, :-1], starts[1:], None)
+        starts[1:] = warm
         starts[0] = state
-        current = starts
-        for t in range(length):
-            step(keys[t], by_step[t], current, path[t])
-            current = path[t]
-        self._repair(path, keys, by_step, starts, step)
+        self._run(keys, by_step, starts, path)
+        self._repair(path, keys, by_step, starts)
         return path
+
+    def _run(
+        self, keys: np.ndarray, words: np.ndarray, start: np.ndarray, path: np.ndarray | None
+    ) -> np.ndarray:
+        """Step chunks side by side from ``start`` through ``keys[t]``/``words[t]``.
+
+        Stores the state after step ``t`` in ``path[t]`` (if given) and
+        returns the states after the last step.
+        """
+        current = start.copy()
+        if self._classes is None:  # the guide path
+            for t in range(keys.shape[0]):
+                target = current if path is None else path[t]
+                self._step_guide(keys[t], words[t], current, target)
+                current = target
+            return current
+        table = self._table  # the class table: next = G[key + state]
+        index = np.empty(current.size, dtype=np.intp)
+        for t in range(keys.shape[0]):
+            np.add(keys[t], current, out=index)
+            current = current if path is None else path[t]
+            np.take(table, index, out=current, mode="wrap")
+        return current
 
     def _repair(
         self,
@@ -360,7 +391,6 @@ class _ChainSampler:
         keys: np.ndarray,
         words: np.ndarray,
         starts: np.ndarray,
-        step: Callable[[np.ndarray, np.ndarray, np.ndarray, np.ndarray], None],
     ) -> None:
         """Make every chunk start where its predecessor ends (see the module docstring).
 
@@ -376,7 +406,7 @@ class _ChainSampler:
         wrong = check[starts[check] != path[length - 1, check - 1]]
         # warm up longer next time if many guesses were wrong, shorter if hardly any
         if wrong.size * 20 > chunks:
-            self._warm = min(2 * self._warm, _LENGTH)
+            self._warm = min(2 * self._warm, self._length)
         elif wrong.size * 200 < chunks:
             self._warm = max(self._warm // 2, _WARM)
         for _ in range(_ROUNDS):
@@ -384,18 +414,19 @@ class _ChainSampler:
             if wrong.size < _FEW:
                 break
             starts[wrong] = path[length - 1, wrong - 1]
-            own_keys, own_words = keys[:, wrong], words[:, wrong]
             rerun = np.empty((length, wrong.size), dtype=path.dtype)
-            current = starts[wrong]
-            for t in range(length):
-                step(own_keys[t], own_words[t], current, rerun[t])
-                current = rerun[t]
+            own_words = words[:, wrong] if self._classes is None else words
+            self._run(keys[:, wrong], own_words, starts[wrong], rerun)
             changed = wrong[rerun[length - 1] != path[length - 1, wrong]]
             path[:, wrong] = rerun
             check = changed[changed + 1 < chunks] + 1
         else:
             wrong = check[starts[check] != path[length - 1, check - 1]]
-        if wrong.size * 4 > chunks:
+        # many chunks left to step: the chain forgets too slowly for chunks this short
+        if chunks > 4 * _FEW and self._classes is None and self._length < _LONGEST:
+            if wrong.size * 16 > chunks:
+                self._length = self._warm = min(8 * self._length, _LONGEST)
+        elif chunks > 4 * _FEW and wrong.size * 4 > chunks:
             self._slow = True
         self._repair_by_steps(path, keys, words, starts, wrong.tolist())
 

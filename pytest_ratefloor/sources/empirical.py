@@ -61,7 +61,7 @@ def _symbol_ranks(data: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     if data.size and int(data.min()) >= 0 and int(data.max()) < _COUNT_BINS:
         present = np.bincount(data) > 0
         if present.all():  # every symbol 0..max occurs: each is its own rank
-            return np.arange(present.size, dtype=np.int64), data.astype(np.int64)
+            return np.arange(present.size, dtype=np.int64), data.astype(np.int64, copy=False)
         rank = np.cumsum(present) - 1
         return np.flatnonzero(present).astype(np.int64), rank[data]
     alphabet, ranks = np.unique(data, return_inverse=True)
@@ -262,12 +262,12 @@ class Empirical(Source):
         self._contexts = contexts
         self._row_ctx = row_ctx
         self._row_next = row_next
-        self._ctx_counts = np.bincount(row_ctx, weights=counts, minlength=len(contexts)).astype(
-            np.int64
-        )
+        # c(w): rows are sorted by context and every context begins a gram (a ring)
+        firsts = np.flatnonzero(np.diff(row_ctx, prepend=-1))
+        self._ctx_counts = np.add.reduceat(counts, firsts).astype(np.int64)
         # -log2(c(w x) / c(w)), via log1p where the ratio is near 1
         c = counts.astype(np.float64)
-        t = self._ctx_counts[row_ctx].astype(np.float64)
+        t = np.take(self._ctx_counts.astype(np.float64), row_ctx)
         neg_log2 = np.log2(t) - np.log2(c)
         near = np.flatnonzero(2 * c > t)
         neg_log2[near] = -np.log1p((c[near] - t[near]) / t[near]) / _LN2

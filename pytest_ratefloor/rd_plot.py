@@ -126,7 +126,7 @@ def _draw(ax: Axes, series: RdSeries, colour_of: dict[str, str], regression: str
 
     if series.bound:
         ax.plot([r for r, _ in series.bound], [v for _, v in series.bound], color="black",
-                lw=1.2, label="bound of the model source", gid=f"bound:{series.source}")
+                lw=1.2, label="bound: D(R) of the model source", gid=f"bound:{series.source}")
     for codec in sorted({p.codec for p in series.points}):
         mine = sorted((p for p in series.points if p.codec == codec), key=lambda p: p.rate)
         ax.plot([p.rate for p in mine], [y(p) for p in mine], marker="o", ms=4, lw=0.8,
@@ -135,6 +135,8 @@ def _draw(ax: Axes, series: RdSeries, colour_of: dict[str, str], regression: str
     if bad:
         ax.scatter([p.rate for p in bad], [y(p) for p in bad], s=46, color=regression, zorder=4,
                    gid="rd-regressed")
+    if series.bound:
+        ax.legend(fontsize="x-small", loc="lower right")
     ax.set_xlabel("rate (bits/sample)")
     if series.snr:
         ax.set_ylabel("SNR (dB)")

@@ -171,7 +171,32 @@ def check_version(version: object) -> str | None:
     return version
 
 
-class StreamCodec:
+class FunctionPair:
+    """What a codec given as two functions holds: the user's ``encode`` and ``decode``
+    (checked callable, named after the adapter in a message), its ``name`` (default: the
+    encoder's qualified name) and ``version`` (text or ``None``). The base of
+    :class:`StreamCodec` and :class:`~pytest_ratefloor.LossyCodec`."""
+
+    def __init__(
+        self,
+        encode: Callable[[np.ndarray], Any],
+        decode: Callable[[Any, int], Any],
+        name: str | None = None,
+        version: str | None = None,
+    ) -> None:
+        adapter = type(self).__name__
+        validation.function(encode, f"{adapter} encode")
+        validation.function(decode, f"{adapter} decode")
+        self._encode = encode
+        self._decode = decode
+        self.name = check_name(name if name is not None else callable_name(encode))
+        self.version = check_version(version)
+
+    def __repr__(self) -> str:
+        return f"{type(self).__name__}(name={self.name!r}, version={self.version!r})"
+
+
+class StreamCodec(FunctionPair):
     """A codec given as two functions.
 
     ``encode(symbols: numpy.ndarray) -> bytes | bytearray | memoryview |
@@ -189,16 +214,8 @@ class StreamCodec:
         name: str | None = None,
         version: str | None = None,
     ) -> None:
-        validation.function(encode, "StreamCodec encode")
-        validation.function(decode, "StreamCodec decode")
-        self._encode = encode
-        self._decode = decode
-        self.name = check_name(name if name is not None else callable_name(encode))
-        self.version = check_version(version)
+        super().__init__(encode, decode, name, version)
         self.symbols: list[int] | None = None
-
-    def __repr__(self) -> str:
-        return f"StreamCodec(name={self.name!r}, version={self.version!r})"
 
     @property
     def layout(self) -> None:

@@ -19,15 +19,15 @@ input differently twice (checked on a short slice: two extra small encodes).
 from __future__ import annotations
 
 import time
-from collections.abc import Callable, Iterator, Mapping
+from collections.abc import Iterator, Mapping
 from collections.abc import Set as AbstractSet
 from dataclasses import dataclass
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from pytest_ratefloor import validation
-from pytest_ratefloor.codecs import callable_name, check_name, check_version
+from pytest_ratefloor.codecs import FunctionPair
 from pytest_ratefloor.errors import CodecContractError, CodecMisbehaviour
 from pytest_ratefloor.isolation import step
 from pytest_ratefloor.streams import Encoded, encoded_from_stream, symbols_from_decoder, type_name
@@ -41,7 +41,7 @@ __all__ = ["CONTRACT_SLICE", "LossyCodec", "LossyRun", "reconstruction_array", "
 CONTRACT_SLICE = 4096
 
 
-class LossyCodec:
+class LossyCodec(FunctionPair):
     """A lossy codec given as two functions.
 
     ``encode(samples: numpy.ndarray) -> bytes | bytearray | memoryview |
@@ -50,23 +50,6 @@ class LossyCodec:
     text (``None``: unversioned). The samples handed to ``encode`` must be
     treated as read-only.
     """
-
-    def __init__(
-        self,
-        encode: Callable[[np.ndarray], Any],
-        decode: Callable[[Any, int], Any],
-        name: str | None = None,
-        version: str | None = None,
-    ) -> None:
-        validation.function(encode, "LossyCodec encode")
-        validation.function(decode, "LossyCodec decode")
-        self._encode = encode
-        self._decode = decode
-        self.name = check_name(name if name is not None else callable_name(encode))
-        self.version = check_version(version)
-
-    def __repr__(self) -> str:
-        return f"LossyCodec(name={self.name!r}, version={self.version!r})"
 
     def encode(self, samples: np.ndarray) -> Encoded:
         """Call the user's encoder and count the bits of what it returned."""

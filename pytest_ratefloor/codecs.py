@@ -207,15 +207,8 @@ class StreamCodec(FunctionPair):
     treated as read-only.
     """
 
-    def __init__(
-        self,
-        encode: Callable[[np.ndarray], Any],
-        decode: Callable[[Any, int], Any],
-        name: str | None = None,
-        version: str | None = None,
-    ) -> None:
-        super().__init__(encode, decode, name, version)
-        self.symbols: list[int] | None = None
+    #: the alphabet the edge cases use: ``None``, the codec takes the source's
+    symbols: list[int] | None = None
 
     @property
     def layout(self) -> None:

@@ -193,7 +193,8 @@ def align(table: list[list[str]], right: set[int]) -> list[str]:
     return lines
 
 
-def _first_line(text: str) -> str:
+def first_line(text: str) -> str:
+    """The first line of a (failure) text, stripped; ``""`` for none."""
     lines = str(text).strip().splitlines()
     return lines[0] if lines else ""
 
@@ -356,7 +357,7 @@ def markdown_report(rows: Sequence[Comparison], outcome: RunOutcome, title: str 
         out.append("")
     if outcome.not_recorded:
         out += ["Not recorded (their tests failed):", ""]
-        out += [f"- {markdown_text(label)}: {markdown_text(_first_line(why))}"
+        out += [f"- {markdown_text(label)}: {markdown_text(first_line(why))}"
                 for label, why in outcome.not_recorded]
         out.append("")
     if outcome.stale:

@@ -221,7 +221,7 @@ def _expected(n: int) -> str:
     return f"expected a sequence or array of {n} integers (a list, tuple or 1-D numpy array)"
 
 
-def _not_a_sequence(value: object) -> str | None:
+def not_a_sequence(value: object) -> str | None:
     """What a decoder's output is, when it is plainly no sequence of symbols."""
     kind = type_name(value)
     if value is None:
@@ -248,7 +248,7 @@ def decoded_array(value: object, n: int) -> np.ndarray:
     returned (and the value, or the first item that is no integer) and what was
     expected (``n`` integers).
     """
-    problem = _not_a_sequence(value)
+    problem = not_a_sequence(value)
     if problem is not None:
         raise CodecContractError(f"decoder returned {problem}; {_expected(n)}")
     if isinstance(value, bitarray):

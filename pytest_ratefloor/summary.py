@@ -51,16 +51,23 @@ from pytest_ratefloor.report import (
     counts_text,
     delta_text,
     figure_text,
+    first_line,
     percent_text,
 )
-from pytest_ratefloor.verdicts import SUSPICIOUS_SPREADS, VERDICTS, Colour, Comparison, counts_of
+from pytest_ratefloor.verdicts import (
+    SUSPICIOUS_SPREADS,
+    VERDICTS,
+    Colour,
+    Comparison,
+    counts_of,
+    worst_first,
+)
 
 __all__ = [
     "NOT_RECORDED_HEADING",
     "NOT_RECORDED_SHOWN",
     "Line",
     "fitted",
-    "ordered",
     "recorded_text",
     "shorten",
     "summary_lines",
@@ -87,15 +94,6 @@ class Line:
 
 
 # -- ordering and shortening ----------------------------------------------------------
-
-_RANK = {name: i for i, name in enumerate(VERDICTS)}
-
-
-def ordered(rows: Sequence[Comparison]) -> list[Comparison]:
-    """Rows worst verdict first, then by codec and case (a plain listing keeps key order)."""
-    return sorted(rows, key=lambda r: (_RANK.get(r.status, len(_RANK)) if r.status else 0,
-                                       r.key))
-
 
 def _cut_middle(text: str, width: int) -> str:
     keep = width - 1
@@ -135,15 +133,11 @@ def _tally_colour(outcome: RunOutcome) -> Colour:
     return "green"
 
 
-def _first_line(text: str) -> str:
-    lines = str(text).strip().splitlines()
-    return lines[0] if lines else ""
-
-
 #: How a recording describes what it wrote, by the verdict the case had against the old entry.
 _WRITTEN_AS: dict[str, str] = {
     "regressed": "re-recorded with more bits", "resampled": "re-recorded on a new sample",
     "within-slack": "re-recorded within the slack", "improved": "re-recorded with fewer bits",
+    "traded": "re-recorded at another rate–distortion point",
     "new": "new", "unchanged": "unchanged",
 }
 
@@ -345,7 +339,7 @@ def summary_lines(rows: Sequence[Comparison], outcome: RunOutcome, verbose: bool
     (the directory pytest was started in) when they lie below it.
     """
     quiet = quiet or very_quiet
-    all_rows = ordered(rows)
+    all_rows = worst_first(rows)
     if very_quiet:
         shown = [r for r in all_rows if r.fails]
     elif quiet:
@@ -369,7 +363,7 @@ def summary_lines(rows: Sequence[Comparison], outcome: RunOutcome, verbose: bool
     if outcome.not_recorded and not very_quiet:
         lines.append(Line(NOT_RECORDED_HEADING, "yellow"))
         limit = None if verbose else (5 if quiet else NOT_RECORDED_SHOWN)
-        lines += _capped([f"{terminal_text(label)}: {terminal_text(_first_line(why))}"
+        lines += _capped([f"{terminal_text(label)}: {terminal_text(first_line(why))}"
                           for label, why in outcome.not_recorded], limit, " (-v lists all)")
     if outcome.stale and not very_quiet:
         count = len(outcome.stale)

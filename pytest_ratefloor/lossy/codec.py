@@ -19,8 +19,6 @@ input differently twice (checked on a short slice: two extra small encodes).
 from __future__ import annotations
 
 import time
-from collections.abc import Iterator, Mapping
-from collections.abc import Set as AbstractSet
 from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
@@ -30,7 +28,13 @@ from pytest_ratefloor import validation
 from pytest_ratefloor.codecs import FunctionPair
 from pytest_ratefloor.errors import CodecContractError, CodecMisbehaviour
 from pytest_ratefloor.isolation import step
-from pytest_ratefloor.streams import Encoded, encoded_from_stream, symbols_from_decoder, type_name
+from pytest_ratefloor.streams import (
+    Encoded,
+    encoded_from_stream,
+    not_a_sequence,
+    symbols_from_decoder,
+    type_name,
+)
 
 if TYPE_CHECKING:
     from pytest_ratefloor.lossy.distortion import LossySource
@@ -61,19 +65,11 @@ class LossyCodec(FunctionPair):
 
 
 def _plainly_not_samples(value: object) -> str | None:
-    kind = type_name(value)
-    if value is None:
-        return "NoneType (nothing: a missing return statement?)"
+    """What a reconstruction is, when it is plainly no sequence of numbers (bytes included:
+    a lossy decoder returns samples, not a stream)."""
     if isinstance(value, (str, bytes, bytearray, memoryview)):
-        return f"{kind} {validation.show(value)} (not a sequence of numbers)"
-    if isinstance(value, Mapping):
-        return f"{kind} (a mapping, not a sequence)"
-    if isinstance(value, AbstractSet):
-        return f"{kind} (a set: its order is arbitrary)"
-    if isinstance(value, Iterator):
-        return (f"{kind} (an iterator or generator: it can be read once only, so it cannot be "
-                "checked; return a list or an array)")
-    return None
+        return f"{type_name(value)} {validation.show(value)} (not a sequence of numbers)"
+    return not_a_sequence(value)
 
 
 def reconstruction_array(value: object, n: int, real: bool) -> np.ndarray:

@@ -264,11 +264,15 @@ class CheckPlan:
         trials, so hangs cost at most 5 × ``timeout``; ``memory_limit``
         costs nothing (an address-space limit on the worker on Linux, a
         check after each trial elsewhere).
-    ``isolate`` (``bool``, or ``None``: the run's setting, ini ``ratefloor_isolate``, on by default)
-        Run the codec in a forked child (:mod:`pytest_ratefloor.isolation`):
-        one ``fork`` per check, about 5–6 ms (wall; 6–7 ms of CPU with the
-        child's) at ``n`` = 10⁵, 1.02–1.06 times the in-process check at
-        ``n`` = 4·10⁶ (``benchmarks/bench_check.py``).
+    ``isolate`` (``bool``, or ``None``: as the run decides, ini ``ratefloor_isolate``)
+        How the codec is kept from ending the run unseen
+        (:mod:`pytest_ratefloor.isolation`). ``None`` in a pytest run: in this
+        process, with a supervisor process over the whole run that names the
+        check if the codec ends the process (no cost per check); outside one,
+        a forked child. ``True``: a forked child per check, so that only its
+        case fails if the codec ends the process; about 2.5 ms of CPU per
+        check (``benchmarks/bench_check.py``). ``False``: in process, with
+        no supervisor's help.
     """
 
     n: int | None = None
@@ -346,12 +350,6 @@ class CheckPlan:
                           else self.memory_limit),
         )
 
-    @property
-    def isolated(self) -> bool:
-        """Whether the codec runs in a child process (``None`` means yes)."""
-        return self.isolate is not False
-
-
 def _check_source(source: object) -> None:
     for attr in ("spec", "sample", "information", "entropy"):
         if not hasattr(source, attr):
@@ -414,7 +412,7 @@ def _case(codec: Any, source: Source, plan: CheckPlan) -> str:
 def _guarded(work: Callable[[], _T], codec: Any, source: Source, plan: CheckPlan) -> _T:
     """Run the codec-facing ``work`` where the codec cannot end or stall the session."""
     __tracebackhide__ = True
-    return isolation.guarded(work, case=_case(codec, source, plan), isolate=plan.isolated)
+    return isolation.guarded(work, case=_case(codec, source, plan), isolate=plan.isolate)
 
 
 def _sharing(codec: Any, plan: CheckPlan) -> tuple[Hashable | None, tuple[object, ...]]:
@@ -433,8 +431,8 @@ def run_check(
 ) -> Measurement:
     """Round trip (with edge cases), rate and (if planned) damaged streams on one encoding.
 
-    The codec runs under :func:`pytest_ratefloor.isolation.guarded` (in a
-    child process unless ``plan.isolate`` is ``False``); ``on_measurement(m)``
+    The codec runs under :func:`pytest_ratefloor.isolation.guarded` (as
+    ``plan.isolate`` says); ``on_measurement(m)``
     runs here, once the measurement exists, before a rate failure is raised.
     If it raises a failure itself (e.g. a ledger regression) and the rate
     also fails, the rate failure is raised with the other message appended.

@@ -40,6 +40,7 @@ from pytest_ratefloor.floors import DEFAULT_FLOOR, Floor
 from pytest_ratefloor.lossy.codec import LossyCodec
 from pytest_ratefloor.lossy.gating import LossyOptions, LossyPlan, run_lossy_check
 from pytest_ratefloor.measurement import Measurement, figure
+from pytest_ratefloor.settings import Isolation
 
 if TYPE_CHECKING:
     from typing_extensions import Unpack
@@ -74,6 +75,9 @@ def junit_properties(m: Measurement) -> list[tuple[str, str | int | float]]:
     return out
 
 
+#: the fixture's default ``isolate`` for each ini ``ratefloor_isolate``
+_ISOLATE: dict[Isolation, bool | None] = {"session": None, "check": True, "off": False}
+
 class RateFloorHarness:
     """Run the round-trip and rate checks inside a test and record every measurement.
 
@@ -83,7 +87,8 @@ class RateFloorHarness:
     properties, ``on_measurement`` sees every measurement, and ``save_dir``
     (called only when a damaged-stream check fails) says where the damaged
     streams go, and ``isolate`` is the default for checks that do not say
-    (the run's ini ``ratefloor_isolate``; see :mod:`pytest_ratefloor.isolation`).
+    (``None``: as the run decides; the fixture passes the run's ini
+    ``ratefloor_isolate``; see :mod:`pytest_ratefloor.isolation`).
     """
 
     def __init__(
@@ -91,7 +96,7 @@ class RateFloorHarness:
         node: Any = None,
         on_measurement: Callable[[Measurement], None] | None = None,
         save_dir: SaveDir | None = None,
-        isolate: bool = True,
+        isolate: bool | None = None,
     ) -> None:
         self.node = node
         self._on_measurement = on_measurement
@@ -109,7 +114,7 @@ class RateFloorHarness:
             session.gate_measurement(item, m)
 
         return cls(item, on_measurement, save_dir=lambda: request.getfixturevalue("tmp_path"),
-                   isolate=session.settings.isolate)
+                   isolate=_ISOLATE[session.settings.isolate])
 
     def _record(self, m: Measurement) -> None:
         __tracebackhide__ = True  # a ledger regression raised below belongs to the user's test

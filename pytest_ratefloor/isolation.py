@@ -8,31 +8,40 @@ stops as if the user had pressed Ctrl-C. If it leaves a non-daemon thread
 or a child process running, the run hangs at exit for as long as they live.
 
 :func:`guarded` runs the codec-facing part of a check so that each of these
-becomes a :class:`~pytest_ratefloor.errors.CodecMisbehaviour` of that case:
+becomes a :class:`~pytest_ratefloor.errors.CodecMisbehaviour` of that case,
+or, where the process itself ends, a failed run that names the check:
 
-* **isolated** (the default where ``fork`` is safe: Linux and other POSIX
-  systems except macOS, the same rule as the damaged-stream worker): the
-  work runs in a forked child, which sends back its result (or the failure
-  it raised, with the codec's traceback as text) through a pipe and ends.
-  Whatever the codec does to that process — exit with any status, die on a
-  signal, raise ``KeyboardInterrupt``/``SystemExit``, start threads or
-  processes that outlive the work — is seen by the parent, which names it
-  and the step the check was at (:func:`step`). A Ctrl-C from the user
-  reaches the parent too and stops the session as usual (the child is
-  killed). Costs one ``fork`` per check (see ``benchmarks/bench_check.py``).
+* **watched, in process** (the default in a pytest run where ``fork`` is
+  safe: Linux and other POSIX systems except macOS, the same rule as the
+  damaged-stream worker): the session runs under a
+  :mod:`~pytest_ratefloor.supervisor`, a parent process forked once when
+  the run starts, or in an xdist worker, whose controller sees it end. The
+  work runs in the test process under the in-process guards below and notes
+  its case and step (:func:`step`) on a page the supervisor shares. If the
+  codec ends the process anyway (native code calling ``exit()`` or
+  ``_exit()``, a fatal signal), the supervisor names the case and step and
+  the run's exit status is not 0; the tests after it do not run. Costs about
+  a microsecond per step (see ``benchmarks/bench_check.py``).
+* **isolated** (``isolate=True``; the default outside such a run, e.g. a
+  script, or a pytest run nested in another process's run): the work runs
+  in a forked child, which sends back its result (or the failure it raised,
+  with the codec's traceback as text) through a pipe and ends. Whatever
+  the codec does to that process — exit with any status, die on a signal,
+  raise ``KeyboardInterrupt``/``SystemExit``, start threads or processes
+  that outlive the work — is seen by the parent, which fails that case
+  only, naming it and the step; the tests after it still run. A Ctrl-C
+  from the user reaches the parent too and stops the session as usual (the
+  child is killed). Costs one ``fork`` per check, about 2.5 ms of CPU.
   What the codec changes in its own objects during the check stays in the
   child: a test that inspects a codec's state after a check sees it as it
-  was before.
-* **in process** (``isolate=False``, or where ``fork`` is unavailable):
-  ``os._exit`` is intercepted while the work runs, ``KeyboardInterrupt``
-  and ``SystemExit`` raised by the codec (not by a real Ctrl-C, which is
-  told apart by its signal) fail the case, and threads or child processes
-  the work left behind are named. A C-level ``exit()`` cannot be caught in
-  process: use isolation for codecs with native code.
-
-A codec that keeps a thread pool created *before* the check cannot use it
-in a forked child (its threads do not exist there); such a codec needs
-``isolate=False`` (ini ``ratefloor_isolate = false``).
+  was before. A codec that keeps a thread pool created *before* the check
+  cannot use it in a forked child (its threads do not exist there).
+* **in process** (``isolate=False``, ini ``ratefloor_isolate = false``, or
+  where ``fork`` is unavailable): ``os._exit`` is intercepted while the
+  work runs, ``KeyboardInterrupt`` and ``SystemExit`` raised by the codec
+  (not by a real Ctrl-C, which is told apart by its signal) fail the case,
+  and threads or child processes the work left behind are named. Without a
+  watching process, a C-level ``exit()`` cannot be caught.
 """
 
 from __future__ import annotations
@@ -40,7 +49,6 @@ from __future__ import annotations
 import atexit
 import contextlib
 import gc
-import mmap
 import os
 import pickle
 import signal
@@ -55,9 +63,11 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, NoReturn, TypeVar
 
+from pytest_ratefloor.boards import StepBoard
 from pytest_ratefloor.errors import CodecMisbehaviour, CodecTraceback, RateFloorFailure
 
-__all__ = ["FORK_AVAILABLE", "guarded", "reap_children", "step"]
+__all__ = ["FORK_AVAILABLE", "Watch", "default_isolate", "guarded", "pop_watch", "push_watch",
+           "reap_children", "step", "watched_runs"]
 
 T = TypeVar("T")
 
@@ -79,55 +89,15 @@ _CHILD_BROKEN = 70
 _START = "starting the check"
 
 
-class _StepBoard:
-    """A page of memory shared with a forked child, where :func:`step` notes what the
-    check is doing; the parent reads it only when the child ends without a result.
-
-    A check notes some 17 steps (every edge case is two); through the result
-    pipe each one cost a ``write`` and a wake-up of the waiting parent. Here
-    it is a copy into memory. Two slots and a byte naming the one to read: the
-    child writes a step into the other slot, then flips the byte, so a child
-    killed while writing leaves the last whole step. A step longer than
-    :attr:`SLOT` bytes of UTF-8 is cut there.
-    """
-
-    SIZE = 4096
-    SLOT = (SIZE - 8) // 2 - 4  # bytes of text; each slot is a 4-byte length and the text
-
-    def __init__(self) -> None:
-        self.memory = mmap.mmap(-1, self.SIZE)  # anonymous: shared with children forked later
-
-    def _offset(self, slot: int) -> int:
-        return 8 + slot * (4 + self.SLOT)
-
-    def clear(self) -> None:
-        """No step yet (read as "starting the check")."""
-        self.memory[0] = 0
-        self.memory[8:12] = bytes(4)
-
-    def write(self, text: str) -> None:
-        data = text.encode("utf-8", "replace")[: self.SLOT]
-        slot = 1 - self.memory[0]
-        at = self._offset(slot)
-        self.memory[at:at + 4] = len(data).to_bytes(4, "little")
-        self.memory[at + 4:at + 4 + len(data)] = data
-        self.memory[0] = slot
-
-    def read(self) -> str:
-        at = self._offset(self.memory[0] & 1)
-        length = min(int.from_bytes(self.memory[at:at + 4], "little"), self.SLOT)
-        return self.memory[at + 4:at + 4 + length].decode("utf-8", "replace") or _START
+_boards: dict[int, StepBoard] = {}
 
 
-_boards: dict[int, _StepBoard] = {}
-
-
-def _board() -> _StepBoard:
+def _board() -> StepBoard:
     """This process's board (a child running a nested check makes its own)."""
     board = _boards.get(os.getpid())
     if board is None:
         _boards.clear()  # inherited from the parent: not ours to reuse
-        board = _boards[os.getpid()] = _StepBoard()
+        board = _boards[os.getpid()] = StepBoard()
     return board
 
 
@@ -136,7 +106,7 @@ class _Progress:
     """Where the current check is (a forked child also notes it on its parent's board)."""
 
     text: str = _START
-    board: _StepBoard | None = None
+    board: StepBoard | None = None
 
 
 _progress = _Progress()
@@ -149,19 +119,69 @@ def step(text: str) -> None:
         _progress.board.write(text)
 
 
-def guarded(work: Callable[[], T], *, case: str, isolate: bool = True) -> T:
+@dataclass(frozen=True)
+class Watch:
+    """What sees this process end while a check runs in it.
+
+    ``by`` names the watcher in messages; ``case``/``step`` are the boards a
+    :mod:`~pytest_ratefloor.supervisor` reads when the process ends without
+    finishing its run (``None`` where the watcher reads none: an xdist
+    controller names the test that was running).
+    """
+
+    by: str
+    case: StepBoard | None = None
+    step: StepBoard | None = None
+
+
+#: one entry per pytest run in this process, innermost last; ``None``: nothing
+#: watches that run, so its checks fork a child each (see :func:`default_isolate`)
+_watches: list[Watch | None] = []
+
+
+def push_watch(watch: Watch | None) -> None:
+    """A pytest run starts in this process, watched by ``watch`` (or by nothing)."""
+    _watches.append(watch)
+
+
+def pop_watch(watch: Watch | None) -> None:
+    """The run that pushed ``watch`` ends (the innermost run with that watch)."""
+    for at in range(len(_watches) - 1, -1, -1):
+        if _watches[at] is watch:
+            del _watches[at]
+            return
+
+
+def watched_runs() -> int:
+    """How many pytest runs in this process have started and not ended (nesting depth)."""
+    return len(_watches)
+
+
+def _watch() -> Watch | None:
+    return _watches[-1] if _watches else None
+
+
+def default_isolate() -> bool:
+    """Whether a check that does not say forks a child: yes unless something watches the run."""
+    return _watch() is None
+
+
+def guarded(work: Callable[[], T], *, case: str, isolate: bool | None = None) -> T:
     """Run ``work`` (which calls the codec) so that the codec cannot end the session.
 
     ``case`` names the codec and sample in messages (``codec 'x' on ...``).
-    With ``isolate`` (and :data:`FORK_AVAILABLE`) the work runs in a forked
-    child and its return value must pickle; otherwise it runs in this
-    process under the in-process guards described in the module docstring.
+    With ``isolate`` (``None``: :func:`default_isolate`) and
+    :data:`FORK_AVAILABLE` the work runs in a forked child and its return
+    value must pickle; otherwise it runs in this process under the
+    in-process guards described in the module docstring.
 
     :raises CodecMisbehaviour: the codec ended the process, raised
         ``KeyboardInterrupt``/``SystemExit``, or left threads or child
         processes running.
     """
     __tracebackhide__ = True
+    if isolate is None:
+        isolate = default_isolate()
     if isolate and FORK_AVAILABLE:
         return _in_child(work, case)
     return _in_process(work, case)
@@ -195,7 +215,7 @@ def _portable(exc: BaseException) -> BaseException:
     return copy if isinstance(copy, BaseException) else RateFloorFailure(str(exc))
 
 
-def _child_main(work: Callable[[], Any], fd: int, board: _StepBoard,
+def _child_main(work: Callable[[], Any], fd: int, board: StepBoard,
                 case: str) -> NoReturn:
     """The forked child: run the work, check what it left behind, send the outcome, end."""
     status = 0
@@ -312,13 +332,13 @@ def _in_child(work: Callable[[], T], case: str) -> T:
             with contextlib.suppress(OSError):
                 os.waitpid(pid, 0)
     if result is None:
-        raise CodecMisbehaviour(_ended_message(case, status, board.read()))
+        raise CodecMisbehaviour(_ended_message(case, status, board.read(_START)))
     outcome = pickle.loads(result)
     if outcome[0] == "ok":
         return outcome[1]
     _, exc, cause = outcome
     if not isinstance(exc, Exception):  # KeyboardInterrupt, SystemExit, GeneratorExit
-        raise CodecMisbehaviour(_base_exception_message(case, exc, board.read()))
+        raise CodecMisbehaviour(_base_exception_message(case, exc, board.read(_START)))
     if cause is not None:  # the codec's own exception (a copy), with its traceback as text
         original, text = cause
         original.__cause__ = CodecTraceback(text)
@@ -520,12 +540,29 @@ def _sigint_watch() -> Iterator[list[bool]]:
         signal.signal(signal.SIGINT, previous)
 
 
+@contextlib.contextmanager
+def _noted(watch: Watch | None, outer: StepBoard | None) -> Iterator[None]:
+    """Clear the watcher's case when the work is over (returned or raised)."""
+    try:
+        yield
+    finally:
+        _progress.board = outer
+        if watch is not None and watch.case is not None:
+            watch.case.clear()
+
+
 def _in_process(work: Callable[[], T], case: str) -> T:
     __tracebackhide__ = True
     reap_children()  # children of earlier forked checks would make _child_pids read /proc
     threads_before, children_before = _live_threads(), _child_pids()
     _progress.text = _START
-    with _sigint_watch() as sigint, _intercept_exit():
+    watch = _watch()
+    if watch is not None and watch.case is not None:  # the supervisor names the case if it ends
+        watch.case.write(case)
+        if watch.step is not None:
+            watch.step.clear()
+    outer, _progress.board = _progress.board, watch.step if watch is not None else None
+    with _sigint_watch() as sigint, _intercept_exit(), _noted(watch, outer):
         try:
             value = work()
         except _ProcessEndRequest as exc:

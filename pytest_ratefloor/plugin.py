@@ -26,12 +26,14 @@ def pytest_addoption(parser: pytest.Parser) -> None:
     add_options(parser)
 
 
+@pytest.hookimpl(tryfirst=True)  # fork the supervisor before other plugins start threads
 def pytest_configure(config: pytest.Config) -> None:
     config.addinivalue_line("markers", MARKER)
     if config.option.help or config.option.version:
         return  # --help must work even beside a broken ledger
     gate = config.stash[SESSION_KEY] = GateSession.start(config)
     config.pluginmanager.register(TestOutcomes(gate), _OUTCOMES_NAME)
+    gate.watch_process(config)
 
 
 def pytest_collection_modifyitems(items: list[pytest.Item]) -> None:
@@ -48,6 +50,9 @@ class TestOutcomes:
 
     def pytest_runtest_logreport(self, report: pytest.TestReport) -> None:
         self.gate.test_report(report)
+
+    def pytest_runtest_logstart(self, nodeid: str) -> None:
+        self.gate.test_started(nodeid)
 
 
 _OUTCOMES_NAME = "ratefloor-test-outcomes"
@@ -113,9 +118,11 @@ def pytest_terminal_summary(terminalreporter: Any, config: pytest.Config) -> Non
         terminalreporter.write_line(line.text, **({line.colour: True} if line.colour else {}))
 
 
+@pytest.hookimpl(trylast=True)  # the supervisor's "finished" is the run's last word
 def pytest_unconfigure(config: pytest.Config) -> None:
     outcomes = config.pluginmanager.get_plugin(_OUTCOMES_NAME)
     if outcomes is not None:
         config.pluginmanager.unregister(outcomes)
     if SESSION_KEY in config.stash:
+        config.stash[SESSION_KEY].end_watch()
         del config.stash[SESSION_KEY]

@@ -26,7 +26,7 @@ from typing import Any
 
 import pytest
 
-from pytest_ratefloor import report, summary
+from pytest_ratefloor import isolation, report, summary, supervisor
 from pytest_ratefloor.errors import (
     LedgerError,
     NewerLedgerError,
@@ -149,6 +149,10 @@ class GateSession:
     #: when the run started (ISO 8601, UTC) and the directory whose git commit it measured
     started: str = field(default_factory=run_started)
     rootdir: Path | None = None
+    #: what sees this process end while a check runs in it (None: checks fork a child each)
+    watch: isolation.Watch | None = None
+    #: the parent process watching this run, when one was started (see supervisor)
+    supervisor: supervisor.Supervisor | None = None
 
     @classmethod
     def start(cls, config: pytest.Config) -> GateSession:
@@ -173,6 +177,35 @@ class GateSession:
                 stacklevel=2,
             )
         return session
+
+    def watch_process(self, config: pytest.Config) -> None:
+        """Decide what sees this process end during a check, starting a supervisor if it can.
+
+        Called once the settings are read, before any test: the supervisor
+        forks here and this process (the child) runs the session on.
+        """
+        mode = self.settings.isolate
+        if mode == "off":
+            self.watch = isolation.Watch("nothing (ratefloor_isolate = false)")
+        elif mode == "session" and is_worker(config):
+            self.watch = isolation.Watch("the xdist controller")
+        elif (mode == "session" and not isolation.watched_runs()
+              and isolation.FORK_AVAILABLE and supervisor.can_supervise()):
+            self.supervisor = supervisor.start()
+            self.watch = isolation.Watch("the ratefloor supervisor", self.supervisor.case,
+                                         self.supervisor.step)
+        isolation.push_watch(self.watch)
+
+    def test_started(self, nodeid: str) -> None:
+        """A test starts (the supervisor names it if the process ends outside a check)."""
+        if self.supervisor is not None:
+            self.supervisor.test_started(nodeid)
+
+    def end_watch(self) -> None:
+        """The run has ended in order: its exit status stands (the last thing it does)."""
+        isolation.pop_watch(self.watch)
+        if self.supervisor is not None:
+            self.supervisor.finished()
 
     # -- during the tests -----------------------------------------------------------
 

@@ -14,6 +14,7 @@ import os
 import stat
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Literal
 
 import pytest
 
@@ -23,6 +24,7 @@ from pytest_ratefloor.ledger import DEFAULT_LEDGER_NAME
 __all__ = [
     "MARKER",
     "PROJECT_MARKERS",
+    "Isolation",
     "Settings",
     "add_options",
     "check_marker",
@@ -40,6 +42,8 @@ MARKER = (
 MARKER_KEYWORDS = ("slack",)
 #: The environment variable naming the CI job summary file the report is appended to.
 STEP_SUMMARY_ENV = "GITHUB_STEP_SUMMARY"
+#: ini ``ratefloor_isolate``: a supervisor over the run, a forked child per check, or neither
+Isolation = Literal["session", "check", "off"]
 #: What marks the top folder of a project when pytest found no configuration file.
 PROJECT_MARKERS = (".git", ".hg", "pyproject.toml", "setup.py", "setup.cfg")
 
@@ -57,8 +61,9 @@ class Settings:
     plot_path: Path | None
     #: CI mode: a missing ledger, a case without an entry or a stale entry fails
     strict: bool = False
-    #: run the codec of each check in a forked child (see pytest_ratefloor.isolation)
-    isolate: bool = True
+    #: how a codec is kept from ending the run unseen (see pytest_ratefloor.isolation):
+    #: "session" (a supervisor over the run), "check" (a child per check), "off"
+    isolate: Isolation = "session"
 
 
 def add_options(parser: pytest.Parser) -> None:
@@ -98,9 +103,9 @@ def add_options(parser: pytest.Parser) -> None:
     parser.addini("ratefloor_plot", "plot path (.png, .svg, .pdf)", type="string", default="")
     parser.addini("ratefloor_strict", "CI mode (see --ratefloor-strict)", type="bool",
                   default=False)
-    parser.addini("ratefloor_isolate", "run each check's codec in a forked child process so "
-                  "it cannot end or stall the session (default true)", type="bool",
-                  default=True)
+    parser.addini("ratefloor_isolate", "keep a codec from ending the run unseen: true (a "
+                  "supervisor process over the run, checks in process; the default), check "
+                  "(each check in a forked child) or false", type="string", default="true")
 
 
 def usage_slack(value: object, origin: str) -> float:
@@ -200,6 +205,24 @@ def _distinct_outputs(named: dict[str, Path | None]) -> None:
         seen[real] = name
 
 
+#: ini ``ratefloor_isolate`` values, as pytest's own bool ini values are spelt, plus "check"
+_ISOLATION_WORDS: dict[str, Isolation] = {
+    **dict.fromkeys(("true", "yes", "on", "1", "session"), "session"),
+    **dict.fromkeys(("false", "no", "off", "0"), "off"),
+    "check": "check",
+}
+
+
+def _isolation_ini(config: pytest.Config) -> Isolation:
+    value = str(config.getini("ratefloor_isolate")).strip()
+    try:
+        return _ISOLATION_WORDS[value.lower()]
+    except KeyError:
+        raise pytest.UsageError(
+            f"ini key ratefloor_isolate: expected true, check or false, got {value!r}"
+        ) from None
+
+
 def _bool_ini(config: pytest.Config, name: str) -> bool:
     try:
         return bool(config.getini(name))
@@ -262,5 +285,5 @@ def read_settings(config: pytest.Config) -> Settings:
         plot_path=plot_path,
         strict=bool(cli_strict) if cli_strict is not None else _bool_ini(config,
                                                                           "ratefloor_strict"),
-        isolate=_bool_ini(config, "ratefloor_isolate"),
+        isolate=_isolation_ini(config),
     )

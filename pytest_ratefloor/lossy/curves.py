@@ -71,7 +71,7 @@ def rd_reference(source: LossySource, distortion: object, low: float, high: floa
 
 def lossy_curve(factory: Callable[[Any], LossyCodec], source: LossySource, qualities: Sequence[Any],
                 n: int = DEFAULT_LOSSY_N, seed: int = 0, distortion: object = None, *,
-                reference: bool = False, isolate: bool = True) -> LossyCurve:
+                reference: bool = False, isolate: bool | None = None) -> LossyCurve:
     """Measure ``factory(q)`` at each quality ``q`` on the same sample of ``source``.
 
     ``reference=True`` adds R(D) of the source at 64 distortions spanning the

@@ -149,7 +149,7 @@ def _work(run: LossyRun, measure: Distortion, plan: LossyPlan
 
 def run_lossy_check(codec: LossyCodec, source: Any, plan: LossyPlan,
                     on_measurement: Callable[[Measurement], None] | None = None,
-                    default_isolate: bool = True) -> Measurement:
+                    default_isolate: bool | None = None) -> Measurement:
     """Measure, record (``on_measurement``: the ledger gate, JUnit, the summary), then raise
     the failure the plan's allowances found, if any. Returns the case record."""
     __tracebackhide__ = True

@@ -315,17 +315,18 @@ def _setup(codec: object, source: object, n: object, seed: object, distortion: o
 def _guard(work: Callable[[], _T], run: LossyRun, isolate: object) -> _T:
     __tracebackhide__ = True
     case = f"codec {run.codec.name!r} on {run.origin}"
-    return guarded(work, case=case, isolate=validation.flag(isolate, "isolate"))
+    flag = None if isolate is None else validation.flag(isolate, "isolate")
+    return guarded(work, case=case, isolate=flag)
 
 
 def measure_lossy(codec: LossyCodec, source: LossySource, n: int = DEFAULT_LOSSY_N, seed: int = 0,
-                  distortion: object = None, *, isolate: bool = True) -> LossyMeasurement:
+                  distortion: object = None, *, isolate: bool | None = None) -> LossyMeasurement:
     """Encode and decode one sample of ``source`` and measure rate, distortion and R(D).
 
     ``distortion``: ``"mse"``, ``"abs"``, ``"hamming"``, a matrix, or ``None``
     (the source's ``default_distortion``; Hamming for a finite alphabet).
-    The codec runs in a forked child unless ``isolate=False`` (see
-    :mod:`pytest_ratefloor.isolation`).
+    ``isolate``: ``True`` runs the codec in a forked child, ``False`` in this
+    process, ``None`` as the run decides (see :mod:`pytest_ratefloor.isolation`).
 
     :raises CodecMisbehaviour: the codec raised, returned the wrong type or
         length, a non-finite reconstruction, wrote into its input or was not
@@ -340,7 +341,7 @@ def measure_lossy(codec: LossyCodec, source: LossySource, n: int = DEFAULT_LOSSY
 
 def assert_lossy(codec: LossyCodec, source: LossySource, n: int = DEFAULT_LOSSY_N, seed: int = 0,
                  distortion: object = None, max_gap: float | None = None,
-                 max_distortion: float | None = None, *, isolate: bool = True
+                 max_distortion: float | None = None, *, isolate: bool | None = None
                  ) -> LossyMeasurement:
     """:func:`measure_lossy`, failing when the codec is over its allowance.
 
@@ -417,7 +418,7 @@ def _error_bound(run: LossyRun, distortion: Distortion, eps: float) -> LossyMeas
 
 def assert_error_bound(codec: LossyCodec, source: LossySource, max_abs: float,
                        n: int = DEFAULT_LOSSY_N, seed: int = 0, distortion: object = None,
-                       *, isolate: bool = True) -> LossyMeasurement:
+                       *, isolate: bool | None = None) -> LossyMeasurement:
     """Every reconstructed sample within ``max_abs`` of its original (``|x − x̂| ≤ max_abs``).
 
     Returns the measurement (figures as :func:`measure_lossy`) when it passes.

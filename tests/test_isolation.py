@@ -45,7 +45,7 @@ def _exit_in_decoder(data: bytes) -> bytes:
 @needs_fork
 def test_os_exit_in_the_child_fails_the_case_with_the_status_and_the_step() -> None:
     with pytest.raises(CodecMisbehaviour) as info:
-        check(_codec(_exit_in_decoder), SOURCE, n=N, rel=0.5)
+        check(_codec(_exit_in_decoder), SOURCE, n=N, rel=0.5, isolate=True)
     text = str(info.value)
     assert text.startswith("codec 'z' on uniform(k=16), n=2000, seed=0: ")
     assert "ended with exit status 0" in text
@@ -68,7 +68,7 @@ def test_a_c_level_exit_is_caught_in_the_child() -> None:
         return data
 
     with pytest.raises(CodecMisbehaviour, match="ended with exit status 0"):
-        measure(_codec(c_exit), SOURCE, n=N)
+        measure(_codec(c_exit), SOURCE, n=N, isolate=True)
 
 
 @needs_fork
@@ -78,7 +78,7 @@ def test_a_fatal_signal_is_named() -> None:
         return data
 
     with pytest.raises(CodecMisbehaviour, match="was killed by SIGKILL"):
-        assert_roundtrip(_codec(crash), SOURCE, n=N)
+        assert_roundtrip(_codec(crash), SOURCE, n=N, isolate=True)
 
 
 @pytest.mark.parametrize("isolate", [True, False])
@@ -165,7 +165,7 @@ def test_the_codec_state_changes_stay_in_the_child() -> None:
         calls.append(len(data))
         return zlib.compress(data)
 
-    check(_codec(compress=counting), SOURCE, n=N, rel=0.5, edge_cases=False)
+    check(_codec(compress=counting), SOURCE, n=N, rel=0.5, edge_cases=False, isolate=True)
     assert calls == []
     check(_codec(compress=counting), SOURCE, n=N, rel=0.5, edge_cases=False, isolate=False)
     assert calls != []
@@ -200,9 +200,21 @@ def test_after(ratefloor):
 def test_a_pytest_run_with_a_process_ending_codec_does_not_exit_0(
     pytester: pytest.Pytester,
 ) -> None:
+    """The default run: checks in process under the supervisor; os._exit is intercepted."""
     pytester.makepyfile(test_codecs=PLUGIN_CASE)
     result = pytester.runpytest_subprocess("-p", "no:cacheprovider")
     result.assert_outcomes(passed=1, failed=2)  # the session went on after both
+    assert result.ret == pytest.ExitCode.TESTS_FAILED
+    result.stdout.fnmatch_lines(["*codec 'ender'*called os._exit(0)*"])
+    result.stdout.fnmatch_lines(["*codec 'ctrl'*raised KeyboardInterrupt*"])
+
+
+@needs_fork
+def test_checks_forked_one_by_one_name_the_exit_status(pytester: pytest.Pytester) -> None:
+    pytester.makeini("[pytest]\nratefloor_isolate = check\n")
+    pytester.makepyfile(test_codecs=PLUGIN_CASE)
+    result = pytester.runpytest_subprocess("-p", "no:cacheprovider")
+    result.assert_outcomes(passed=1, failed=2)
     assert result.ret == pytest.ExitCode.TESTS_FAILED
     result.stdout.fnmatch_lines(["*codec 'ender'*ended with exit status 0*"])
     result.stdout.fnmatch_lines(["*codec 'ctrl'*raised KeyboardInterrupt*"])

@@ -23,6 +23,7 @@ from pathlib import Path
 import pytest
 
 from pytest_ratefloor import isolation, sources
+from pytest_ratefloor.boards import StepBoard
 from pytest_ratefloor.checks import check
 from pytest_ratefloor.codecs import ByteCodec
 from pytest_ratefloor.errors import CodecMisbehaviour
@@ -38,17 +39,18 @@ SOURCE = sources.uniform(16)
 
 
 def test_the_board_reads_back_the_last_step_and_starts_empty() -> None:
-    board = isolation._StepBoard()
-    assert board.read() == "starting the check"
+    board = StepBoard()
+    assert board.read() == ""
+    assert board.read("starting the check") == "starting the check"
     board.write("encoding the sample")
     board.write("décodage — 解码")  # non-ASCII survives as UTF-8
-    assert board.read() == "décodage — 解码"
+    assert board.read("starting the check") == "décodage — 解码"
     board.clear()
-    assert board.read() == "starting the check"
+    assert board.read("starting the check") == "starting the check"
 
 
 def test_a_step_cut_off_mid_write_leaves_the_last_whole_one() -> None:
-    board = isolation._StepBoard()
+    board = StepBoard()
     board.write("decoding the sample")
     # what a child killed inside write() leaves: the other slot half written, not shown
     hidden = board._offset(1 - board.memory[0])
@@ -58,7 +60,7 @@ def test_a_step_cut_off_mid_write_leaves_the_last_whole_one() -> None:
 
 
 def test_a_step_longer_than_a_slot_is_cut_to_it() -> None:
-    board = isolation._StepBoard()
+    board = StepBoard()
     text = "é" * board.SLOT  # 2 bytes each in UTF-8: the cut lands on a character
     board.write(text)
     read = board.read()
@@ -77,7 +79,7 @@ def test_a_child_killed_after_many_steps_is_named_at_its_last_step() -> None:
         os.kill(os.getpid(), signal.SIGKILL)
 
     with pytest.raises(CodecMisbehaviour, match=r"killed by SIGKILL .* while step 199;"):
-        isolation.guarded(work, case="codec 'k' on test")
+        isolation.guarded(work, case="codec 'k' on test", isolate=True)
 
 
 @needs_fork
@@ -88,26 +90,27 @@ def test_a_check_nested_in_the_child_names_its_own_step_and_leaves_the_outer_boa
 
     def nested_failure() -> None:
         isolation.step("outer encoding")
-        isolation.guarded(inner, case="codec 'in' on test")
+        isolation.guarded(inner, case="codec 'in' on test", isolate=True)
 
     with pytest.raises(CodecMisbehaviour,
                        match=r"codec 'in' on test: .*exit status 3 .* while inner decoding;"):
-        isolation.guarded(nested_failure, case="codec 'out' on test")
+        isolation.guarded(nested_failure, case="codec 'out' on test", isolate=True)
 
     def outer_after_nested() -> None:
         isolation.step("outer encoding")
-        isolation.guarded(lambda: isolation.step("inner decoding"), case="codec 'in' on test")
+        isolation.guarded(lambda: isolation.step("inner decoding"), case="codec 'in' on test",
+                          isolate=True)
         os._exit(4)  # the nested check's steps were its own: the outer one is still here
 
     with pytest.raises(CodecMisbehaviour,
                        match=r"codec 'out' on test: .*exit status 4 .* while outer encoding;"):
-        isolation.guarded(outer_after_nested, case="codec 'out' on test")
+        isolation.guarded(outer_after_nested, case="codec 'out' on test", isolate=True)
 
 
 @needs_fork
 def test_a_large_result_comes_back_whole() -> None:
     blob = bytes(range(256)) * 8192  # 2 MiB: many pipe buffers
-    assert isolation.guarded(lambda: blob, case="codec 'big' on test") == blob
+    assert isolation.guarded(lambda: blob, case="codec 'big' on test", isolate=True) == blob
 
 
 # -- child processes: waitid first, /proc only when there are any ----------------------------
@@ -153,12 +156,12 @@ def test_a_fresh_child_has_no_children_until_the_codec_starts_one() -> None:
         proc.wait()
         return alone, running, isolation._has_children()
 
-    assert isolation.guarded(work, case="codec 'p' on test") == (False, True, False)
+    assert isolation.guarded(work, case="codec 'p' on test", isolate=True) == (False, True, False)
 
 
 @needs_fork
 def test_an_in_process_check_first_reaps_the_children_of_earlier_forked_ones() -> None:
-    isolation.guarded(lambda: None, case="codec 'f' on test")
+    isolation.guarded(lambda: None, case="codec 'f' on test", isolate=True)
     pids = list(isolation._ending)
     assert pids  # the forked child is reaped later, not while the test waits
     isolation.guarded(lambda: None, case="codec 'i' on test", isolate=False)
@@ -205,7 +208,7 @@ def test_the_child_freezes_what_it_inherited_and_still_collects_its_own_cycles()
         del a, b
         return frozen, gc.collect()
 
-    frozen, collected = isolation.guarded(work, case="codec 'gc' on test")
+    frozen, collected = isolation.guarded(work, case="codec 'gc' on test", isolate=True)
     assert frozen > before  # the inherited objects left the collector's view in the child
     assert collected >= 2  # the two nodes of the cycle the work made, found and freed
     assert gc.get_freeze_count() == before  # and nothing changed in this process

@@ -3,29 +3,32 @@
 Workload: zlib level 6 (through ``ByteCodec``, packing ``u8``) on ``uniform(256)``,
 at the default n = 10⁵ and at n = 4·10⁶.
 
-* **check** — ``pytest_ratefloor.checks.check(...)``: sample, encode once,
-  decode once, compare, contract checks on a 4 096-symbol slice, floor,
-  self-information, fingerprint, rate verdict; with edge cases on (the
-  default: the probe cases run in every check, the others once per codec and
-  input in the session, see ``edge_cases.PassedEdgeCases``) and off; each in
-  a forked child (the default) and in process (``isolate=False``).
+The script first does what the plugin does when a pytest run starts
+(``supervisor.watch_run("session")``): it forks the supervisor and goes on in
+the child, so the checks below run exactly as a check that does not say
+``isolate=`` runs in a pytest run.
+
+* **check, default** — ``pytest_ratefloor.checks.check(...)`` as in a pytest
+  run: in process, noting its case and steps for the supervisor. Sample,
+  encode once, decode once, compare, contract checks on a 4 096-symbol
+  slice, floor, self-information, fingerprint, rate verdict; with edge cases
+  on (the default: the probe cases run in every check, the others once per
+  codec and input in the session, see ``edge_cases.PassedEdgeCases``) and off.
+* **check, isolate=True** — the same in a forked child per check, for
+  comparison (what ``ratefloor_isolate = check`` or ``isolate=True`` asks for).
 * **bare** — what a hand-written test does: sample, pack to bytes,
   ``zlib.compress``, ``zlib.decompress``, unpack, ``numpy.array_equal``.
 * **fork, no work** (forked group only) — ``isolation.guarded`` of a function
-  that does nothing: the fixed cost of a fork per check (the ``fork`` call,
-  the child's start and exit, the copy-on-write faults of both processes
-  afterwards). A forked check costs this plus the faults of every page its
-  work writes (each is first written in a fresh child); no change to the
-  check itself brings "forked" below "in process" + this line.
+  that does nothing in a forked child: the fixed cost of a fork per check.
 
 Sampling the source is part of **both** sides (the same ``source.sample``
 call). Each side is run ``--repeat`` times, interleaved, and the minimum is
 taken, both of wall time and of CPU time of this process and its children
-(the latter is less disturbed by other work on a shared machine). The first
-check of the codec (which runs every edge case) is outside the timing and
-reported on its own line. Targets: check with edge cases on / bare ≤ 1.3 at
-n = 10⁵ and ≤ 1.05 at n = 4·10⁶ (in process; the forked child's cost is shown
-beside it).
+(the latter is less disturbed by other work on a shared machine; the
+supervisor only waits, so it costs none). The first check of the codec
+(which runs every edge case) is outside the timing and reported on its own
+line. Targets: default check with edge cases on / bare ≤ 1.3 at n = 10⁵ and
+≤ 1.05 at n = 4·10⁶.
 
 Run: ``python benchmarks/bench_check.py [--n 100000 4000000] [--repeat 7]``.
 """
@@ -40,7 +43,7 @@ from collections.abc import Callable
 
 import numpy as np
 
-from pytest_ratefloor import checks, isolation, sources
+from pytest_ratefloor import checks, isolation, sources, supervisor
 from pytest_ratefloor.codecs import ByteCodec
 
 
@@ -96,27 +99,28 @@ def _interleaved(sides: dict[str, Callable[[], object]],
 
 
 def _one_size(codec: ByteCodec, source: sources.Source, n: int, repeat: int) -> None:
-    def run_check(edge: bool, isolate: bool) -> Callable[[], object]:
+    def run_check(edge: bool, isolate: bool | None) -> Callable[[], object]:
         return lambda: checks.check(codec, source, n=n, rel=0.01, edge_cases=edge,
                                     isolate=isolate)
 
-    first = _timed(run_check(True, False))  # the codec's first check at this n: every case
+    first = _timed(run_check(True, None))  # the codec's first check at this n: every case
     m = checks.check(codec, source, n=n, rel=0.01, edge_cases=False)
     print(f"\nn = {n}: zlib-6 via ByteCodec(u8) on {source.spec}; {m.rate:.4f} bits/symbol; "
           f"sampling included on both sides; min of {repeat}")
     print(f"{'side':<30}{'wall ms':>10}{'cpu ms':>10}{'wall ratio':>12}{'cpu ratio':>11}")
     # Two groups, each with its own bare runs: a fork trims the parent's heap first
     # (isolation._release_free_heap), which would tax an in-process check run after it
-    # in a way no run of only in-process checks (isolate=False) sees.
+    # in a way no run of only in-process checks sees.
     target = TARGETS.get(n)
-    for where, isolate in (("in process", False), ("forked", True)):
+    for where, isolate in (("default", None), ("isolate=True", True)):
         sides: dict[str, Callable[[], object]] = {
             "bare": lambda: bare(source, n),
             f"edge cases on, {where}": run_check(True, isolate),
             f"edge cases off, {where}": run_check(False, isolate),
         }
         if isolate:
-            sides["fork, no work"] = lambda: isolation.guarded(_nothing, case="no work")
+            sides["fork, no work"] = lambda: isolation.guarded(_nothing, case="no work",
+                                                               isolate=True)
         times = _interleaved(sides, repeat)
         best = {k: (min(w for w, _ in v), min(c for _, c in v)) for k, v in times.items()}
         bw, bc = best["bare"]
@@ -125,11 +129,11 @@ def _one_size(codec: ByteCodec, source: sources.Source, n: int, repeat: int) -> 
         spread = {k: max(c for _, c in v) / min(c for _, c in v) for k, v in times.items()}
         print("  noise (slowest / fastest repeat, cpu): "
               + ", ".join(f"{k} {v:.2f}" for k, v in spread.items()))
-        if target is not None:
+        if target is not None and isolate is None:
             on = best[f"edge cases on, {where}"]
-            print(f"  target: check (edge cases on) / bare <= {target} ({where}): "
+            print(f"  target: check (edge cases on) / bare <= {target}: "
                   f"cpu {on[1] / bc:.3f}, wall {on[0] / bw:.3f}")
-        if not isolate:
+        if isolate is None:
             print(f"{'first check (all cases)':<30}{first[0] * 1e3:10.1f}"
                   f"{first[1] * 1e3:10.1f}{first[0] / bw:12.3f}{first[1] / bc:11.3f}")
 
@@ -139,6 +143,8 @@ def main() -> None:
     parser.add_argument("--n", type=int, nargs="+", default=[100_000, 4_000_000])
     parser.add_argument("--repeat", type=int, default=7)
     args = parser.parse_args()
+    watcher, watch = supervisor.watch_run("session")  # as a pytest run starts: forks here
+    isolation.push_watch(watch)
     source = sources.uniform(256)
     codec = ByteCodec(_compress, zlib.decompress, name="zlib-6", packing="u8")
     # warm-up (imports, caches) outside the timing, on another codec object
@@ -149,6 +155,11 @@ def main() -> None:
     print("bare = sample + pack + zlib.compress + zlib.decompress + unpack + numpy.array_equal")
     for n in args.n:
         _one_size(codec, source, n, args.repeat if n <= 1_000_000 else max(3, args.repeat // 2))
+    isolation.reap_children()
+    print("\ndefault checks ran " + ("in process, under the supervisor" if watcher is not None
+                                     else "in a forked child each (no supervisor here)"))
+    if watcher is not None:
+        watcher.finished()
 
 
 if __name__ == "__main__":

@@ -142,7 +142,8 @@ class CorruptionFailure(RateFloorFailure):
 class CodecTraceback(Exception):
     """The traceback of an exception the codec raised in the check's child process.
 
-    A check runs the codec in a forked child (see :mod:`pytest_ratefloor.isolation`);
+    A check with ``isolate=True`` runs the codec in a forked child (see
+    :mod:`pytest_ratefloor.isolation`);
     the child's exception objects cannot carry their traceback back, so its
     text is attached as the ``__cause__`` of the failure the test shows (the
     same device the standard library's process pools use).

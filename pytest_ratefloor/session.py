@@ -184,16 +184,8 @@ class GateSession:
         Called once the settings are read, before any test: the supervisor
         forks here and this process (the child) runs the session on.
         """
-        mode = self.settings.isolate
-        if mode == "off":
-            self.watch = isolation.Watch("nothing (ratefloor_isolate = false)")
-        elif mode == "session" and is_worker(config):
-            self.watch = isolation.Watch("the xdist controller")
-        elif (mode == "session" and not isolation.watched_runs()
-              and isolation.FORK_AVAILABLE and supervisor.can_supervise()):
-            self.supervisor = supervisor.start()
-            self.watch = isolation.Watch("the ratefloor supervisor", self.supervisor.case,
-                                         self.supervisor.step)
+        self.supervisor, self.watch = supervisor.watch_run(self.settings.isolate,
+                                                           xdist_worker=is_worker(config))
         isolation.push_watch(self.watch)
 
     def test_started(self, nodeid: str) -> None:

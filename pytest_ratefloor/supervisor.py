@@ -39,9 +39,10 @@ import sys
 import threading
 from typing import NoReturn
 
+from pytest_ratefloor import isolation
 from pytest_ratefloor.boards import StepBoard
 
-__all__ = ["Supervisor", "can_supervise", "start"]
+__all__ = ["Supervisor", "can_supervise", "start", "watch_run"]
 
 #: signals the parent passes on to the child
 _PASSED_ON = (signal.SIGTERM, signal.SIGHUP, signal.SIGINT, signal.SIGQUIT,
@@ -112,6 +113,27 @@ def _signal_name(number: int) -> str:
         return signal.Signals(number).name
     except ValueError:
         return f"signal {number}"
+
+
+def watch_run(mode: str, *, xdist_worker: bool = False
+              ) -> tuple[Supervisor | None, isolation.Watch | None]:
+    """What will see this process end during a check, for a run with ini ``ratefloor_isolate``
+    ``mode`` ("session", "check" or "off"); starts the supervisor (forks) when it can.
+
+    The caller pushes the watch (:func:`pytest_ratefloor.isolation.push_watch`)
+    and, at the run's end, pops it and calls :meth:`Supervisor.finished`.
+    """
+    if mode == "off":
+        return None, isolation.Watch("nothing (ratefloor_isolate = false)")
+    if mode != "session":
+        return None, None
+    if xdist_worker:
+        return None, isolation.Watch("the xdist controller")
+    if isolation.watched_runs() or not isolation.FORK_AVAILABLE or not can_supervise():
+        return None, None
+    supervisor = start()
+    return supervisor, isolation.Watch("the ratefloor supervisor", supervisor.case,
+                                       supervisor.step)
 
 
 def can_supervise() -> bool:

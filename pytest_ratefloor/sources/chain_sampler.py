@@ -63,7 +63,6 @@ import numpy as np
 
 from pytest_ratefloor.sources.sampling import (
     _CHUNK,
-    _POSITIONAL_MAX,
     _WORD,
     _InverseCdf,
     _thresholds_from_weights,
@@ -71,6 +70,7 @@ from pytest_ratefloor.sources.sampling import (
 )
 
 #: Most entries (states × classes) the lockstep table may hold; above it the per-state guide.
+_CLASSES_MAX = 1 << 17  # most merged thresholds the step table is built for
 _TABLE_ENTRIES = 1 << 21
 #: Longest chunk of the guide path (chains that forget slowly get longer chunks and warm-ups).
 _LONGEST = 8192
@@ -193,7 +193,7 @@ class _ChainSampler:
         reachable = np.array([t for t in self.thresholds if t < _WORD], dtype=np.uint64)
         merged = np.unique(reachable)  # every state's thresholds below 2**64, merged
         classes = merged.size + 1
-        if states * classes > _TABLE_ENTRIES or merged.size > _POSITIONAL_MAX:
+        if states * classes > _TABLE_ENTRIES or merged.size > _CLASSES_MAX:
             self._build_guide()  # too large for the table (or for a 16-bit guide of the classes)
             return
         # class m holds the words in [lower_m, next lower); lower_0 = 0

@@ -45,7 +45,6 @@ _WORD = 1 << 64  # number of distinct raw words
 _INT64_MIN = -(1 << 63)
 _LOW48 = (1 << 48) - 1  # a word's bits below the top 16
 _CHUNK = 1 << 16  # words per step: keeps the working arrays in cache
-_POSITIONAL_MAX = 1 << 17  # longest table drawn through the alias layout (then: a wider guide)
 
 
 # --------------------------------------------------------------------------
@@ -140,8 +139,11 @@ class _InverseCdf:
     Longer tables keep the inverse CDF (their samples were always drawn that
     way) in the same layout (:meth:`_build_positional`), and so does an
     ``ordered`` table (the chain sampler needs the index of the word's
-    interval, not only a symbol of the right mass); beyond 2**17 thresholds
-    the guide grows to up to 2**20 cells instead.
+    interval, not only a symbol of the right mass). A cell holding two or
+    more thresholds is split again on the word's next bits into about two
+    sub-cells per threshold (:meth:`_refine`), so even a table of 2**20
+    symbols or more resolves almost every word with one or two lookups and
+    one comparison; any answer is the same ``#{i : T[i] <= u}``.
     """
 
     def __init__(
@@ -163,7 +165,10 @@ class _InverseCdf:
         self._sentinel = 0
         self._alias: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None
         self._positional = False  # the alias layout holds the inverse CDF (long tables)
-        self._bits = 16  # guide cells: the top _bits bits of a word (more for very long tables)
+        #: cells holding 2+ thresholds, split again (see _refine): per cell a base and a
+        #: shift (a word's entry is its bits above the shift plus the base); per sub-cell
+        #: the thresholds at or below its start (one more entry closes each cell)
+        self._refined: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None
 
     def _build_alias(self) -> None:
         """Integer alias table over 65536 buckets of 2**48 words each."""
@@ -243,12 +248,6 @@ class _InverseCdf:
         self._alias = (limits, cut16, np.concatenate([below, second]))
         self._positional = True
 
-    def _cells(self, words: np.ndarray) -> np.ndarray:
-        """Each word's guide cell: its top 16 bits, or top ``_bits`` bits of a wide guide."""
-        if self._bits == 16:
-            return _top16(words)
-        return (words >> np.uint64(64 - self._bits)).astype(np.intp)
-
     def _search(self, words: np.ndarray) -> np.ndarray:
         """Symbols for words whose guide cell holds thresholds (binary search)."""
         return self.values[np.searchsorted(self.thresholds, words, side="right")]
@@ -258,37 +257,75 @@ class _InverseCdf:
 
         Only the thresholds inside the word's guide cell can lie between the
         word and the cell's start: one comparison decides when the cell holds
-        one threshold, a binary search bounded by the cell when it holds up to
-        16, and a search of the whole table beyond (cells that crowded hold
-        symbols of tiny mass, so few words land in them).
+        one threshold; a cell holding more is split again (:meth:`_refine`).
         """
         self._guide_table()
-        cells = self._cells(words)
+        cells = _top16(words)
         low = self._first[cells]
         if self.thresholds.size == 0:
             return low
         count = self._inside[cells]
         last = np.minimum(low, self.thresholds.size - 1)
         row = low + ((count > 0) & (self.thresholds[last] <= words))
-        # a few thresholds in the cell: a binary search bounded by the cell;
-        # many (the far tail of a long table, rarely hit): numpy's search of the whole table
-        crowded = count > 16
-        many = np.flatnonzero((count > 1) & ~crowded)
+        many = np.flatnonzero(count > 1)
         if many.size:
-            lo = low[many]
-            hi = lo + count[many]
-            w = words[many]
-            for _ in range(5):  # 2**5 > 16
-                mid = (lo + hi) >> 1
-                up = (lo < hi) & (self.thresholds[np.minimum(mid, hi - 1)] <= w)
-                down = (lo < hi) & ~up
-                lo = np.where(up, mid + 1, lo)
-                hi = np.where(down, mid, hi)
-            row[many] = lo
-        far = np.flatnonzero(crowded)
-        if far.size:
-            row[far] = np.searchsorted(self.thresholds, words[far], side="right")
+            row[many] = self._refined_rows(words[many], cells[many])
         return row
+
+    #: rounds of one comparison each in a sub-cell before a search of the whole table
+    _STEPS = 4
+
+    def _refined_rows(self, words: np.ndarray, cells: np.ndarray) -> np.ndarray:
+        """:meth:`rows` of words whose cell holds two or more thresholds."""
+        if self._refined is None:
+            self._refine()
+        assert self._refined is not None
+        base, shift, first = self._refined
+        sub = base[cells] + (words >> shift[cells]).astype(np.intp)
+        row = first[sub].astype(np.intp)
+        bound = first[sub + 1]  # thresholds at or below the next sub-cell's start
+        thresholds = self.thresholds
+        # thresholds are sorted, so those <= word among the sub-cell's are a prefix
+        active = np.flatnonzero(row < bound)
+        for _ in range(self._STEPS):
+            if not active.size:
+                return row
+            up = thresholds[row[active]] <= words[active]
+            active = active[up]
+            row[active] += 1
+            active = active[row[active] < bound[active]]
+        if active.size:  # thresholds piled up (equal ones: symbols of zero mass)
+            row[active] = np.searchsorted(thresholds, words[active], side="right")
+        return row
+
+    def _refine(self) -> None:
+        """Split each cell holding c >= 2 thresholds into 2**(ceil(log2 c) + 1) sub-cells.
+
+        Two to four sub-cells per threshold, so a word's sub-cell holds none
+        or one in most cases. The number of sub-cells only decides how fast
+        a word is resolved, never its row.
+        """
+        crowded = np.flatnonzero(self._inside > 1)
+        counts = self._inside[crowded]
+        bits = np.minimum(np.ceil(np.log2(counts)).astype(np.int64) + 1, 32)
+        sizes = (np.int64(1) << bits) + 1  # one more entry closes the cell
+        ends = np.cumsum(sizes)
+        # a word w of cell c is in sub-cell (w >> shift) - (c << bits) of the cell,
+        # entry (w >> shift) + base[c] of the table
+        base = np.zeros(1 << 16, dtype=np.intp)
+        base[crowded] = ends - sizes - (crowded.astype(np.intp) << bits)
+        shift = np.zeros(1 << 16, dtype=np.uint64)
+        shift[crowded] = (48 - bits).astype(np.uint64)
+        total = int(ends[-1]) if ends.size else 0
+        cell_of = np.repeat(crowded.astype(np.uint64), sizes)
+        j = (np.arange(total, dtype=np.int64) - np.repeat(ends - sizes, sizes)).astype(np.uint64)
+        step = np.uint64(1) << np.repeat((48 - bits).astype(np.uint64), sizes)
+        # sub-cell j starts at cell << 48 plus j steps; the closing entry (j = 2**bits) is
+        # the cell's last word, so it counts every threshold of the cell
+        starts = (cell_of << np.uint64(48)) + np.minimum(j * step, np.uint64(_LOW48))
+        first = np.searchsorted(self.thresholds, starts, side="right")
+        dtype = np.int32 if self.thresholds.size < (1 << 31) else np.int64
+        self._refined = (base, shift, first.astype(dtype))
 
     def _guide_table(self) -> np.ndarray:
         if self._guide is None:
@@ -296,18 +333,15 @@ class _InverseCdf:
             if split_cells > (1 << 12) and self._resolve == self._search:
                 if self.values.size <= (1 << 16) and not self._ordered:
                     self._build_alias()
-                elif self.thresholds.size <= _POSITIONAL_MAX:
+                else:
                     self._build_positional()
-                else:  # very long: a guide of up to 2**20 cells, about two per threshold
-                    self._bits = min(20, (2 * self.thresholds.size).bit_length())
-                    self._index_cells()
         assert self._guide is not None
         return self._guide
 
     def _index_cells(self) -> int:
         """The guide: per cell the thresholds at or below its start and inside it; split cells."""
-        shift = np.uint64(64 - self._bits)
-        starts = np.arange(1 << self._bits, dtype=np.uint64) << shift
+        shift = np.uint64(48)
+        starts = np.arange(1 << 16, dtype=np.uint64) << shift
         ends = starts | ((np.uint64(1) << shift) - np.uint64(1))
         first = np.searchsorted(self.thresholds, starts, side="right")
         last = np.searchsorted(self.thresholds, ends, side="right")
@@ -332,11 +366,12 @@ class _InverseCdf:
             if not self._positional:
                 return out
         else:
-            out = guide[self._cells(words)]
+            out = guide[_top16(words)]
         split = np.flatnonzero(out == self._sentinel)
         if split.size:
-            if self._positional or self._bits > 16:  # long table: search the word's cell
-                out[split] = self.values[self.rows(words[split])]
+            if self._positional:  # the word's cell holds 2+ thresholds: its sub-cell decides
+                some = words[split]
+                out[split] = self.values[self._refined_rows(some, _top16(some))]
             else:
                 out[split] = self._resolve(words[split])
         return out

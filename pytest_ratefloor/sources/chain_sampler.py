@@ -414,11 +414,7 @@ class _ChainSampler:
             if wrong.size < _FEW:
                 break
             starts[wrong] = path[length - 1, wrong - 1]
-            rerun = np.empty((length, wrong.size), dtype=path.dtype)
-            own_words = words[:, wrong] if self._classes is None else words
-            self._run(keys[:, wrong], own_words, starts[wrong], rerun)
-            changed = wrong[rerun[length - 1] != path[length - 1, wrong]]
-            path[:, wrong] = rerun
+            changed = self._rerun(path, keys, words, wrong, starts[wrong])
             check = changed[changed + 1 < chunks] + 1
         else:
             wrong = check[starts[check] != path[length - 1, check - 1]]
@@ -429,6 +425,34 @@ class _ChainSampler:
         elif chunks > 4 * _FEW and wrong.size * 4 > chunks:
             self._slow = True
         self._repair_by_steps(path, keys, words, starts, wrong.tolist())
+
+    #: steps a repair round runs before dropping the chunks that met their stored path
+    _SEGMENT = 32
+
+    def _rerun(self, path: np.ndarray, keys: np.ndarray, words: np.ndarray,
+               lanes: np.ndarray, start: np.ndarray) -> np.ndarray:
+        """Run chunks ``lanes`` again from ``start`` in lockstep, over ``path``; the chunks
+        whose end changed.
+
+        A segment of :attr:`_SEGMENT` steps at a time; a chunk whose state at
+        a segment's end equals the stored one has met its stored path, which
+        is right from there on, so it leaves the round.
+        """
+        length = path.shape[0]
+        guided = self._classes is None
+        current = start.copy()
+        t = 0
+        while t < length and lanes.size:
+            stop = min(length, t + self._SEGMENT)
+            stored_end = path[stop - 1, lanes]  # a copy: fancy indexing
+            rerun = np.empty((stop - t, lanes.size), dtype=path.dtype)
+            own_words = words[t:stop, lanes] if guided else words
+            current = self._run(keys[t:stop, lanes], own_words, current, rerun)
+            path[t:stop, lanes] = rerun
+            apart = current != stored_end
+            lanes, current = lanes[apart], current[apart]
+            t = stop
+        return lanes
 
     def _repair_by_steps(
         self,

@@ -45,11 +45,13 @@ from pytest_ratefloor.boards import StepBoard
 __all__ = ["Supervisor", "can_supervise", "start", "watch_run"]
 
 #: signals the parent passes on to the child
-_PASSED_ON = (signal.SIGTERM, signal.SIGHUP, signal.SIGINT, signal.SIGQUIT,
-              signal.SIGUSR1, signal.SIGUSR2)
+_PASSED_ON = tuple(getattr(signal, name) for name in
+                   ("SIGTERM", "SIGHUP", "SIGINT", "SIGQUIT", "SIGUSR1", "SIGUSR2")
+                   if hasattr(signal, name))  # Windows has only some of them
 #: ``si_code`` of a signal the kernel sent (a terminal's Ctrl-C or Ctrl-\\): the child,
 #: in the same foreground process group, received it too (Linux value)
 _SI_KERNEL = 0x80
+_FROM_TERMINAL = {getattr(signal, name) for name in ("SIGINT", "SIGQUIT") if hasattr(signal, name)}
 #: exit status when the session ended with status 0 before finishing (pytest's TESTS_FAILED)
 _ENDED_EARLY = 1
 _PR_SET_PDEATHSIG = 1  # prctl option (linux/prctl.h)
@@ -149,7 +151,7 @@ def start() -> Supervisor:
         with contextlib.suppress(Exception):
             stream.flush()
     supervisor = Supervisor()
-    waited = {*_PASSED_ON, signal.SIGCHLD}
+    waited = {*_PASSED_ON, signal.SIGCHLD}  # can_supervise: a POSIX system
     # blocked before the fork, so that no signal to the parent is lost before it waits
     previous = signal.pthread_sigmask(signal.SIG_BLOCK, waited)
     parent = os.getpid()
@@ -196,7 +198,7 @@ def _wait(pid: int, waited: set[signal.Signals], passed_on: set[int]) -> int:
         info = signal.sigwaitinfo(waited)
         if info.si_signo == signal.SIGCHLD:
             continue
-        if info.si_code == _SI_KERNEL and info.si_signo in (signal.SIGINT, signal.SIGQUIT):
+        if info.si_code == _SI_KERNEL and info.si_signo in _FROM_TERMINAL:
             continue  # typed at the terminal: the child has it already
         passed_on.add(info.si_signo)
         with contextlib.suppress(ProcessLookupError):

@@ -40,7 +40,6 @@ from pytest_ratefloor.floors import DEFAULT_FLOOR, Floor
 from pytest_ratefloor.lossy.codec import LossyCodec
 from pytest_ratefloor.lossy.gating import LossyOptions, LossyPlan, run_lossy_check
 from pytest_ratefloor.measurement import Measurement, figure
-from pytest_ratefloor.settings import Isolation
 
 if TYPE_CHECKING:
     from typing_extensions import Unpack
@@ -75,8 +74,6 @@ def junit_properties(m: Measurement) -> list[tuple[str, str | int | float]]:
     return out
 
 
-#: the fixture's default ``isolate`` for each ini ``ratefloor_isolate``
-_ISOLATE: dict[Isolation, bool | None] = {"session": None, "check": True, "off": False}
 
 class RateFloorHarness:
     """Run the round-trip and rate checks inside a test and record every measurement.
@@ -87,8 +84,8 @@ class RateFloorHarness:
     properties, ``on_measurement`` sees every measurement, and ``save_dir``
     (called only when a damaged-stream check fails) says where the damaged
     streams go, and ``isolate`` is the default for checks that do not say
-    (``None``: as the run decides; the fixture passes the run's ini
-    ``ratefloor_isolate``; see :mod:`pytest_ratefloor.isolation`).
+    (``None``: as the run decides from its ini ``ratefloor_isolate``; see
+    :mod:`pytest_ratefloor.isolation`).
     """
 
     def __init__(
@@ -113,8 +110,9 @@ class RateFloorHarness:
             __tracebackhide__ = True
             session.gate_measurement(item, m)
 
-        return cls(item, on_measurement, save_dir=lambda: request.getfixturevalue("tmp_path"),
-                   isolate=_ISOLATE[session.settings.isolate])
+        # isolate=None: the run's ini ratefloor_isolate decided the process default
+        # (isolation.push_watch in GateSession.watch_process)
+        return cls(item, on_measurement, save_dir=lambda: request.getfixturevalue("tmp_path"))
 
     def _record(self, m: Measurement) -> None:
         __tracebackhide__ = True  # a ledger regression raised below belongs to the user's test

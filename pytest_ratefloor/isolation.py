@@ -121,15 +121,14 @@ def step(text: str) -> None:
 
 @dataclass(frozen=True)
 class Watch:
-    """What sees this process end while a check runs in it.
+    """Checks run in this process: something else sees it end, or the run asked for that.
 
-    ``by`` names the watcher in messages; ``case``/``step`` are the boards a
-    :mod:`~pytest_ratefloor.supervisor` reads when the process ends without
-    finishing its run (``None`` where the watcher reads none: an xdist
-    controller names the test that was running).
+    ``case``/``step`` are the boards a :mod:`~pytest_ratefloor.supervisor`
+    reads when the process ends without finishing its run (``None`` where
+    nothing reads them: an xdist controller names the test that was running;
+    ``ratefloor_isolate = false`` has no watcher at all).
     """
 
-    by: str
     case: StepBoard | None = None
     step: StepBoard | None = None
 

@@ -126,16 +126,15 @@ def watch_run(mode: str, *, xdist_worker: bool = False
     and, at the run's end, pops it and calls :meth:`Supervisor.finished`.
     """
     if mode == "off":
-        return None, isolation.Watch("nothing (ratefloor_isolate = false)")
+        return None, isolation.Watch()  # in process, unwatched: as the user asked
     if mode != "session":
         return None, None
     if xdist_worker:
-        return None, isolation.Watch("the xdist controller")
+        return None, isolation.Watch()  # the controller fails a test whose worker died
     if isolation.watched_runs() or not isolation.FORK_AVAILABLE or not can_supervise():
         return None, None
     supervisor = start()
-    return supervisor, isolation.Watch("the ratefloor supervisor", supervisor.case,
-                                       supervisor.step)
+    return supervisor, isolation.Watch(supervisor.case, supervisor.step)
 
 
 def can_supervise() -> bool:

@@ -117,9 +117,16 @@ def test_ordinary_runs_keep_their_exit_status_and_say_nothing_more(
     pytester.makepyfile(test_fine="def test_bad():\n    assert False\n")
     failing = pytester.runpytest_subprocess(*INNER)
     assert failing.ret == pytest.ExitCode.TESTS_FAILED
-    interrupted = pytester.runpytest_subprocess(*INNER, "-p", "no:ratefloor", "--nonsense")
-    assert interrupted.ret == pytest.ExitCode.USAGE_ERROR
-    for result in (passing, failing):
+    # a usage error raised after the supervisor forked: the run still ends in order
+    pytester.makeconftest("""
+        import pytest
+        def pytest_configure(config):
+            raise pytest.UsageError("the tide table is missing")
+    """)
+    refused = pytester.runpytest_subprocess(*INNER)
+    assert refused.ret == pytest.ExitCode.USAGE_ERROR
+    assert "the tide table is missing" in _said(refused)
+    for result in (passing, failing, refused):
         assert "ratefloor: the test process" not in _said(result)
 
 

@@ -362,15 +362,22 @@ def test_guide_step_is_the_bisection():
     assert np.array_equal(out >> shift, want)
 
 
-def test_crowded_guide_cells_are_bisected(guide_for_all, monkeypatch):
-    # four cells a state and one comparison: most cells are crowded
+def test_guide_cells_holding_thresholds_are_searched(guide_for_all, monkeypatch):
+    # four cells a state: most words fall in a cell holding thresholds and are searched
     monkeypatch.setattr(chain_sampler, "_GUIDE_BITS", 2)
-    monkeypatch.setattr(chain_sampler, "_REFINE", 1)
     for name in ("text-order-1", "noise-order-1"):
         src = many_context_models()[name]
         assert np.array_equal(src.sample(300_000, seed=3), reference_of(src).sample(300_000, 3))
-        assert src._chain._refine == 1
-        assert (src._chain._guide < 0).any()
+        assert src._chain._shift == 2
+        assert (src._chain._guide < 0).mean() > 0.5
+
+
+def test_search_keys_that_tie_are_bisected(monkeypatch):
+    # keep 2 bits of each threshold in the search keys: nearly every search ties
+    monkeypatch.setattr(chain_sampler, "_KEPT", 2)
+    monkeypatch.setattr(chain_sampler, "_TABLE_ENTRIES", 0)
+    src = many_context_models()["text-order-2"]
+    assert np.array_equal(src.sample(100_000, seed=6), reference_of(src).sample(100_000, 6))
 
 
 def test_guide_blocks_holding_the_top_word_use_the_loop(guide_for_all, monkeypatch):

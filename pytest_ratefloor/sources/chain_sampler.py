@@ -75,21 +75,29 @@ _TABLE_ENTRIES = 1 << 21
 #: Longest chunk of the guide path (chains that forget slowly get longer chunks and warm-ups).
 _LONGEST = 8192
 #: Most words of one block on the guide path.
-_GUIDE_BLOCK = 1 << 21
+_GUIDE_BLOCK = 1 << 23
 #: Most entries (states × cells, an int32 each) of the per-state guide; above it the loop.
 _GUIDE_ENTRIES = 1 << 22
 #: Most bits of a word that name its guide cell.
 _GUIDE_BITS = 12
-#: Most comparisons after the guide lookup; cells that need more are bisected.
-_REFINE = 4
-#: Share of crowded (bisected) guide cells that is acceptable when choosing the comparisons.
-_CROWDED = 1e-4
+#: Most bits of a word that name its sub-cell in a cell holding thresholds.
+_SUB_BITS = 6
+#: Most words of a step left after the sub-cells that are bisected one by one (not searched).
+_FEW_LEFT = 8
+#: Top bits of a word (and of a threshold) kept in a search key, below the state's index.
+_KEPT = 42
 #: Largest raw word; a block holding it is drawn by the loop on the guide path (the
 #: flat threshold array marks each state's end with it, so it must never be compared).
 _TOP_WORD = np.uint64(_WORD - 1)
 #: Chunks stepped together, and the longest chunk (a block is at most their product).
 _CHUNKS = 4001  # not a power of two: transposes of (chunks × length) arrays stay cache-friendly
 _LENGTH = 250
+#: Chunks stepped together on the guide path (a step there costs more, so more share it).
+_GUIDE_CHUNKS = 16001
+#: Chunks whose symbols are written out together (a piece that stays in cache).
+_TILE_OUT = 64
+#: Chunks transposed together (the same).
+_TILE = 256
 #: Shortest chunk worth stepping in lockstep; shorter samples use the loop.
 _MIN_LENGTH = 64
 #: Words before a chunk run from the guess to choose its starting state.
@@ -143,8 +151,11 @@ class _ChainSampler:
         # the per-state guide (many states): states are kept as s << _shift in the paths
         self._shift = 0
         self._guide = np.zeros(0, dtype=np.int32)
-        self._flat = np.zeros(0, dtype=np.uint64)  # every state's thresholds, then 2**64 - 1
-        self._refine = 0
+        self._search = np.zeros(0, dtype=np.uint64)  # the rows' search keys
+        self._sub = 0  # bits that name a sub-cell (0: cells holding thresholds are searched)
+        self._sub_cells = np.zeros(0, dtype=np.int32)
+        self._part_shift, self._part_mask = np.uint64(0), 0
+        self._kept, self._dropped = np.uint64(_KEPT), np.uint64(64 - _KEPT)
         self._slow = False  # the chain forgets too slowly for the lockstep path: the loop
         self._length = _LENGTH  # the chunk length the guide path aims at (grows for slow chains)
 
@@ -218,11 +229,16 @@ class _ChainSampler:
     def _build_guide(self) -> None:
         """The per-state guide (module docstring); none if it would exceed ``_GUIDE_ENTRIES``.
 
-        ``guide[s << h | c]``: the first row of state ``s`` whose threshold is
-        at least ``c << (64 - h)``, or -1 if cell ``c`` holds more than
-        ``R`` of the state's thresholds (``R`` the fewest comparisons, at most
-        ``_REFINE``, that leave at most a ``_CROWDED`` share of cells crowded).
-        ``N[row]``: the next state of a row, shifted left by ``h``.
+        Level one, ``guide[s << h | c]``: if cell ``c`` of state ``s`` holds
+        none of the state's thresholds, the next state of every word in it
+        (the row after the state's thresholds below the cell), shifted left
+        by ``h``; else ``~(j << b)``, ``j`` the cell's rank among such cells.
+        Level two, ``cells[j << b | q]``: the same for the ``2**b`` sub-cells
+        of that cell (the word's next ``b`` bits name ``q``); -1 if the
+        sub-cell holds a threshold too. ``N[row]``: a row's next state,
+        shifted by ``h``. ``K[row]``: a row's search key,
+        ``s << 42 | threshold >> 22`` (non-decreasing over the flat array,
+        since states come in order).
         """
         states, rows = len(self.begin), len(self.thresholds)
         bits = _GUIDE_BITS
@@ -236,46 +252,101 @@ class _ChainSampler:
         )
         sizes = np.asarray(self.last, dtype=np.int64) - np.asarray(self.begin, dtype=np.int64) + 1
         owner = np.repeat(np.arange(states, dtype=np.int64), sizes)
-        # the key of a row: its state's cells, then its threshold's cell (non-decreasing)
-        key = (owner << bits) + (flat >> np.uint64(64 - bits)).astype(np.int64)
-        counts = np.bincount(key, minlength=states << bits)
+        # the cell of a row: its state's cells, then its threshold's cell (non-decreasing)
+        cell = (owner << bits) + (flat >> np.uint64(64 - bits)).astype(np.int64)
+        counts = np.bincount(cell, minlength=states << bits)
+        first = np.cumsum(counts)
+        first -= counts  # rows before the cell: of earlier states, and of this one below it
         counts[cells - 1 :: cells] -= 1  # each state's end mark is not a threshold
-        refine = _REFINE
-        for r in range(1, _REFINE):
-            if np.count_nonzero(counts > r) <= _CROWDED * counts.size:
-                refine = r
-                break
-        crowded = counts > refine
-        counts[cells - 1 :: cells] += 1
-        guide = np.cumsum(counts)
-        guide -= counts  # rows before the cell: of earlier states, and of this one below it
-        guide[crowded] = -1
+        nxt = np.asarray(self.next, dtype=np.int64) << bits
+        free = counts == 0  # `first` is then below the state's end mark, a row of the state
+        guide = np.full(counts.size, -1, dtype=np.int64)
+        guide[free] = nxt[first[free]]
+        held = np.flatnonzero(~free)  # the cells holding thresholds, in order
+        sub = 0
+        while sub < _SUB_BITS and held.size << (sub + 1) <= _GUIDE_ENTRIES:
+            sub += 1
+        self._sub_cells = np.zeros(0, dtype=np.int32)
+        if sub:
+            # the sub-cell of each threshold (not the end marks) in a held cell
+            real = np.ones(rows, dtype=bool)
+            real[np.asarray(self.last, dtype=np.int64)] = False
+            rank = np.searchsorted(held, cell[real])  # each such row's cell is held
+            part = ((flat[real] >> np.uint64(64 - bits - sub)) & np.uint64((1 << sub) - 1))
+            slot = (rank << sub) + part.astype(np.int64)
+            sub_counts = np.bincount(slot, minlength=held.size << sub)
+            before = np.cumsum(sub_counts)
+            before -= sub_counts  # thresholds of held cells before the sub-cell
+            start = before[:: 1 << sub]  # ... before each held cell
+            sub_first = np.repeat(first[held] - start, 1 << sub) + before
+            level_two = np.full(sub_counts.size, -1, dtype=np.int64)
+            empty = sub_counts == 0
+            level_two[empty] = nxt[sub_first[empty]]
+            # entry 0 unused: a held cell's guide entry is -(1 + (j << b))
+            self._sub_cells = np.concatenate([[-1], level_two]).astype(np.int32)
+            guide[held] = -1 - (np.arange(held.size, dtype=np.int64) << sub)
+            self._part_shift = np.uint64(64 - bits - sub)
+            self._part_mask = (1 << sub) - 1
+        self._sub = sub
         self._guide = guide.astype(np.int32)
-        self._flat = flat
-        self._refine = refine
+        self._kept, self._dropped = np.uint64(_KEPT), np.uint64(64 - _KEPT)
+        self._search = (owner.astype(np.uint64) << self._kept) | (flat >> self._dropped)
         self._shift = bits
-        self._table = (np.asarray(self.next, dtype=np.int32) << bits).astype(np.int32)
+        self._table = nxt.astype(np.int32)
 
     def _step_guide(
         self, keys: np.ndarray, words: np.ndarray, current: np.ndarray, out: np.ndarray
     ) -> None:
         """One step of the guide path: ``out`` = the next states of ``current`` (both shifted).
 
-        ``keys``: each word's cell; ``out`` may be ``current`` itself.
+        ``keys``: each word's cell; ``out`` may be ``current`` itself. Most
+        words fall in a cell of their state that holds no threshold, and the
+        guide names their next state at once; most others, in a sub-cell
+        that holds none. The rest are searched for (:meth:`_search_rows`).
+        (Array methods, not numpy's functions: a step handles few words, and
+        the functions' own cost would be a large part of it.)
         """
         index = current + keys  # s << h | cell
-        rows = np.take(self._guide, index, mode="wrap")
-        crowded = rows.min() < 0
-        flat = self._flat
-        for _ in range(self._refine):
-            rows += np.take(flat, rows, mode="wrap") <= words
-        np.take(self._table, rows, out=out, mode="wrap")
-        if crowded:  # a crowded cell: bisect those few rows
-            shift = self._shift
-            for i in np.flatnonzero(np.take(self._guide, index) < 0).tolist():
-                s = int(index[i]) >> shift
-                row = bisect_right(self.thresholds, int(words[i]), self.begin[s], self.last[s])
-                out[i] = self.next[row] << shift
+        self._guide.take(index, out=out, mode="wrap")
+        mixed = (out < 0).nonzero()[0]
+        if not mixed.size:
+            return
+        own = words[mixed]
+        if self._sub:
+            part = (own >> self._part_shift).astype(np.int32)
+            part &= self._part_mask
+            part -= out[mixed]  # the entry is -(1 + (j << b)); the sub-cells start at 1
+            found = self._sub_cells.take(part, mode="wrap")
+            out[mixed] = found
+            if found.min() >= 0:
+                return
+            left = (found < 0).nonzero()[0]
+            mixed, own = mixed[left], own[left]
+            if left.size <= _FEW_LEFT:  # a few words: bisect them
+                shift, thresholds, begin, last = self._shift, self.thresholds, self.begin, self.last
+                for i, word in zip(mixed.tolist(), own.tolist()):
+                    s = int(index[i]) >> shift
+                    out[i] = self.next[bisect_right(thresholds, word, begin[s], last[s])] << shift
+                return
+        out[mixed] = self._search_rows(index[mixed] >> self._shift, own)
+
+    def _search_rows(self, states: np.ndarray, words: np.ndarray) -> np.ndarray:
+        """The next states (shifted) of ``states`` after ``words``, by a search in ``K``.
+
+        The rows of a state whose key is below the word's ``s << 42 | word
+        >> 22`` are exactly those whose threshold is below the word, unless a
+        threshold shares the word's key (never in practice, but possible):
+        such words are bisected.
+        """
+        wanted = (states.astype(np.uint64) << self._kept) | (words >> self._dropped)
+        rows = self._search.searchsorted(wanted)  # keys below the word's
+        found = self._table.take(rows, mode="wrap")
+        tied = (self._search.take(rows, mode="wrap") == wanted).nonzero()[0]
+        for i in tied.tolist():  # a threshold within 2**22 of the word: bisect
+            s = int(states[i])
+            row = bisect_right(self.thresholds, int(words[i]), self.begin[s], self.last[s])
+            found[i] = self.next[row] << self._shift
+        return found
 
     def sample(self, n: int, bitgen: np.random.PCG64) -> np.ndarray:
         """``n`` symbols, the same as :meth:`sample_loop` gives; lockstep whenever it can."""
@@ -294,7 +365,8 @@ class _ChainSampler:
         while done < n:
             size = min(n - done, _GUIDE_BLOCK if guided else _CHUNKS * _LENGTH)
             words = np.asarray(bitgen.random_raw(size), dtype=np.uint64)
-            chunks = min(_CHUNKS, size // (self._length if guided else _MIN_LENGTH))
+            most = _GUIDE_CHUNKS if guided else _CHUNKS
+            chunks = min(most, size // (self._length if guided else _MIN_LENGTH))
             if (
                 size < 8 * _MIN_LENGTH
                 or self._slow
@@ -308,15 +380,9 @@ class _ChainSampler:
             length = size // chunks
             whole = chunks * length  # the rest (fewer than `chunks` words) goes to the loop
             path = self._block_states(state, words[:whole], chunks, length)
-            by_time = path.T  # (chunks, length): the words' own order
-            if guided:
-                by_time = by_time >> self._shift
             target = out[done : done + whole].reshape(chunks, length)
-            if identity:
-                np.copyto(target, by_time)
-            else:
-                np.take(self.state_symbols, np.ascontiguousarray(by_time), out=target)
-            state = int(by_time[-1, -1])
+            self._emit(path, target, identity)
+            state = int(path[-1, -1]) >> (self._shift if guided else 0)
             done += whole
             if whole < size:
                 symbols = []
@@ -324,6 +390,22 @@ class _ChainSampler:
                 out[done : done + size - whole] = symbols
                 done += size - whole
         return out
+
+    def _emit(self, path: np.ndarray, target: np.ndarray, identity: bool) -> None:
+        """Write the symbols of ``path[t, c]`` to ``target[c, t]`` (the words' own order).
+
+        A few chunks at a time, so that each transposed piece stays in cache.
+        """
+        shift = self._shift if self._classes is None else 0
+        chunks = path.shape[1]
+        for c in range(0, chunks, _TILE_OUT):
+            part = path[:, c : c + _TILE_OUT]
+            if shift:
+                part = part >> shift
+            if identity:
+                target[c : c + _TILE_OUT] = part.T
+            else:
+                target[c : c + _TILE_OUT] = self.state_symbols.take(part).T
 
     def _block_states(self, state: int, words: np.ndarray, chunks: int, length: int) -> np.ndarray:
         """The state after each word (``chunks * length`` of them), from ``state``.
@@ -344,9 +426,9 @@ class _ChainSampler:
             in_order = (words >> np.uint64(64 - self._shift)).astype(np.int32)
             guess, state = self._guess << self._shift, state << self._shift
         # step t of every chunk side by side: keys[t, c] for word c*length + t
-        keys = in_order.reshape(chunks, length).T.copy()
+        keys = _transposed(in_order.reshape(chunks, length))
         if self._classes is None:  # the guide path compares the words themselves
-            by_step = words.reshape(chunks, length).T.copy()
+            by_step = words.reshape(chunks, length).T  # a view: only some words are compared
         else:
             by_step = np.empty((length, 0), dtype=np.uint64)  # not needed
         table = self._table
@@ -510,3 +592,12 @@ class _ChainSampler:
             else:
                 if c + 1 < chunks:
                     heapq.heappush(todo, c + 1)
+
+
+def _transposed(table: np.ndarray) -> np.ndarray:
+    """``table.T`` as a new C-ordered array, copied a few rows at a time (cache-friendly)."""
+    rows = table.shape[0]
+    out = np.empty((table.shape[1], rows), dtype=table.dtype)
+    for r in range(0, rows, _TILE):
+        out[:, r : r + _TILE] = table[r : r + _TILE].T
+    return out

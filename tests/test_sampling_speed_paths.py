@@ -362,22 +362,48 @@ def test_guide_step_is_the_bisection():
     assert np.array_equal(out >> shift, want)
 
 
-def test_guide_cells_holding_thresholds_are_searched(guide_for_all, monkeypatch):
-    # four cells a state: most words fall in a cell holding thresholds and are searched
+@pytest.mark.parametrize("sub_bits", [0, 1, 6])
+def test_guide_cells_holding_thresholds_are_counted(guide_for_all, monkeypatch, sub_bits):
+    # four cells a state: most words fall in a cell holding thresholds; with no sub-cells
+    # (or one bit of them) the comparisons do the work, and no word is left to bisect
     monkeypatch.setattr(chain_sampler, "_GUIDE_BITS", 2)
+    monkeypatch.setattr(chain_sampler, "_SUB_BITS", sub_bits)
+    monkeypatch.setattr(chain_sampler, "_FEW_LEFT", 0)
+    monkeypatch.setattr(chain_sampler, "_COMPARE", 1000)
     for name in ("text-order-1", "noise-order-1"):
         src = many_context_models()[name]
         assert np.array_equal(src.sample(300_000, seed=3), reference_of(src).sample(300_000, 3))
-        assert src._chain._shift == 2
-        assert (src._chain._guide < 0).mean() > 0.5
+        chain = src._chain
+        assert chain._shift == 2
+        assert chain._sub == sub_bits
+        assert (chain._guide < 0).mean() > 0.5
 
 
-def test_search_keys_that_tie_are_bisected(monkeypatch):
-    # keep 2 bits of each threshold in the search keys: nearly every search ties
-    monkeypatch.setattr(chain_sampler, "_KEPT", 2)
-    monkeypatch.setattr(chain_sampler, "_TABLE_ENTRIES", 0)
-    src = many_context_models()["text-order-2"]
-    assert np.array_equal(src.sample(100_000, seed=6), reference_of(src).sample(100_000, 6))
+def test_crowded_guide_cells_are_bisected(guide_for_all, monkeypatch):
+    # one comparison a step: words of a sub-cell holding 2+ thresholds are bisected
+    monkeypatch.setattr(chain_sampler, "_GUIDE_BITS", 2)
+    monkeypatch.setattr(chain_sampler, "_SUB_BITS", 1)
+    monkeypatch.setattr(chain_sampler, "_FEW_LEFT", 0)
+    monkeypatch.setattr(chain_sampler, "_COMPARE", 1)
+    calls, inside = [], []
+    real_bisect, real_step = chain_sampler.bisect_right, chain_sampler._ChainSampler._step_guide
+
+    def step(*args):
+        inside.append(1)
+        try:
+            real_step(*args)
+        finally:
+            inside.pop()
+
+    def bisect(*args):
+        calls.extend(inside)  # only the bisections made by a step count
+        return real_bisect(*args)
+
+    monkeypatch.setattr(chain_sampler._ChainSampler, "_step_guide", step)
+    monkeypatch.setattr(chain_sampler, "bisect_right", bisect)
+    src = many_context_models()["noise-order-1"]
+    assert np.array_equal(src.sample(300_000, seed=3), reference_of(src).sample(300_000, 3))
+    assert calls
 
 
 def test_guide_blocks_holding_the_top_word_use_the_loop(guide_for_all, monkeypatch):

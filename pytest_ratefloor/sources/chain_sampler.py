@@ -82,15 +82,16 @@ _GUIDE_ENTRIES = 1 << 22
 _GUIDE_BITS = 12
 #: Most bits of a word that name its sub-cell in a cell holding thresholds.
 _SUB_BITS = 6
-#: Most words of a step left after the sub-cells that are bisected one by one (not searched).
+#: Most words of a step left after the sub-cells that are bisected one by one.
 _FEW_LEFT = 8
-#: Top bits of a word (and of a threshold) kept in a search key, below the state's index.
-_KEPT = 42
+#: Most comparisons a step makes for the words of a (sub-)cell holding thresholds; words
+#: of a crowded one are bisected.
+_COMPARE = 6
 #: Largest raw word; a block holding it is drawn by the loop on the guide path (the
 #: flat threshold array marks each state's end with it, so it must never be compared).
 _TOP_WORD = np.uint64(_WORD - 1)
 #: Chunks stepped together, and the longest chunk (a block is at most their product).
-_CHUNKS = 4001  # not a power of two: transposes of (chunks × length) arrays stay cache-friendly
+_CHUNKS = 4001  # odd, as every chunk count: (chunks × length) transposes stay cache-friendly
 _LENGTH = 250
 #: Chunks stepped together on the guide path (a step there costs more, so more share it).
 _GUIDE_CHUNKS = 16001
@@ -151,11 +152,10 @@ class _ChainSampler:
         # the per-state guide (many states): states are kept as s << _shift in the paths
         self._shift = 0
         self._guide = np.zeros(0, dtype=np.int32)
-        self._search = np.zeros(0, dtype=np.uint64)  # the rows' search keys
+        self._flat = np.zeros(0, dtype=np.uint64)  # every state's thresholds, then 2**64 - 1
         self._sub = 0  # bits that name a sub-cell (0: cells holding thresholds are searched)
         self._sub_cells = np.zeros(0, dtype=np.int32)
         self._part_shift, self._part_mask = np.uint64(0), 0
-        self._kept, self._dropped = np.uint64(_KEPT), np.uint64(64 - _KEPT)
         self._slow = False  # the chain forgets too slowly for the lockstep path: the loop
         self._length = _LENGTH  # the chunk length the guide path aims at (grows for slow chains)
 
@@ -233,12 +233,11 @@ class _ChainSampler:
         none of the state's thresholds, the next state of every word in it
         (the row after the state's thresholds below the cell), shifted left
         by ``h``; else ``~(j << b)``, ``j`` the cell's rank among such cells.
-        Level two, ``cells[j << b | q]``: the same for the ``2**b`` sub-cells
-        of that cell (the word's next ``b`` bits name ``q``); -1 if the
-        sub-cell holds a threshold too. ``N[row]``: a row's next state,
-        shifted by ``h``. ``K[row]``: a row's search key,
-        ``s << 42 | threshold >> 22`` (non-decreasing over the flat array,
-        since states come in order).
+        Level two, ``cells[1 + (j << b | q)]``: the same for the ``2**b``
+        sub-cells of that cell (the word's next ``b`` bits name ``q``), or
+        ``~r`` if the sub-cell holds a threshold too, ``r`` the first row at
+        or above its start. (With no level two, ``b = 0``, level one holds
+        ``~r`` itself.) ``N[row]``: a row's next state, shifted by ``h``.
         """
         states, rows = len(self.begin), len(self.thresholds)
         bits = _GUIDE_BITS
@@ -260,37 +259,35 @@ class _ChainSampler:
         counts[cells - 1 :: cells] -= 1  # each state's end mark is not a threshold
         nxt = np.asarray(self.next, dtype=np.int64) << bits
         free = counts == 0  # `first` is then below the state's end mark, a row of the state
-        guide = np.full(counts.size, -1, dtype=np.int64)
+        guide = ~first
         guide[free] = nxt[first[free]]
         held = np.flatnonzero(~free)  # the cells holding thresholds, in order
         sub = 0
         while sub < _SUB_BITS and held.size << (sub + 1) <= _GUIDE_ENTRIES:
             sub += 1
-        self._sub_cells = np.zeros(0, dtype=np.int32)
         if sub:
             # the sub-cell of each threshold (not the end marks) in a held cell
             real = np.ones(rows, dtype=bool)
             real[np.asarray(self.last, dtype=np.int64)] = False
             rank = np.searchsorted(held, cell[real])  # each such row's cell is held
-            part = ((flat[real] >> np.uint64(64 - bits - sub)) & np.uint64((1 << sub) - 1))
+            part = (flat[real] >> np.uint64(64 - bits - sub)) & np.uint64((1 << sub) - 1)
             slot = (rank << sub) + part.astype(np.int64)
             sub_counts = np.bincount(slot, minlength=held.size << sub)
             before = np.cumsum(sub_counts)
             before -= sub_counts  # thresholds of held cells before the sub-cell
             start = before[:: 1 << sub]  # ... before each held cell
             sub_first = np.repeat(first[held] - start, 1 << sub) + before
-            level_two = np.full(sub_counts.size, -1, dtype=np.int64)
+            level_two = ~sub_first
             empty = sub_counts == 0
             level_two[empty] = nxt[sub_first[empty]]
-            # entry 0 unused: a held cell's guide entry is -(1 + (j << b))
-            self._sub_cells = np.concatenate([[-1], level_two]).astype(np.int32)
-            guide[held] = -1 - (np.arange(held.size, dtype=np.int64) << sub)
+            # a held cell's entry ~(j << b) = -(1 + (j << b)): level two starts at 1
+            self._sub_cells = np.concatenate([[0], level_two]).astype(np.int32)
+            guide[held] = ~(np.arange(held.size, dtype=np.int64) << sub)
             self._part_shift = np.uint64(64 - bits - sub)
             self._part_mask = (1 << sub) - 1
         self._sub = sub
         self._guide = guide.astype(np.int32)
-        self._kept, self._dropped = np.uint64(_KEPT), np.uint64(64 - _KEPT)
-        self._search = (owner.astype(np.uint64) << self._kept) | (flat >> self._dropped)
+        self._flat = flat
         self._shift = bits
         self._table = nxt.astype(np.int32)
 
@@ -302,9 +299,10 @@ class _ChainSampler:
         ``keys``: each word's cell; ``out`` may be ``current`` itself. Most
         words fall in a cell of their state that holds no threshold, and the
         guide names their next state at once; most others, in a sub-cell
-        that holds none. The rest are searched for (:meth:`_search_rows`).
-        (Array methods, not numpy's functions: a step handles few words, and
-        the functions' own cost would be a large part of it.)
+        that holds none. The rest count the thresholds of their sub-cell
+        that are not above them (a few words: a bisection each). (Array
+        methods, not numpy's functions: a step handles few words, and the
+        functions' own cost would be a large part of it.)
         """
         index = current + keys  # s << h | cell
         self._guide.take(index, out=out, mode="wrap")
@@ -312,41 +310,30 @@ class _ChainSampler:
         if not mixed.size:
             return
         own = words[mixed]
+        entries = out[mixed]
         if self._sub:
             part = (own >> self._part_shift).astype(np.int32)
             part &= self._part_mask
-            part -= out[mixed]  # the entry is -(1 + (j << b)); the sub-cells start at 1
-            found = self._sub_cells.take(part, mode="wrap")
-            out[mixed] = found
-            if found.min() >= 0:
+            part -= entries  # + 1 + (j << b)
+            entries = self._sub_cells.take(part, mode="wrap")
+            out[mixed] = entries
+            left = (entries < 0).nonzero()[0]
+            if not left.size:
                 return
-            left = (found < 0).nonzero()[0]
-            mixed, own = mixed[left], own[left]
-            if left.size <= _FEW_LEFT:  # a few words: bisect them
-                shift, thresholds, begin, last = self._shift, self.thresholds, self.begin, self.last
-                for i, word in zip(mixed.tolist(), own.tolist()):
-                    s = int(index[i]) >> shift
-                    out[i] = self.next[bisect_right(thresholds, word, begin[s], last[s])] << shift
-                return
-        out[mixed] = self._search_rows(index[mixed] >> self._shift, own)
-
-    def _search_rows(self, states: np.ndarray, words: np.ndarray) -> np.ndarray:
-        """The next states (shifted) of ``states`` after ``words``, by a search in ``K``.
-
-        The rows of a state whose key is below the word's ``s << 42 | word
-        >> 22`` are exactly those whose threshold is below the word, unless a
-        threshold shares the word's key (never in practice, but possible):
-        such words are bisected.
-        """
-        wanted = (states.astype(np.uint64) << self._kept) | (words >> self._dropped)
-        rows = self._search.searchsorted(wanted)  # keys below the word's
-        found = self._table.take(rows, mode="wrap")
-        tied = (self._search.take(rows, mode="wrap") == wanted).nonzero()[0]
-        for i in tied.tolist():  # a threshold within 2**22 of the word: bisect
-            s = int(states[i])
-            row = bisect_right(self.thresholds, int(words[i]), self.begin[s], self.last[s])
-            found[i] = self.next[row] << self._shift
-        return found
+            mixed, own, entries = mixed[left], own[left], entries[left]
+        if mixed.size > _FEW_LEFT:
+            rows = ~entries
+            flat = self._flat
+            for _ in range(_COMPARE):
+                above = flat.take(rows, mode="wrap") <= own
+                if not above.any():
+                    out[mixed] = self._table.take(rows, mode="wrap")
+                    return
+                rows += above
+        shift, thresholds, begin, last = self._shift, self.thresholds, self.begin, self.last
+        for i, word in zip(mixed.tolist(), own.tolist()):  # a few words: bisect them
+            s = int(index[i]) >> shift
+            out[i] = self.next[bisect_right(thresholds, word, begin[s], last[s])] << shift
 
     def sample(self, n: int, bitgen: np.random.PCG64) -> np.ndarray:
         """``n`` symbols, the same as :meth:`sample_loop` gives; lockstep whenever it can."""
@@ -367,6 +354,7 @@ class _ChainSampler:
             words = np.asarray(bitgen.random_raw(size), dtype=np.uint64)
             most = _GUIDE_CHUNKS if guided else _CHUNKS
             chunks = min(most, size // (self._length if guided else _MIN_LENGTH))
+            chunks -= chunks % 2 == 0  # odd: no power-of-two strides in the transposes
             if (
                 size < 8 * _MIN_LENGTH
                 or self._slow
@@ -486,10 +474,12 @@ class _ChainSampler:
         length, chunks = path.shape
         check = np.arange(1, chunks)
         wrong = check[starts[check] != path[length - 1, check - 1]]
-        # warm up longer next time if many guesses were wrong, shorter if hardly any
-        if wrong.size * 20 > chunks:
+        # warm up longer next time if many guesses were wrong, shorter if hardly any (the
+        # repair reruns a wrong chunk only until it meets its stored path: a few wrong
+        # guesses cost less than a longer warm-up for every chunk)
+        if wrong.size * 4 > chunks:
             self._warm = min(2 * self._warm, self._length)
-        elif wrong.size * 200 < chunks:
+        elif wrong.size * 50 < chunks:
             self._warm = max(self._warm // 2, _WARM)
         for _ in range(_ROUNDS):
             wrong = check[starts[check] != path[length - 1, check - 1]]

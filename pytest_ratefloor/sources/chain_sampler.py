@@ -349,6 +349,7 @@ class _ChainSampler:
         out[: len(prefix)] = prefix
         done = len(prefix)
         identity = bool(np.array_equal(self.state_symbols, np.arange(len(self.begin))))
+        spare = _Scratch()  # the blocks' keys and paths: fresh memory once, not per block
         while done < n:
             size = min(n - done, _GUIDE_BLOCK if guided else _CHUNKS * _LENGTH)
             words = np.asarray(bitgen.random_raw(size), dtype=np.uint64)
@@ -366,8 +367,8 @@ class _ChainSampler:
                 done += size
                 continue
             length = size // chunks
-            whole = chunks * length  # the rest (fewer than `chunks` words) goes to the loop
-            path = self._block_states(state, words[:whole], chunks, length)
+            whole = spare.size = chunks * length  # the rest (fewer than `chunks`) to the loop
+            path = self._block_states(state, words[:whole], chunks, length, spare)
             target = out[done : done + whole].reshape(chunks, length)
             self._emit(path, target, identity)
             state = int(path[-1, -1]) >> (self._shift if guided else 0)
@@ -395,7 +396,9 @@ class _ChainSampler:
             else:
                 target[c : c + _TILE_OUT] = self.state_symbols.take(part).T
 
-    def _block_states(self, state: int, words: np.ndarray, chunks: int, length: int) -> np.ndarray:
+    def _block_states(
+        self, state: int, words: np.ndarray, chunks: int, length: int, spare: _Scratch
+    ) -> np.ndarray:
         """The state after each word (``chunks * length`` of them), from ``state``.
 
         Returned as ``path[t, c]``: the state after word ``c * length + t``
@@ -410,17 +413,19 @@ class _ChainSampler:
             if split.size:
                 in_order[split] = self._classes.rows(words[split]) * states
             guess, state = self._guess, state
+            # step t of every chunk side by side: keys[t, c] for word c*length + t
+            keys = _transposed(in_order.reshape(chunks, length), spare.get("keys", in_order.dtype))
         else:
-            in_order = (words >> np.uint64(64 - self._shift)).astype(np.int32)
             guess, state = self._guess << self._shift, state << self._shift
-        # step t of every chunk side by side: keys[t, c] for word c*length + t
-        keys = _transposed(in_order.reshape(chunks, length))
+            keys = _transposed(
+                words.reshape(chunks, length), spare.get("keys", np.int32), 64 - self._shift
+            )
         if self._classes is None:  # the guide path compares the words themselves
             by_step = words.reshape(chunks, length).T  # a view: only some words are compared
         else:
             by_step = np.empty((length, 0), dtype=np.uint64)  # not needed
         table = self._table
-        path = np.empty((length, chunks), dtype=table.dtype)
+        path = spare.get("path", table.dtype)[: length * chunks].reshape(length, chunks)
         starts = np.full(chunks, guess, dtype=table.dtype)
         # a better guess: run the guess through the last words before each chunk
         # (chains forget their start; the repair below makes the answer exact anyway)
@@ -584,10 +589,30 @@ class _ChainSampler:
                     heapq.heappush(todo, c + 1)
 
 
-def _transposed(table: np.ndarray) -> np.ndarray:
-    """``table.T`` as a new C-ordered array, copied a few rows at a time (cache-friendly)."""
-    rows = table.shape[0]
-    out = np.empty((table.shape[1], rows), dtype=table.dtype)
+class _Scratch:
+    """Flat arrays reused by the blocks of one draw (each as long as the first block)."""
+
+    def __init__(self) -> None:
+        self._arrays: dict[str, np.ndarray] = {}
+        self.size = 0  # words of the current block
+
+    def get(self, name: str, dtype: type | np.dtype) -> np.ndarray:
+        """``size`` items of the array ``name`` (made on first use; a later block is never
+        longer than the first)."""
+        array = self._arrays.get(name)
+        if array is None or array.size < self.size:
+            array = self._arrays[name] = np.empty(self.size, dtype=dtype)
+        return array[: self.size]
+
+
+def _transposed(table: np.ndarray, into: np.ndarray, shift: int = 0) -> np.ndarray:
+    """``table.T`` copied into ``into`` (flat, as long as ``table``), a few rows at a time
+    (cache-friendly); with ``shift``, ``(table >> shift).T`` (the words' top bits), made
+    the same way (no temporary as large as the table: fresh memory costs more than the
+    copy). Returns ``into`` shaped as the transpose."""
+    rows, columns = table.shape
+    out = into.reshape(columns, rows)
+    by = np.uint64(shift)
     for r in range(0, rows, _TILE):
-        out[:, r : r + _TILE] = table[r : r + _TILE].T
+        out[:, r : r + _TILE] = (table[r : r + _TILE] >> by).T if shift else table[r : r + _TILE].T
     return out

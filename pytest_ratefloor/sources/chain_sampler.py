@@ -75,7 +75,7 @@ _TABLE_ENTRIES = 1 << 21
 #: Longest chunk of the guide path (chains that forget slowly get longer chunks and warm-ups).
 _LONGEST = 8192
 #: Most words of one block on the guide path.
-_GUIDE_BLOCK = 1 << 23
+_GUIDE_BLOCK = 1 << 24
 #: Most entries (states × cells, an int32 each) of the per-state guide; above it the loop.
 _GUIDE_ENTRIES = 1 << 22
 #: Most bits of a word that name its guide cell.

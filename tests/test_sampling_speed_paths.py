@@ -300,7 +300,18 @@ def many_context_models():
         "text-order-1": sources.empirical(text, order=1),
         "text-order-2": sources.empirical(text, order=2),
         "text-order-3": sources.empirical(text, order=3),
+        # zero-probability moves: repeated thresholds, and rows no word ever picks
+        "sparse-markov": sources.markov(sparse_transitions(300, 6)),
     }
+
+
+def sparse_transitions(states, moves, seed=3):
+    """A transition matrix whose rows each allow only ``moves`` next states (the rest 0)."""
+    rng = np.random.default_rng(seed)
+    matrix = np.zeros((states, states))
+    for row in matrix:
+        row[rng.choice(states, moves, replace=False)] = rng.dirichlet(np.ones(moves))
+    return matrix
 
 
 @pytest.fixture
@@ -316,7 +327,10 @@ def test_guide_path_samples_equal_the_loop(guide_for_all, name):
     src = many_context_models()[name]
     reference = reference_of(src)
     # lengths across a block, its chunks and tails (a block is 2**18 words here)
-    for n, seed in [(513, 2), (4001 * 64 + 5, 7), ((1 << 18) + 17, 4), (3 * (1 << 18) + 999, 1)]:
+    # (a shorter block after a full one reuses the first block's arrays)
+    cases = [(513, 2), (4001 * 64 + 5, 7), ((1 << 18) + 17, 4), (3 * (1 << 18) + 999, 1),
+             ((1 << 18) + 200_000, 9)]
+    for n, seed in cases:
         assert np.array_equal(src.sample(n, seed=seed), reference.sample(n, seed)), (name, n)
     chain = src._chain
     assert chain._classes is None

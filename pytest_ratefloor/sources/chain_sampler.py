@@ -35,22 +35,32 @@ compares the two).
 
 Chains whose table ``G`` would be too large (many states times many distinct
 thresholds: an order-2 model of a file has up to 65,536 contexts) step
-through a *per-state guide* instead (:meth:`_ChainSampler._build_guide`): all
-states' thresholds lie in one flat array, state after state; a word's top
-``h`` bits name one of ``2**h`` cells, and ``guide[s * 2**h + cell]`` is the
-first row of state ``s`` whose threshold is not below the cell's start. The
-step is then ``row = guide[s, cell(u)]`` followed by ``R`` comparisons
-``row += T[row] <= u`` (exact when the cell holds at most ``R`` of the
-state's thresholds; the rare crowded cells are marked and bisected), and
-``next = N[row]``: about ten array operations per lockstep step, whatever
-the number of states. The chunks, warm-up and repair are the same. A chain
-that forgets its start slowly (random bytes of order 2: two paths fed the
-same words typically meet only after thousands of words) leaves many chunks
-to the step-by-step repair; the repair notices and the next blocks use
-chunks (and warm-ups) eight times longer, up to ``_LONGEST`` words. A chain
-that still leaves many (one that never forgets: periodic, deterministic)
-is drawn by the loop from then on, on either path. Chains too large even
-for the guide use the loop.
+through a *per-state guide* instead (:meth:`_ChainSampler._build_guide`): a
+word's top ``h`` bits name one of ``2**h`` cells, and where cell ``c`` of
+state ``s`` holds none of the state's thresholds, every word in it picks the
+same row, so ``guide[s * 2**h + c]`` is the next state itself: one lookup
+for most words. A cell that holds thresholds points to ``2**b`` sub-cells
+named by the word's next ``b`` bits, which work the same way; the few words
+whose sub-cell holds a threshold too compare the word with the sub-cell's
+thresholds (all states' thresholds lie in one flat array, state after
+state, and each state's run ends with ``2**64 - 1``, so a comparison never
+passes the end of the state), or are bisected when only a few are left. A
+lockstep step is thus about a dozen array operations, most of them on the
+few words that need more than the first lookup, whatever the number of
+states; so that their fixed cost is shared, 16,001 chunks step together,
+on blocks of up to ``2**24`` words. The chunks, warm-up and repair are the
+same. A chain that forgets its start slowly (random bytes of order 2: two
+paths fed the same words typically meet only after thousands of words)
+leaves many chunks to the step-by-step repair; the repair notices and the
+next blocks use chunks (and warm-ups) eight times longer, up to
+``_LONGEST`` words. A chain that still leaves many (one that never forgets:
+periodic, deterministic) is drawn by the loop from then on, on either path.
+Chains too large even for the guide use the loop.
+
+The blocks' arrays are transposed (chunk order to step order and back) a
+few hundred rows at a time, so that each piece stays in cache, and a draw's
+blocks share their keys and path arrays: here, touching fresh memory for
+the first time costs more than the copies.
 """
 
 from __future__ import annotations

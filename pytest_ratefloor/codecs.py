@@ -47,9 +47,10 @@ finds a name for that object and writes the line.
 
 from __future__ import annotations
 
+import sys
 from collections.abc import Callable, Hashable, Mapping
 from dataclasses import dataclass
-from typing import TYPE_CHECKING, Any, Protocol, runtime_checkable
+from typing import TYPE_CHECKING, Any, Protocol, TypeGuard, runtime_checkable
 
 import numpy as np
 from bitarray import bitarray
@@ -70,6 +71,7 @@ from pytest_ratefloor.streams import (
 )
 
 if TYPE_CHECKING:
+    from pytest_ratefloor.command import CommandCodec
     from pytest_ratefloor.sources import Source
 
 __all__ = [
@@ -434,6 +436,13 @@ def _is_codebook(obj: object) -> bool:
     return hasattr(obj, "codewords") and hasattr(obj, "encode") and hasattr(obj, "decode")
 
 
+def _is_command_codec(obj: object) -> TypeGuard[CommandCodec]:
+    """Whether ``obj`` is a ``CommandCodec``, without importing its module (and with it the
+    subprocess machinery) where nothing has: then no such codec can exist."""
+    module = sys.modules.get("pytest_ratefloor.command")
+    return module is not None and isinstance(obj, module.CommandCodec)
+
+
 def as_codec(obj: object) -> Codec:
     """Give ``obj`` the :class:`Codec` interface.
 
@@ -451,9 +460,7 @@ def as_codec(obj: object) -> Codec:
 
     :raises TypeError: anything else, or a pair whose items are not both callable.
     """
-    from pytest_ratefloor.command import CommandCodec  # built on this module
-
-    if isinstance(obj, (StreamCodec, ByteCodec, CodebookCodec, CommandCodec)):
+    if isinstance(obj, (StreamCodec, ByteCodec, CodebookCodec)) or _is_command_codec(obj):
         return obj
     if _is_codebook(obj):
         return CodebookCodec(obj)
@@ -510,8 +517,6 @@ def codec_identity(obj: object) -> tuple[tuple[Hashable, ...], tuple[object, ...
     anything :func:`as_codec` would refuse. The name and version are not in
     the key: the checks add those of the bound codec.
     """
-    from pytest_ratefloor.command import CommandCodec
-
     parts: tuple[object, ...]
     settings: tuple[Hashable, ...] = ()
     if isinstance(obj, StreamCodec):
@@ -521,7 +526,7 @@ def codec_identity(obj: object) -> tuple[tuple[Hashable, ...], tuple[object, ...
         settings = ("bytes", obj.symbol, obj.pass_n)
     elif isinstance(obj, CodebookCodec):
         parts = (obj.codebook,)
-    elif isinstance(obj, CommandCodec):
+    elif _is_command_codec(obj):
         parts = (obj,)
         settings = ("command", obj.encode_cmd, obj.decode_cmd, obj.symbol)
     elif _is_codebook(obj):

@@ -303,7 +303,7 @@ except PluginMemoryError as exc:
         out.stdout + out.stderr)
 
 
-def test_measure_on_a_memoryless_source_does_not_import_scipy() -> None:
+def test_measure_on_a_memoryless_source_does_not_import_scipy_or_subprocess() -> None:
     program = """
 import json, sys, zlib
 from pytest_ratefloor import ByteCodec, measure, sources
@@ -312,10 +312,12 @@ codec = ByteCodec(lambda d: zlib.compress(d, 6), zlib.decompress, name="zlib-6")
 for source in (sources.uniform(256), sources.geometric(0.2), sources.poisson(4.0)):
     measure(codec, source, n=2000)
 check(codec, sources.bernoulli(0.1), n=2000, floor="entropy", rel=1.0)
-print(json.dumps(sorted(m for m in sys.modules if m.split(".")[0] == "scipy")))
+print(json.dumps(sorted(m for m in sys.modules if m.split(".")[0] == "scipy"
+                        or m in ("subprocess", "pytest_ratefloor.command"))))
 """
     out = subprocess.run([sys.executable, "-c", program], capture_output=True, text=True,
                          check=True, timeout=120)
+    # nor the executable codecs' module and its subprocess machinery
     assert json.loads(out.stdout.strip().splitlines()[-1]) == []
 
 

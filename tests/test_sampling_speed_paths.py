@@ -420,11 +420,28 @@ def test_crowded_guide_cells_are_bisected(guide_for_all, monkeypatch):
     assert calls
 
 
-def test_guide_blocks_holding_the_top_word_use_the_loop(guide_for_all, monkeypatch):
-    # the flat array marks each state's end with 2**64 - 1; such a block goes to the loop
-    monkeypatch.setattr(chain_sampler, "_TOP_WORD", np.uint64(0))
-    src = many_context_models()["text-order-2"]
-    assert np.array_equal(src.sample(100_000, seed=5), reference_of(src).sample(100_000, 5))
+def test_the_top_word_never_compares_past_a_states_end(monkeypatch):
+    # the flat array marks each state's end with 2**64 - 1, the largest word: a step
+    # that compares that word with the mark must not step into the next state's rows
+    # (its comparisons never settle, so it is bisected), and 2**64 - 2 stops at the mark
+    monkeypatch.setattr(chain_sampler, "_GUIDE_BITS", 2)
+    monkeypatch.setattr(chain_sampler, "_SUB_BITS", 0)
+    monkeypatch.setattr(chain_sampler, "_FEW_LEFT", 0)
+    monkeypatch.setattr(chain_sampler, "_TABLE_ENTRIES", 0)
+    src = many_context_models()["noise-order-1"]
+    src.sample(10)
+    chain = src._chain
+    chain._build()
+    states = np.arange(len(chain.begin))
+    for top in (WORD - 1, WORD - 2):
+        words = np.full(states.size, top, dtype=np.uint64)
+        shift = chain._shift
+        cells = (words >> np.uint64(64 - shift)).astype(np.int64)
+        out = np.empty(states.size, dtype=np.int32)
+        chain._step_guide(cells, words, (states << shift).astype(np.int64), out)
+        want = [chain.next[bisect_right(chain.thresholds, top, chain.begin[s], chain.last[s])]
+                for s in states.tolist()]
+        assert np.array_equal(out >> shift, want), top
 
 
 def test_chains_too_large_for_the_guide_use_the_loop(monkeypatch):

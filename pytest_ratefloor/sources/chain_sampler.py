@@ -97,9 +97,6 @@ _FEW_LEFT = 8
 #: Most comparisons a step makes for the words of a (sub-)cell holding thresholds; words
 #: of a crowded one are bisected.
 _COMPARE = 6
-#: Largest raw word; a block holding it is drawn by the loop on the guide path (the
-#: flat threshold array marks each state's end with it, so it must never be compared).
-_TOP_WORD = np.uint64(_WORD - 1)
 #: Chunks stepped together, and the longest chunk (a block is at most their product).
 _CHUNKS = 4001  # odd, as every chunk count: (chunks × length) transposes stay cache-friendly
 _LENGTH = 250
@@ -334,6 +331,8 @@ class _ChainSampler:
         if mixed.size > _FEW_LEFT:
             rows = ~entries
             flat = self._flat
+            # a state's thresholds end with 2**64 - 1, above every word but 2**64 - 1
+            # itself, whose comparisons therefore never settle: it is bisected below
             for _ in range(_COMPARE):
                 above = flat.take(rows, mode="wrap") <= own
                 if not above.any():
@@ -369,7 +368,7 @@ class _ChainSampler:
             if (
                 size < 8 * _MIN_LENGTH
                 or self._slow
-                or (guided and (chunks < _FEW or words.max() >= _TOP_WORD))
+                or (guided and chunks < _FEW)
             ):
                 symbols: list[int] = []  # a short tail, or a block the loop must draw
                 state = self._loop(state, words.tolist(), symbols)

@@ -213,6 +213,22 @@ def test_a_narrow_sample_measures_exactly_as_the_int64_one(source: sources.Sourc
         float(source.information(wide)), rel=1e-12)
 
 
+@pytest.mark.parametrize("length", [1000, (1 << 18), (1 << 18) + 1, 3 * (1 << 20) + 7])
+@pytest.mark.parametrize("size", [2, 200, 256, 300])
+def test_byte_samples_are_counted_by_pairs_exactly(length: int, size: int) -> None:
+    # the pair table's two marginals against collections.Counter, odd and even lengths,
+    # bytes above the declared alphabet (dropped) and alphabets wider than a byte (padded)
+    from collections import Counter
+
+    from pytest_ratefloor.rate import _histogram
+
+    sample = np.random.default_rng(length + size).integers(0, 256, length).astype(np.uint8)
+    sample[:5] = [0, 255, 255, 1, 0]
+    counted = Counter(sample.tolist())
+    want = [counted.get(symbol, 0) for symbol in range(size)]
+    assert _histogram(sample, size).tolist() == want
+
+
 def test_padding_bits_that_differ_still_round_trip() -> None:
     # 'bits' layout: a decompressor that sets the unused tail bits of the last byte
     def decompress(data: bytes) -> bytes:

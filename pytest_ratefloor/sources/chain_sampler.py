@@ -92,6 +92,9 @@ _GUIDE_ENTRIES = 1 << 22
 _GUIDE_BITS = 12
 #: Most bits of a word that name its sub-cell in a cell holding thresholds.
 _SUB_BITS = 6
+#: Most entries (cells holding thresholds × sub-cells) of the second level (its build,
+#: paid by the first draw, costs about 10 ms per million entries here).
+_SUB_ENTRIES = 1 << 21
 #: Most words of a step left after the sub-cells that are bisected one by one.
 _FEW_LEFT = 8
 #: Most comparisons a step makes for the words of a (sub-)cell holding thresholds; words
@@ -252,48 +255,52 @@ class _ChainSampler:
             bits -= 1
         if states << bits > _GUIDE_ENTRIES:
             return  # the loop
-        cells = 1 << bits
         flat = np.fromiter(
             (t if t < _WORD else _WORD - 1 for t in self.thresholds), dtype=np.uint64, count=rows
         )
         sizes = np.asarray(self.last, dtype=np.int64) - np.asarray(self.begin, dtype=np.int64) + 1
         owner = np.repeat(np.arange(states, dtype=np.int64), sizes)
-        # the cell of a row: its state's cells, then its threshold's cell (non-decreasing)
+        # the cell of each row: its state's cells, then its threshold's cell (non-decreasing;
+        # a state's end mark lies in its last cell)
         cell = (owner << bits) + (flat >> np.uint64(64 - bits)).astype(np.int64)
-        counts = np.bincount(cell, minlength=states << bits)
-        first = np.cumsum(counts)
-        first -= counts  # rows before the cell: of earlier states, and of this one below it
-        counts[cells - 1 :: cells] -= 1  # each state's end mark is not a threshold
         nxt = np.asarray(self.next, dtype=np.int64) << bits
-        free = counts == 0  # `first` is then below the state's end mark, a row of the state
-        guide = ~first
-        guide[free] = nxt[first[free]]
-        held = np.flatnonzero(~free)  # the cells holding thresholds, in order
+        # cell g's first row is the first row whose cell is not below g, so row r is the
+        # first row of the cells after the previous row's cell up to its own: one run each
+        guide = np.repeat(nxt.astype(np.int32), np.diff(cell, prepend=-1))
+        real = np.ones(rows, dtype=bool)
+        real[np.asarray(self.last, dtype=np.int64)] = False  # not the end marks
+        inner = cell[real]
+        starts = np.flatnonzero(np.diff(inner, prepend=-1))  # first threshold of each cell
+        held = inner[starts]  # the cells holding thresholds, in order
+        first = np.flatnonzero(real)[starts]  # ... and their first rows
         sub = 0
-        while sub < _SUB_BITS and held.size << (sub + 1) <= _GUIDE_ENTRIES:
+        while sub < _SUB_BITS and held.size << (sub + 1) <= _SUB_ENTRIES:
             sub += 1
-        if sub:
-            # the sub-cell of each threshold (not the end marks) in a held cell
-            real = np.ones(rows, dtype=bool)
-            real[np.asarray(self.last, dtype=np.int64)] = False
-            rank = np.searchsorted(held, cell[real])  # each such row's cell is held
+        if not sub:
+            guide[held] = ~first
+        else:
+            # the sub-cell of each threshold in a held cell: its rank's sub-cells, then its
+            # word's next `sub` bits (non-decreasing), and each sub-cell's first row
+            spans = np.diff(starts, append=inner.size)  # thresholds in each held cell
+            rank = np.repeat(np.arange(held.size, dtype=np.int64), spans)
             part = (flat[real] >> np.uint64(64 - bits - sub)) & np.uint64((1 << sub) - 1)
             slot = (rank << sub) + part.astype(np.int64)
-            sub_counts = np.bincount(slot, minlength=held.size << sub)
-            before = np.cumsum(sub_counts)
-            before -= sub_counts  # thresholds of held cells before the sub-cell
-            start = before[:: 1 << sub]  # ... before each held cell
-            sub_first = np.repeat(first[held] - start, 1 << sub) + before
+            before = np.repeat(np.arange(slot.size, dtype=np.int64),
+                               np.diff(slot, prepend=-1))  # thresholds in held cells below
+            before = np.concatenate([before, np.full((held.size << sub) - before.size, slot.size)])
+            first_of_cell = before[:: 1 << sub]
+            sub_first = before + np.repeat(first - first_of_cell, 1 << sub)
+            counts = np.bincount(slot, minlength=held.size << sub)
             level_two = ~sub_first
-            empty = sub_counts == 0
+            empty = counts == 0
             level_two[empty] = nxt[sub_first[empty]]
             # a held cell's entry ~(j << b) = -(1 + (j << b)): level two starts at 1
             self._sub_cells = np.concatenate([[0], level_two]).astype(np.int32)
-            guide[held] = ~(np.arange(held.size, dtype=np.int64) << sub)
+            guide[held] = ~(np.arange(held.size, dtype=np.int32) << sub)
             self._part_shift = np.uint64(64 - bits - sub)
             self._part_mask = (1 << sub) - 1
         self._sub = sub
-        self._guide = guide.astype(np.int32)
+        self._guide = guide
         self._flat = flat
         self._shift = bits
         self._table = nxt.astype(np.int32)

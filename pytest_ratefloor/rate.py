@@ -111,8 +111,6 @@ def tolerance(rel: float | None, abs: float | None) -> tuple[float, float]:
 _HISTOGRAM_LIMIT = 1 << 16
 #: Symbols counted at a time (bounds the int64 copy ``np.bincount`` makes of a narrow sample).
 _COUNT_CHUNK = 1 << 20
-
-
 #: Shortest byte sample counted two bytes at a time (below it the 2¹⁶-bin table costs more).
 _PAIRS_FROM = 1 << 18
 

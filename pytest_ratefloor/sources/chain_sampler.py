@@ -163,7 +163,7 @@ class _ChainSampler:
         self._shift = 0
         self._guide = np.zeros(0, dtype=np.int32)
         self._flat = np.zeros(0, dtype=np.uint64)  # every state's thresholds, then 2**64 - 1
-        self._sub = 0  # bits that name a sub-cell (0: cells holding thresholds are searched)
+        self._sub = 0  # bits that name a sub-cell (0: cells holding thresholds are compared)
         self._sub_cells = np.zeros(0, dtype=np.int32)
         self._part_shift, self._part_mask = np.uint64(0), 0
         self._slow = False  # the chain forgets too slowly for the lockstep path: the loop
@@ -387,7 +387,7 @@ class _ChainSampler:
             path = self._block_states(state, words[:whole], chunks, length, spare)
             target = out[done : done + whole].reshape(chunks, length)
             self._emit(path, target, identity)
-            state = int(path[-1, -1]) >> (self._shift if guided else 0)
+            state = int(path[-1, -1]) >> self._shift  # (0 on the class path)
             done += whole
             if whole < size:
                 symbols = []
@@ -401,7 +401,7 @@ class _ChainSampler:
 
         A few chunks at a time, so that each transposed piece stays in cache.
         """
-        shift = self._shift if self._classes is None else 0
+        shift = self._shift  # 0 on the class path
         chunks = path.shape[1]
         for c in range(0, chunks, _TILE_OUT):
             part = path[:, c : c + _TILE_OUT]
@@ -431,15 +431,14 @@ class _ChainSampler:
             guess, state = self._guess, state
             # step t of every chunk side by side: keys[t, c] for word c*length + t
             keys = _transposed(in_order.reshape(chunks, length), spare.get("keys", in_order.dtype))
+            by_step = np.empty((length, 0), dtype=np.uint64)  # not needed
         else:
             guess, state = self._guess << self._shift, state << self._shift
             keys = _transposed(
                 words.reshape(chunks, length), spare.get("keys", np.int32), 64 - self._shift
             )
-        if self._classes is None:  # the guide path compares the words themselves
-            by_step = words.reshape(chunks, length).T  # a view: only some words are compared
-        else:
-            by_step = np.empty((length, 0), dtype=np.uint64)  # not needed
+            # the guide path compares some of the words themselves: a view, no copy
+            by_step = words.reshape(chunks, length).T
         table = self._table
         path = spare.get("path", table.dtype)[: length * chunks].reshape(length, chunks)
         starts = np.full(chunks, guess, dtype=table.dtype)
